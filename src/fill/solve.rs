@@ -1,0 +1,272 @@
+//! The multigrid cycle and the outer iteration.
+//!
+//! A cycle on level `l`: `pre_smooth` Gauss-Seidel sweeps (colours in order), the residual,
+//! its restriction `Pᵀ·r` as the right-hand side of level `l+1` with a zero start, a cycle there,
+//! the interpolated correction added back, and `post_smooth` sweeps (colours in reverse order, so
+//! a cycle with equal sweep counts is a symmetric operator). The coarsest level is solved exactly
+//! by a dense Cholesky factorisation. The iteration starts with full multigrid (the right-hand
+//! side restricted to every level, solved on the coarsest, interpolated and cycled on the way up)
+//! unless a warm start is asked for, and runs in `f64` so the relative residual can go far below
+//! the `f32` rounding of the values.
+
+use super::hierarchy::{Coarsest, Hierarchy, K_FINE, Level};
+use super::kernels;
+use super::{ChannelReport, Cycle, FillError, FillParams, Progress, Start};
+
+/// Per-level vectors for `C` channels: solution (or correction), right-hand side and residual,
+/// each `(n + 1) · C` long (the last point is the ghost).
+struct LevelWork {
+    u: Vec<f64>,
+    b: Vec<f64>,
+    r: Vec<f64>,
+}
+
+struct Cycler<'a, const C: usize> {
+    h: &'a Hierarchy,
+    params: &'a FillParams,
+    work: Vec<LevelWork>,
+}
+
+fn sweep<const C: usize>(level: &Level, colour: usize, u: &mut [f64], b: &[f64]) {
+    let range = level.colours[colour].clone();
+    if level.k == K_FINE {
+        kernels::sweep::<{ K_FINE }, C>(level, range, u, b);
+    } else {
+        kernels::sweep::<{ super::hierarchy::K_COARSE }, C>(level, range, u, b);
+    }
+}
+
+fn residual<const C: usize>(level: &Level, u: &[f64], b: &[f64], r: &mut [f64]) -> [f64; C] {
+    if level.k == K_FINE {
+        kernels::residual::<{ K_FINE }, C>(level, u, b, r)
+    } else {
+        kernels::residual::<{ super::hierarchy::K_COARSE }, C>(level, u, b, r)
+    }
+}
+
+impl<'a, const C: usize> Cycler<'a, C> {
+    fn new(h: &'a Hierarchy, params: &'a FillParams) -> Self {
+        let work = h
+            .levels
+            .iter()
+            .map(|l| {
+                let len = (l.n + 1) * C;
+                LevelWork { u: vec![0.0; len], b: vec![0.0; len], r: vec![0.0; len] }
+            })
+            .collect();
+        Self { h, params, work }
+    }
+
+    fn smooth(&mut self, l: usize, sweeps: usize, reverse: bool) {
+        let level = &self.h.levels[l];
+        let LevelWork { u, b, .. } = &mut self.work[l];
+        let colours = level.colours.len();
+        for _ in 0..sweeps {
+            for k in 0..colours {
+                let colour = if reverse { colours - 1 - k } else { k };
+                sweep::<C>(level, colour, u, b);
+            }
+        }
+    }
+
+    fn coarsest(&mut self, l: usize) {
+        let level = &self.h.levels[l];
+        match &self.h.coarsest {
+            Coarsest::Dense(ch) => {
+                let LevelWork { u, b, .. } = &mut self.work[l];
+                let mut x = vec![0f64; level.n];
+                for c in 0..C {
+                    for (i, xi) in x.iter_mut().enumerate() {
+                        *xi = b[i * C + c];
+                    }
+                    ch.solve_in_place(&mut x);
+                    for (i, xi) in x.iter().enumerate() {
+                        u[i * C + c] = *xi;
+                    }
+                }
+            }
+            Coarsest::Relax(sweeps) => {
+                let sweeps = *sweeps;
+                self.smooth(l, sweeps, false);
+                self.smooth(l, sweeps, true);
+            }
+        }
+    }
+
+    /// Restricts the residual of level `l` to the right-hand side of level `l+1` and zeroes the
+    /// correction there.
+    fn descend(&mut self, l: usize) {
+        let (fine, coarse) = self.work.split_at_mut(l + 1);
+        let (fw, cw) = (&mut fine[l], &mut coarse[0]);
+        residual::<C>(&self.h.levels[l], &fw.u, &fw.b, &mut fw.r);
+        kernels::restrict::<C>(&self.h.levels[l + 1], &fw.r, &mut cw.b);
+        cw.u.fill(0.0);
+    }
+
+    fn ascend(&mut self, l: usize) {
+        let (fine, coarse) = self.work.split_at_mut(l + 1);
+        kernels::prolong_add::<C>(&self.h.levels[l], &coarse[0].u, &mut fine[l].u);
+    }
+
+    fn cycle(&mut self, l: usize, kind: Cycle) {
+        if l + 1 == self.h.levels.len() {
+            self.coarsest(l);
+            return;
+        }
+        self.smooth(l, self.params.pre_smooth, false);
+        self.descend(l);
+        match kind {
+            Cycle::V => self.cycle(l + 1, Cycle::V),
+            Cycle::W => {
+                self.cycle(l + 1, Cycle::W);
+                self.cycle(l + 1, Cycle::W);
+            }
+            Cycle::F => {
+                self.cycle(l + 1, Cycle::F);
+                self.cycle(l + 1, Cycle::V);
+            }
+        }
+        self.ascend(l);
+        self.smooth(l, self.params.post_smooth, true);
+    }
+
+    /// Full multigrid from the right-hand side of level 0.
+    fn full_multigrid(&mut self) {
+        let depth = self.h.levels.len();
+        for l in 0..depth - 1 {
+            let (fine, coarse) = self.work.split_at_mut(l + 1);
+            kernels::restrict::<C>(&self.h.levels[l + 1], &fine[l].b, &mut coarse[0].b);
+        }
+        self.coarsest(depth - 1);
+        for l in (0..depth - 1).rev() {
+            self.work[l].u.fill(0.0);
+            self.ascend(l);
+            self.cycle(l, self.params.cycle);
+        }
+    }
+}
+
+/// Solves for every plane, up to four channels per pass.
+pub(super) fn solve_planes(
+    h: &Hierarchy,
+    planes: &mut [&mut [f32]],
+    params: &FillParams,
+    start: Start,
+    progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+) -> Result<Vec<ChannelReport>, FillError> {
+    // Solve everything first and write back only when all groups succeeded, so an error or a
+    // cancel leaves the planes unchanged.
+    let mut solutions = Vec::new();
+    let mut reports = Vec::new();
+    let groups = planes.len().div_ceil(4);
+    for g in 0..groups {
+        let group = &planes[g * 4..planes.len().min(g * 4 + 4)];
+        let (u, rep) = match group.len() {
+            1 => solve_group::<1>(h, group, params, start, progress)?,
+            2 => solve_group::<2>(h, group, params, start, progress)?,
+            3 => solve_group::<3>(h, group, params, start, progress)?,
+            _ => solve_group::<4>(h, group, params, start, progress)?,
+        };
+        solutions.push((g * 4, group.len(), u));
+        reports.extend(rep);
+    }
+    let lv0 = &h.levels[0];
+    for (first, count, u) in solutions {
+        for c in 0..count {
+            let plane = &mut planes[first + c];
+            for (i, &p) in lv0.pos.iter().enumerate() {
+                #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
+                {
+                    plane[p as usize] = u[i * count + c] as f32;
+                }
+            }
+        }
+    }
+    Ok(reports)
+}
+
+fn solve_group<const C: usize>(
+    h: &Hierarchy,
+    planes: &[&mut [f32]],
+    params: &FillParams,
+    start: Start,
+    progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+) -> Result<(Vec<f64>, Vec<ChannelReport>), FillError> {
+    let mut cy = Cycler::<C>::new(h, params);
+    let lv0 = &h.levels[0];
+    let (w, hh) = (h.width, h.height);
+
+    // Right-hand side: the known neighbours of every unknown.
+    {
+        let b = &mut cy.work[0].b;
+        for (i, &p) in lv0.pos.iter().enumerate() {
+            let p = p as usize;
+            let (x, y) = (p % w, p / w);
+            let nbrs = [
+                (x > 0).then(|| p - 1),
+                (x + 1 < w).then(|| p + 1),
+                (y > 0).then(|| p - w),
+                (y + 1 < hh).then(|| p + w),
+            ];
+            for q in nbrs.into_iter().flatten() {
+                if h.mask[q] {
+                    continue;
+                }
+                for c in 0..C {
+                    let v = planes[c][q];
+                    if !v.is_finite() {
+                        return Err(FillError::NonFiniteRim { x: q % w, y: q / w });
+                    }
+                    b[i * C + c] += f64::from(v);
+                }
+            }
+        }
+    }
+    let bnorm = kernels::norm_sq::<C>(&cy.work[0].b, lv0.n).map(|s| if s > 0.0 { s.sqrt() } else { 1.0 });
+
+    match start {
+        Start::FullMultigrid => cy.full_multigrid(),
+        Start::Warm => {
+            let u = &mut cy.work[0].u;
+            for (i, &p) in lv0.pos.iter().enumerate() {
+                for c in 0..C {
+                    let v = planes[c][p as usize];
+                    u[i * C + c] = if v.is_finite() { f64::from(v) } else { 0.0 };
+                }
+            }
+        }
+    }
+    let mut cycles = usize::from(start == Start::FullMultigrid);
+    let mut reports: Vec<ChannelReport> = (0..C).map(|_| ChannelReport::default()).collect();
+    let mut done = [false; C];
+    loop {
+        let LevelWork { u, b, r } = &mut cy.work[0];
+        let sq = residual::<C>(lv0, u, b, r);
+        let mut worst = 0f64;
+        for c in 0..C {
+            let rel = sq[c].sqrt() / bnorm[c];
+            reports[c].relative_residual = rel;
+            reports[c].history.push(rel);
+            if !done[c] && rel <= params.tolerance {
+                done[c] = true;
+                reports[c].cycles = cycles;
+            }
+            worst = worst.max(rel);
+        }
+        if done.iter().all(|&d| d) {
+            break;
+        }
+        if !worst.is_finite() || cycles >= params.max_cycles {
+            return Err(FillError::NoConvergence { residual: worst, cycles });
+        }
+        if !progress(&Progress { cycle: cycles, max_cycles: params.max_cycles, residual: worst, tolerance: params.tolerance })
+        {
+            return Err(FillError::Cancelled);
+        }
+        cy.cycle(0, params.cycle);
+        cycles += 1;
+    }
+    let mut u = std::mem::take(&mut cy.work[0].u);
+    u.truncate(lv0.n * C);
+    Ok((u, reports))
+}

@@ -1,0 +1,176 @@
+//! Which pixels are damaged.
+//!
+//! A [`Mask`] is one flag per pixel: `true` means the pixel is unknown and will be filled, `false`
+//! means it is known and kept exactly. Holes are the 4-connected components of masked pixels, the
+//! same connectivity the 5-point stencil of the fill uses, so two holes never share an equation.
+
+use std::fmt;
+
+/// One flag per pixel, row-major, `true` where the pixel is to be filled.
+#[derive(Clone, PartialEq, Eq)]
+pub struct Mask {
+    width: usize,
+    height: usize,
+    bits: Vec<bool>,
+}
+
+impl fmt::Debug for Mask {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_struct("Mask")
+            .field("width", &self.width)
+            .field("height", &self.height)
+            .field("count", &self.count())
+            .finish()
+    }
+}
+
+/// A summary of the holes of a mask.
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct HoleStats {
+    /// Number of 4-connected components of masked pixels.
+    pub holes: usize,
+    /// Pixel count of the largest hole (0 when there is none).
+    pub largest: usize,
+}
+
+impl Mask {
+    /// A mask with no pixel marked.
+    #[must_use]
+    pub fn new(width: usize, height: usize) -> Self {
+        Self { width, height, bits: vec![false; width * height] }
+    }
+
+    /// Builds a mask from row-major flags.
+    ///
+    /// # Panics
+    /// If `bits.len() != width * height` (a programming error, not a user error).
+    #[must_use]
+    pub fn from_bits(width: usize, height: usize, bits: Vec<bool>) -> Self {
+        assert_eq!(bits.len(), width * height, "mask bits do not match its size");
+        Self { width, height, bits }
+    }
+
+    /// Builds a mask by calling `f(x, y)` for every pixel.
+    pub fn from_fn(width: usize, height: usize, mut f: impl FnMut(usize, usize) -> bool) -> Self {
+        let mut bits = Vec::with_capacity(width * height);
+        for y in 0..height {
+            for x in 0..width {
+                bits.push(f(x, y));
+            }
+        }
+        Self { width, height, bits }
+    }
+
+    #[must_use]
+    pub fn width(&self) -> usize {
+        self.width
+    }
+
+    #[must_use]
+    pub fn height(&self) -> usize {
+        self.height
+    }
+
+    /// Row-major flags.
+    #[must_use]
+    pub fn bits(&self) -> &[bool] {
+        &self.bits
+    }
+
+    #[must_use]
+    pub fn get(&self, x: usize, y: usize) -> bool {
+        self.bits[y * self.width + x]
+    }
+
+    pub fn set(&mut self, x: usize, y: usize, value: bool) {
+        self.bits[y * self.width + x] = value;
+    }
+
+    /// Number of masked (unknown) pixels.
+    #[must_use]
+    pub fn count(&self) -> usize {
+        self.bits.iter().filter(|&&b| b).count()
+    }
+
+    /// True when no pixel is marked.
+    #[must_use]
+    pub fn is_empty(&self) -> bool {
+        !self.bits.iter().any(|&b| b)
+    }
+
+    /// Labels the holes (4-connected components of masked pixels).
+    ///
+    /// Returns one label per pixel (`0` for known pixels, `1..=n` for holes, in order of their
+    /// first pixel in row-major order) and the pixel count of each hole (`sizes[k]` is hole `k+1`).
+    #[must_use]
+    pub fn label_holes(&self) -> (Vec<u32>, Vec<usize>) {
+        let (w, h) = (self.width, self.height);
+        let mut labels = vec![0u32; w * h];
+        let mut sizes = Vec::new();
+        let mut stack = Vec::new();
+        for start in 0..w * h {
+            if !self.bits[start] || labels[start] != 0 {
+                continue;
+            }
+            sizes.push(0usize);
+            let label = u32::try_from(sizes.len()).unwrap_or(u32::MAX);
+            labels[start] = label;
+            stack.push(start);
+            let mut size = 0usize;
+            while let Some(p) = stack.pop() {
+                size += 1;
+                let (x, y) = (p % w, p / w);
+                let mut visit = |q: usize| {
+                    if self.bits[q] && labels[q] == 0 {
+                        labels[q] = label;
+                        stack.push(q);
+                    }
+                };
+                if x > 0 {
+                    visit(p - 1);
+                }
+                if x + 1 < w {
+                    visit(p + 1);
+                }
+                if y > 0 {
+                    visit(p - w);
+                }
+                if y + 1 < h {
+                    visit(p + w);
+                }
+            }
+            if let Some(last) = sizes.last_mut() {
+                *last = size;
+            }
+        }
+        (labels, sizes)
+    }
+
+    /// Counts the holes and the size of the largest.
+    #[must_use]
+    pub fn hole_stats(&self) -> HoleStats {
+        let (_, sizes) = self.label_holes();
+        HoleStats { holes: sizes.len(), largest: sizes.iter().copied().max().unwrap_or(0) }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn holes_are_four_connected() {
+        // Two diagonal pixels touch only at a corner: two holes.
+        let m = Mask::from_fn(4, 4, |x, y| (x, y) == (1, 1) || (x, y) == (2, 2));
+        assert_eq!(m.hole_stats(), HoleStats { holes: 2, largest: 1 });
+        let m = Mask::from_fn(4, 4, |x, y| y == 1 || (x == 3 && y == 2));
+        assert_eq!(m.hole_stats(), HoleStats { holes: 1, largest: 5 });
+    }
+
+    #[test]
+    fn empty_mask_has_no_holes() {
+        let m = Mask::new(3, 2);
+        assert!(m.is_empty());
+        assert_eq!(m.hole_stats(), HoleStats::default());
+    }
+}

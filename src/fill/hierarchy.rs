@@ -567,7 +567,7 @@ mod tests {
 
     #[test]
     fn galerkin_operator_of_an_open_square_is_symmetric_and_positive() {
-        let mask = Mask::from_fn(40, 33, |x, y| (3..37).contains(&x) && (2..30).contains(&y));
+        let mask = Mask::from_fn(90, 77, |x, y| (3..87).contains(&x) && (2..70).contains(&y));
         let h = Hierarchy::build(&mask).expect("non-empty mask");
         assert!(h.depth() >= 3);
         for level in &h.levels[1..] {

@@ -9,6 +9,9 @@
 //!
 //! Filled pixels are estimates, not measurements.
 
+pub mod cli;
 pub mod fill;
 pub mod mask;
+pub mod raster;
+pub mod report;
 pub mod synth;

@@ -191,11 +191,8 @@ fn fine_level(mask: &Mask) -> Level {
     let mut nbr = vec![ghost; n * K_FINE];
     let mut coef = vec![0f32; n * K_FINE];
     let mut diag = vec![0f64; n];
-    nbr.par_chunks_mut(K_FINE)
-        .zip(coef.par_chunks_mut(K_FINE))
-        .zip(diag.par_iter_mut())
-        .zip(pos.par_iter())
-        .for_each(|(((nb, co), d), &p)| {
+    nbr.par_chunks_mut(K_FINE).zip(coef.par_chunks_mut(K_FINE)).zip(diag.par_iter_mut()).zip(pos.par_iter()).for_each(
+        |(((nb, co), d), &p)| {
             let p = p as usize;
             let (x, y) = (p % w, p / w);
             let mut deg = 0u32;
@@ -215,7 +212,8 @@ fn fine_level(mask: &Mask) -> Level {
                 }
             }
             *d = f64::from(deg);
-        });
+        },
+    );
     let inv_diag = diag.iter().map(|&d| if d > 0.0 { 1.0 / d } else { 0.0 }).collect();
     Level {
         w,
@@ -312,39 +310,35 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
         #[allow(clippy::cast_possible_truncation)] // weights are stored in f32
         if w.is_finite() { w.clamp(0.0, 1.0) as f32 } else { 0.0 }
     };
-    parents
-        .par_chunks_mut(PARENTS)
-        .zip(pweights.par_chunks_mut(PARENTS))
-        .enumerate()
-        .for_each(|(i, (pa, pw))| {
-            let p = fine.pos[i] as usize;
-            let (x, y) = (p % wf, p / wf);
-            let c = |dx, dy| coupling(fine, i, dx, dy);
-            let mut put = |slot: usize, target: Option<u32>, w: f64| {
-                if let Some(t) = target {
-                    pa[slot] = t;
-                    pw[slot] = clean(w);
-                }
-            };
-            match (x % 2, y % 2) {
-                (0, 0) => put(0, coarse_at(x / 2, y / 2), 1.0),
-                (1, 0) => {
-                    let den = fine.diag[i] + c(0, -1) + c(0, 1);
-                    if den > 0.0 {
-                        put(0, coarse_at(x / 2, y / 2), -(c(-1, -1) + c(-1, 0) + c(-1, 1)) / den);
-                        put(1, coarse_at(x / 2 + 1, y / 2), -(c(1, -1) + c(1, 0) + c(1, 1)) / den);
-                    }
-                }
-                (0, 1) => {
-                    let den = fine.diag[i] + c(-1, 0) + c(1, 0);
-                    if den > 0.0 {
-                        put(0, coarse_at(x / 2, y / 2), -(c(-1, -1) + c(0, -1) + c(1, -1)) / den);
-                        put(1, coarse_at(x / 2, y / 2 + 1), -(c(-1, 1) + c(0, 1) + c(1, 1)) / den);
-                    }
-                }
-                _ => {}
+    parents.par_chunks_mut(PARENTS).zip(pweights.par_chunks_mut(PARENTS)).enumerate().for_each(|(i, (pa, pw))| {
+        let p = fine.pos[i] as usize;
+        let (x, y) = (p % wf, p / wf);
+        let c = |dx, dy| coupling(fine, i, dx, dy);
+        let mut put = |slot: usize, target: Option<u32>, w: f64| {
+            if let Some(t) = target {
+                pa[slot] = t;
+                pw[slot] = clean(w);
             }
-        });
+        };
+        match (x % 2, y % 2) {
+            (0, 0) => put(0, coarse_at(x / 2, y / 2), 1.0),
+            (1, 0) => {
+                let den = fine.diag[i] + c(0, -1) + c(0, 1);
+                if den > 0.0 {
+                    put(0, coarse_at(x / 2, y / 2), -(c(-1, -1) + c(-1, 0) + c(-1, 1)) / den);
+                    put(1, coarse_at(x / 2 + 1, y / 2), -(c(1, -1) + c(1, 0) + c(1, 1)) / den);
+                }
+            }
+            (0, 1) => {
+                let den = fine.diag[i] + c(-1, 0) + c(1, 0);
+                if den > 0.0 {
+                    put(0, coarse_at(x / 2, y / 2), -(c(-1, -1) + c(0, -1) + c(1, -1)) / den);
+                    put(1, coarse_at(x / 2, y / 2 + 1), -(c(-1, 1) + c(0, 1) + c(1, 1)) / den);
+                }
+            }
+            _ => {}
+        }
+    });
     // ... then of the points at cell centres, from their neighbours' rows.
     let centre_rows: Vec<(usize, [u32; PARENTS], [f32; PARENTS])> = (0..fine.n)
         .into_par_iter()
@@ -408,34 +402,30 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
     let fghost = to_u32(fine.n);
     let mut children = vec![fghost; nc * CHILDREN];
     let mut cweights = vec![0f32; nc * CHILDREN];
-    children
-        .par_chunks_mut(CHILDREN)
-        .zip(cweights.par_chunks_mut(CHILDREN))
-        .enumerate()
-        .for_each(|(ic, (ch, cw))| {
-            let p = pos[ic] as usize;
-            let (xc, yc) = (p % wc, p / wc);
-            for dy in 0..3 {
-                for dx in 0..3 {
-                    let (Some(x), Some(y)) = ((2 * xc + dx).checked_sub(1), (2 * yc + dy).checked_sub(1)) else {
-                        continue;
-                    };
-                    if x >= wf || y >= hf {
-                        continue;
-                    }
-                    let f = findex[y * wf + x];
-                    if f == u32::MAX {
-                        continue;
-                    }
-                    let fi = f as usize;
-                    let me = to_u32(ic);
-                    if let Some(t) = (0..PARENTS).find(|&t| parents[fi * PARENTS + t] == me) {
-                        ch[dy * 3 + dx] = f;
-                        cw[dy * 3 + dx] = pweights[fi * PARENTS + t];
-                    }
+    children.par_chunks_mut(CHILDREN).zip(cweights.par_chunks_mut(CHILDREN)).enumerate().for_each(|(ic, (ch, cw))| {
+        let p = pos[ic] as usize;
+        let (xc, yc) = (p % wc, p / wc);
+        for dy in 0..3 {
+            for dx in 0..3 {
+                let (Some(x), Some(y)) = ((2 * xc + dx).checked_sub(1), (2 * yc + dy).checked_sub(1)) else {
+                    continue;
+                };
+                if x >= wf || y >= hf {
+                    continue;
+                }
+                let f = findex[y * wf + x];
+                if f == u32::MAX {
+                    continue;
+                }
+                let fi = f as usize;
+                let me = to_u32(ic);
+                if let Some(t) = (0..PARENTS).find(|&t| parents[fi * PARENTS + t] == me) {
+                    ch[dy * 3 + dx] = f;
+                    cw[dy * 3 + dx] = pweights[fi * PARENTS + t];
                 }
             }
-        });
+        }
+    });
     drop(findex);
     drop(cindex);
 
@@ -477,8 +467,7 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
             }
             let mut nb = [cghost; K_COARSE];
             let mut co = [0f32; K_COARSE];
-            let mut slot = 0;
-            for s in (0..9).filter(|&s| s != 4) {
+            for (slot, s) in (0..9).filter(|&s| s != 4).enumerate() {
                 if col[s] != cghost && acc[s] != 0.0 {
                     nb[slot] = col[s];
                     #[allow(clippy::cast_possible_truncation)] // coarse stencils are stored in f32
@@ -486,7 +475,6 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
                         co[slot] = acc[s] as f32;
                     }
                 }
-                slot += 1;
             }
             (nb, co, acc[4])
         })

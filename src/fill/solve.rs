@@ -259,8 +259,12 @@ fn solve_group<const C: usize>(
         if !worst.is_finite() || cycles >= params.max_cycles {
             return Err(FillError::NoConvergence { residual: worst, cycles });
         }
-        if !progress(&Progress { cycle: cycles, max_cycles: params.max_cycles, residual: worst, tolerance: params.tolerance })
-        {
+        if !progress(&Progress {
+            cycle: cycles,
+            max_cycles: params.max_cycles,
+            residual: worst,
+            tolerance: params.tolerance,
+        }) {
             return Err(FillError::Cancelled);
         }
         cy.cycle(0, params.cycle);

@@ -77,6 +77,11 @@ impl Mask {
         &self.bits
     }
 
+    /// Row-major flags, for editing in place.
+    pub fn bits_mut(&mut self) -> &mut [bool] {
+        &mut self.bits
+    }
+
     #[must_use]
     pub fn get(&self, x: usize, y: usize) -> bool {
         self.bits[y * self.width + x]

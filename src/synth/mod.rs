@@ -3,6 +3,8 @@
 //! Everything here is deterministic for a given seed, so benchmarks, tests and the bundled
 //! samples can be regenerated bit for bit on any machine.
 
+pub mod samples;
+
 use std::f64::consts::PI;
 use std::fmt;
 use std::str::FromStr;
@@ -149,11 +151,12 @@ pub fn scratches(w: usize, h: usize, rng: &mut Rng) -> Mask {
         let width = 1.0 + 2.0 * rng.uniform();
         let mut p = (rng.uniform() * wf, rng.uniform() * hf);
         let mut heading = rng.uniform() * 2.0 * PI;
-        let segments = 3 + rng.below(3);
+        let segments = 4 + rng.below(4);
         for _ in 0..segments {
             heading += (rng.uniform() - 0.5) * 1.2;
-            let len = size * (0.04 + 0.06 * rng.uniform());
-            let q = ((p.0 + len * heading.cos()).clamp(0.0, wf - 1.0), (p.1 + len * heading.sin()).clamp(0.0, hf - 1.0));
+            let len = size * (0.1 + 0.15 * rng.uniform());
+            let q =
+                ((p.0 + len * heading.cos()).clamp(0.0, wf - 1.0), (p.1 + len * heading.sin()).clamp(0.0, hf - 1.0));
             paint_line(&mut mask, p, q, width);
             p = q;
         }
@@ -188,7 +191,12 @@ fn blob(n: usize, rng: &mut Rng) -> Mask {
         // Small disks away from the big one's centre region.
         let angle = rng.uniform() * 2.0 * PI;
         let dist = nf * (0.3 + 0.15 * rng.uniform());
-        paint_disk(&mut mask, nf / 2.0 + dist * angle.cos(), nf / 2.0 + dist * angle.sin(), nf * (0.01 + 0.02 * rng.uniform()));
+        paint_disk(
+            &mut mask,
+            nf / 2.0 + dist * angle.cos(),
+            nf / 2.0 + dist * angle.sin(),
+            nf * (0.01 + 0.02 * rng.uniform()),
+        );
     }
     mask
 }

@@ -1,0 +1,122 @@
+//! `reweave bench`: the solver on the standard synthetic cases, one JSON line per run.
+
+use std::time::Instant;
+
+use anyhow::Result;
+use clap::Args;
+use serde_json::json;
+
+use super::UsageError;
+use crate::fill::{FillParams, Solver, Start};
+use crate::synth::{MaskFamily, smooth_plane};
+
+/// Time setup and solve on seeded synthetic masks: scratches (thin polylines, about 2% of the
+/// pixels), deadpix (0.1% single pixels, dead columns and a row), blob (a disk of radius 0.2·N and
+/// five small ones), dropout (half the pixels at random), frame (all but a 2-pixel border).
+#[derive(Debug, Args)]
+#[command(after_help = "Example:\n  reweave bench --size 2048 --case frame --case blob --channels 3")]
+pub struct BenchArgs {
+    /// Image side N (repeat for several); default 1024, 2048 and 4096.
+    #[arg(long, value_name = "N")]
+    pub size: Vec<usize>,
+    /// Case name (repeat for several): scratches, deadpix, blob, dropout, frame; default all.
+    #[arg(long, value_name = "NAME")]
+    pub case: Vec<MaskFamily>,
+    /// Channels per image: 1 (gray) or 3 (RGB).
+    #[arg(long, default_value_t = 1)]
+    pub channels: usize,
+    /// Runs per case; the fastest is reported.
+    #[arg(long, default_value_t = 1)]
+    pub repeat: usize,
+    /// Relative residual to reach.
+    #[arg(long, default_value_t = 1e-6)]
+    pub tolerance: f64,
+    /// Worker threads (0: all cores).
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
+    /// Seed of the generated masks and images.
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+}
+
+/// Peak resident memory of this process since the last reset, in bytes (Linux only).
+fn peak_rss() -> Option<u64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb * 1024)
+}
+
+fn current_rss() -> Option<u64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmRSS:"))?;
+    let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb * 1024)
+}
+
+/// Resets the peak-memory mark (Linux ≥ 4.0: writing 5 to clear_refs).
+fn reset_peak() {
+    let _ = std::fs::write("/proc/self/clear_refs", "5");
+}
+
+#[allow(clippy::cast_precision_loss)] // figures for display
+pub(super) fn run(args: &BenchArgs) -> Result<()> {
+    if !(1..=4).contains(&args.channels) {
+        return Err(UsageError(format!("--channels must be 1 to 4 (got {})", args.channels)).into());
+    }
+    let sizes = if args.size.is_empty() { vec![1024, 2048, 4096] } else { args.size.clone() };
+    let cases = if args.case.is_empty() { MaskFamily::ALL.to_vec() } else { args.case.clone() };
+    let params = FillParams { tolerance: args.tolerance, threads: args.threads, ..FillParams::default() };
+    for &n in &sizes {
+        for &case in &cases {
+            let mask = case.mask(n, args.seed);
+            let originals: Vec<Vec<f32>> =
+                (0..args.channels).map(|c| smooth_plane(n, n, args.seed + c as u64)).collect();
+            let mut best: Option<(f64, f64, crate::fill::FillReport, usize, u64)> = None;
+            for _ in 0..args.repeat.max(1) {
+                let mut planes = originals.clone();
+                let base = current_rss().unwrap_or(0);
+                reset_peak();
+                let t0 = Instant::now();
+                let solver = Solver::new(&mask)?;
+                let setup = t0.elapsed().as_secs_f64();
+                let mut views: Vec<&mut [f32]> = planes.iter_mut().map(Vec::as_mut_slice).collect();
+                let t1 = Instant::now();
+                let report = solver.solve(&mut views, &params, Start::FullMultigrid, &mut |_| true)?;
+                let solve = t1.elapsed().as_secs_f64();
+                let peak = peak_rss().unwrap_or(0).saturating_sub(base);
+                let hier = solver.hierarchy().map_or(0, crate::fill::Hierarchy::memory_bytes);
+                if best.as_ref().is_none_or(|b| setup + solve < b.0 + b.1) {
+                    best = Some((setup, solve, report, hier, peak));
+                }
+            }
+            let Some((setup, solve, report, hier, peak)) = best else { continue };
+            let unknowns = report.unknowns;
+            let image_bytes = (n * n * args.channels * 4) as f64;
+            let line = json!({
+                "case": case.name(),
+                "size": n,
+                "channels": args.channels,
+                "unknowns": unknowns,
+                "levels": report.levels,
+                "cycles": report.channels.iter().map(|c| c.cycles).max().unwrap_or(0),
+                "residual": report.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max),
+                "setup_s": round(setup, 4),
+                "solve_s": round(solve, 4),
+                "total_s": round(setup + solve, 4),
+                "ns_per_unknown": round((setup + solve) * 1e9 / unknowns.max(1) as f64, 1),
+                "hierarchy_mb": round(hier as f64 / 1e6, 1),
+                "peak_extra_mb": round(peak as f64 / 1e6, 1),
+                "peak_over_image": round(peak as f64 / image_bytes, 2),
+                "threads": if args.threads == 0 { rayon::current_num_threads() } else { args.threads },
+            });
+            println!("{line}");
+        }
+    }
+    Ok(())
+}
+
+fn round(v: f64, digits: i32) -> f64 {
+    let s = 10f64.powi(digits);
+    (v * s).round() / s
+}

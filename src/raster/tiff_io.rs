@@ -1,0 +1,150 @@
+//! TIFF through the `tiff` crate: unsigned 8/16-bit, signed 16-bit and 32-bit float samples,
+//! 1–4 channels, either byte order.
+
+use std::fs::File;
+use std::io::{BufReader, BufWriter};
+use std::path::Path;
+
+use tiff::ColorType as TiffColour;
+use tiff::decoder::{Decoder, DecodingResult};
+use tiff::encoder::colortype::{self, ColorType};
+use tiff::encoder::{TiffEncoder, TiffValue};
+use tiff::tags::{ExtraSamples, PhotometricInterpretation, SampleFormat as TiffSampleFormat, Tag, Type};
+
+use super::codec::{deinterleave, interleave};
+use super::{FileFormat, Layout, Limits, Metadata, Raster, RasterError, SampleFormat};
+
+pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
+    let decode_err = |e: tiff::TiffError| match e {
+        tiff::TiffError::UnsupportedError(u) => RasterError::Unsupported { path: path.to_owned(), what: u.to_string() },
+        other => RasterError::Decode { path: path.to_owned(), format: "TIFF", message: other.to_string() },
+    };
+    let file = File::open(path).map_err(|source| RasterError::Open { path: path.to_owned(), source })?;
+    let mut tiff_limits = tiff::decoder::Limits::default();
+    tiff_limits.decoding_buffer_size = usize::try_from(limits.max_bytes).unwrap_or(usize::MAX);
+    tiff_limits.intermediate_buffer_size = usize::try_from(limits.max_bytes).unwrap_or(usize::MAX);
+    tiff_limits.ifd_value_size = 64 << 20;
+    let mut dec = Decoder::new(BufReader::new(file)).map_err(decode_err)?.with_limits(tiff_limits);
+    let (w, h) = dec.dimensions().map_err(decode_err)?;
+    if u64::from(w) * u64::from(h) > limits.max_pixels {
+        return Err(RasterError::TooLarge {
+            path: path.to_owned(),
+            width: w.into(),
+            height: h.into(),
+            limit: limits.max_pixels,
+        });
+    }
+    let colour = dec.colortype().map_err(decode_err)?;
+    let layout = match colour {
+        TiffColour::Gray(_) => Layout::Gray,
+        TiffColour::GrayA(_) => Layout::GrayAlpha,
+        TiffColour::RGB(_) => Layout::Rgb,
+        TiffColour::RGBA(_) => Layout::Rgba,
+        other => return Err(RasterError::Unsupported { path: path.to_owned(), what: format!("{other:?} pixels") }),
+    };
+    let icc_profile = dec.get_tag_u8_vec(Tag::IccProfile).ok();
+    let (sample_format, samples) = match dec.read_image().map_err(decode_err)? {
+        DecodingResult::U8(v) => (SampleFormat::U8, v.into_iter().map(f32::from).collect::<Vec<_>>()),
+        DecodingResult::U16(v) => (SampleFormat::U16, v.into_iter().map(f32::from).collect()),
+        DecodingResult::I16(v) => (SampleFormat::I16, v.into_iter().map(f32::from).collect()),
+        DecodingResult::F32(v) => (SampleFormat::F32, v),
+        other => {
+            let what = match other {
+                DecodingResult::U32(_) => "32-bit unsigned samples",
+                DecodingResult::U64(_) => "64-bit unsigned samples",
+                DecodingResult::I8(_) => "8-bit signed samples",
+                DecodingResult::I32(_) => "32-bit signed samples",
+                DecodingResult::I64(_) => "64-bit signed samples",
+                DecodingResult::F16(_) => "16-bit float samples",
+                DecodingResult::F64(_) => "64-bit float samples",
+                _ => "an unknown sample type",
+            };
+            return Err(RasterError::Unsupported { path: path.to_owned(), what: what.to_owned() });
+        }
+    };
+    let (width, height) = (w as usize, h as usize);
+    if samples.len() != width * height * layout.channels() {
+        return Err(RasterError::Decode {
+            path: path.to_owned(),
+            format: "TIFF",
+            message: format!("expected {} samples, found {}", width * height * layout.channels(), samples.len()),
+        });
+    }
+    Ok(Raster {
+        width,
+        height,
+        planes: deinterleave(&samples, layout.channels()),
+        sample_format,
+        layout,
+        file_format: FileFormat::Tiff,
+        metadata: Metadata { icc_profile },
+    })
+}
+
+/// Gray with an (unassociated) alpha sample, which the `tiff` crate has no colour type for.
+struct GrayAlpha<T>(std::marker::PhantomData<T>);
+
+macro_rules! gray_alpha {
+    ($inner:ty, $bits:expr, $fmt:expr) => {
+        impl ColorType for GrayAlpha<$inner> {
+            type Inner = $inner;
+            const TIFF_VALUE: PhotometricInterpretation = PhotometricInterpretation::BlackIsZero;
+            const BITS_PER_SAMPLE: &'static [u16] = &[$bits, $bits];
+            const SAMPLE_FORMAT: &'static [TiffSampleFormat] = &[$fmt, $fmt];
+            fn horizontal_predict(row: &[Self::Inner], result: &mut Vec<Self::Inner>) {
+                result.extend_from_slice(row);
+            }
+        }
+    };
+}
+gray_alpha!(u8, 8, TiffSampleFormat::Uint);
+gray_alpha!(u16, 16, TiffSampleFormat::Uint);
+gray_alpha!(i16, 16, TiffSampleFormat::Int);
+gray_alpha!(f32, 32, TiffSampleFormat::IEEEFP);
+
+fn write<C: ColorType>(
+    enc: &mut TiffEncoder<&mut BufWriter<File>>,
+    r: &Raster,
+    data: &[C::Inner],
+) -> tiff::TiffResult<()>
+where
+    [C::Inner]: TiffValue,
+{
+    let (w, h) = (u32::try_from(r.width)?, u32::try_from(r.height)?);
+    let mut image = enc.new_image::<C>(w, h)?;
+    if r.layout.has_alpha() {
+        // Alpha that is not premultiplied (TIFF 6.0 §18, ExtraSamples = 2). Written directly: the
+        // colour types already count the alpha sample in SamplesPerPixel.
+        image.encoder().write_tag(Tag::ExtraSamples, &[ExtraSamples::UnassociatedAlpha.to_u16()][..])?;
+    }
+    if let Some(icc) = &r.metadata.icc_profile {
+        let dir = image.encoder();
+        let entry = dir.write_entry_bytes(Type::UNDEFINED, icc)?;
+        dir.extend_from(&[(Tag::IccProfile, entry)].into_iter().collect());
+    }
+    image.write_data(data)
+}
+
+#[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)] // samples are rounded and clamped first
+pub(super) fn save(r: &Raster, w: &mut BufWriter<File>) -> Result<(), String> {
+    let mut enc = TiffEncoder::new(w).map_err(|e| e.to_string())?;
+    let e = &mut enc;
+    let result = match (r.layout, r.sample_format) {
+        (Layout::Gray, SampleFormat::U8) => write::<colortype::Gray8>(e, r, &interleave(r, |v| v as u8)),
+        (Layout::GrayAlpha, SampleFormat::U8) => write::<GrayAlpha<u8>>(e, r, &interleave(r, |v| v as u8)),
+        (Layout::Rgb, SampleFormat::U8) => write::<colortype::RGB8>(e, r, &interleave(r, |v| v as u8)),
+        (Layout::Rgba, SampleFormat::U8) => write::<colortype::RGBA8>(e, r, &interleave(r, |v| v as u8)),
+        (Layout::Gray, SampleFormat::U16) => write::<colortype::Gray16>(e, r, &interleave(r, |v| v as u16)),
+        (Layout::GrayAlpha, SampleFormat::U16) => write::<GrayAlpha<u16>>(e, r, &interleave(r, |v| v as u16)),
+        (Layout::Rgb, SampleFormat::U16) => write::<colortype::RGB16>(e, r, &interleave(r, |v| v as u16)),
+        (Layout::Rgba, SampleFormat::U16) => write::<colortype::RGBA16>(e, r, &interleave(r, |v| v as u16)),
+        (Layout::Gray, SampleFormat::I16) => write::<colortype::GrayI16>(e, r, &interleave(r, |v| v as i16)),
+        (Layout::GrayAlpha, SampleFormat::I16) => write::<GrayAlpha<i16>>(e, r, &interleave(r, |v| v as i16)),
+        (Layout::Gray, SampleFormat::F32) => write::<colortype::Gray32Float>(e, r, &interleave(r, |v| v)),
+        (Layout::GrayAlpha, SampleFormat::F32) => write::<GrayAlpha<f32>>(e, r, &interleave(r, |v| v)),
+        (Layout::Rgb, SampleFormat::F32) => write::<colortype::RGB32Float>(e, r, &interleave(r, |v| v)),
+        (Layout::Rgba, SampleFormat::F32) => write::<colortype::RGBA32Float>(e, r, &interleave(r, |v| v)),
+        (layout, fmt) => return Err(format!("TIFF output of {} {fmt} samples is not supported", layout.name())),
+    };
+    result.map_err(|e| e.to_string())
+}

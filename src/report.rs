@@ -1,0 +1,183 @@
+//! The JSON record written beside a result: what went in, what was filled, how well the equation
+//! was solved, how long it took, and the caution that filled values are estimates.
+
+use std::fs::File;
+use std::io::{self, Read};
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+use crate::fill::FillReport;
+use crate::mask::{HoleStats, Mask};
+use crate::raster::Raster;
+
+/// The caution written into every report.
+pub const CAUTION: &str = "Filled values are estimates computed from the surrounding pixels, not measurements. \
+Do not use them as data where measured values matter (scientific, medical, forensic or survey-grade work) \
+without following your field's practice; the mask records exactly which pixels were filled.";
+
+/// A file and its SHA-256.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct FileRecord {
+    pub path: String,
+    pub sha256: String,
+}
+
+impl FileRecord {
+    /// Hashes the file at `path`.
+    ///
+    /// # Errors
+    /// When the file cannot be read.
+    pub fn of(path: &Path) -> io::Result<Self> {
+        Ok(Self { path: path.display().to_string(), sha256: sha256_file(path)? })
+    }
+}
+
+/// The files a fill read.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Inputs {
+    pub image: FileRecord,
+    /// The mask file, when one was given.
+    pub mask: Option<FileRecord>,
+    /// Whether the image's own transparent pixels were added to the mask.
+    pub mask_from_alpha: bool,
+}
+
+/// How well one channel was solved.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ChannelRecord {
+    pub name: String,
+    /// ‖b − A·u‖₂ / ‖b‖₂ of the final iterate.
+    pub relative_residual: f64,
+    pub cycles: usize,
+}
+
+/// Wall-clock seconds of each stage.
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+pub struct Seconds {
+    pub load: f64,
+    pub setup: f64,
+    pub solve: f64,
+    pub save: f64,
+}
+
+/// The report of one fill.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Report {
+    /// reweave's version.
+    pub version: String,
+    pub caution: String,
+    pub inputs: Inputs,
+    pub output: Option<FileRecord>,
+    pub width: usize,
+    pub height: usize,
+    /// Number of channels (`channels` below lists them).
+    pub channel_count: usize,
+    /// gray, gray+alpha, rgb or rgba.
+    pub layout: String,
+    pub bit_depth: u32,
+    /// uint, int or float.
+    pub sample_format: String,
+    /// Masked (filled) pixels.
+    pub unknowns: usize,
+    /// 4-connected components of the mask.
+    pub holes: usize,
+    pub largest_hole: usize,
+    pub method: String,
+    pub tolerance: f64,
+    pub channels: Vec<ChannelRecord>,
+    pub seconds: Seconds,
+}
+
+impl Report {
+    /// Assembles a report from the pieces of a finished fill.
+    #[must_use]
+    pub fn new(
+        inputs: Inputs,
+        raster: &Raster,
+        mask: &Mask,
+        holes: &HoleStats,
+        fill: &FillReport,
+        tolerance: f64,
+    ) -> Self {
+        let names = raster.layout.channel_names();
+        let channels = (0..raster.channels())
+            .map(|c| {
+                let ch = fill.channels.get(c).cloned().unwrap_or_default();
+                ChannelRecord {
+                    name: names.get(c).map_or_else(|| format!("channel {c}"), |n| (*n).to_owned()),
+                    relative_residual: ch.relative_residual,
+                    cycles: ch.cycles,
+                }
+            })
+            .collect();
+        Self {
+            version: env!("CARGO_PKG_VERSION").to_owned(),
+            caution: CAUTION.to_owned(),
+            inputs,
+            output: None,
+            width: raster.width,
+            height: raster.height,
+            channel_count: raster.channels(),
+            layout: raster.layout.name().to_owned(),
+            bit_depth: raster.sample_format.bits(),
+            sample_format: raster.sample_format.kind().to_owned(),
+            unknowns: mask.count(),
+            holes: holes.holes,
+            largest_hole: holes.largest,
+            method: fill.method.name().to_owned(),
+            tolerance,
+            channels,
+            seconds: Seconds { setup: fill.setup_seconds, solve: fill.solve_seconds, ..Seconds::default() },
+        }
+    }
+
+    /// The report as pretty-printed JSON.
+    #[must_use]
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}"))
+    }
+}
+
+/// The SHA-256 of a file, as lowercase hex.
+///
+/// # Errors
+/// When the file cannot be read.
+pub fn sha256_file(path: &Path) -> io::Result<String> {
+    let mut file = File::open(path)?;
+    let mut hasher = Sha256::new();
+    let mut buf = vec![0u8; 1 << 16];
+    loop {
+        let n = file.read(&mut buf)?;
+        if n == 0 {
+            break;
+        }
+        hasher.update(&buf[..n]);
+    }
+    Ok(hex(&hasher.finalize()))
+}
+
+/// Lowercase hex of some bytes.
+#[must_use]
+pub fn hex(bytes: &[u8]) -> String {
+    use std::fmt::Write;
+    bytes.iter().fold(String::with_capacity(bytes.len() * 2), |mut s, b| {
+        let _ = write!(s, "{b:02x}");
+        s
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sha256_of_abc_matches_the_standard() {
+        // FIPS 180-2, Appendix B.1: SHA-256("abc").
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("abc.txt");
+        std::fs::write(&p, b"abc").unwrap();
+        assert_eq!(sha256_file(&p).unwrap(), "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
+    }
+}

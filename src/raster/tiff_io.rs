@@ -40,6 +40,8 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
         TiffColour::GrayA(_) => Layout::GrayAlpha,
         TiffColour::RGB(_) => Layout::Rgb,
         TiffColour::RGBA(_) => Layout::Rgba,
+        // The decoder reports gray with one extra sample (alpha) as two-band data.
+        TiffColour::Multiband { num_samples: 2, .. } => Layout::GrayAlpha,
         other => return Err(RasterError::Unsupported { path: path.to_owned(), what: format!("{other:?} pixels") }),
     };
     let icc_profile = dec.get_tag_u8_vec(Tag::IccProfile).ok();

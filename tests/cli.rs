@@ -1,0 +1,267 @@
+//! `reweave fill` from a user's side: exit codes, messages that name the file, nothing written on
+//! failure, inputs never changed.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+use reweave::mask::Mask;
+use reweave::raster::{self, Layout, Raster, SampleFormat};
+
+fn reweave(args: &[&std::ffi::OsStr]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_reweave")).args(args).output().expect("run reweave")
+}
+
+fn os<P: AsRef<std::ffi::OsStr> + ?Sized>(p: &P) -> &std::ffi::OsStr {
+    p.as_ref()
+}
+
+/// A temporary folder with a 32×24 RGB image and a mask with a small hole.
+struct Fixture {
+    dir: tempfile::TempDir,
+    image: PathBuf,
+    mask: PathBuf,
+}
+
+impl Fixture {
+    fn new() -> Self {
+        let dir = tempfile::tempdir().unwrap();
+        let mut r = Raster::new(32, 24, Layout::Rgb, SampleFormat::U8);
+        for (c, p) in r.planes.iter_mut().enumerate() {
+            for (i, v) in p.iter_mut().enumerate() {
+                *v = ((i * (c + 3)) % 256) as f32;
+            }
+        }
+        let image = dir.path().join("scan.png");
+        raster::save(&r, &image).unwrap();
+        let mask = dir.path().join("damage.png");
+        raster::save_mask(&Mask::from_fn(32, 24, |x, y| (10..14).contains(&x) && (5..9).contains(&y)), &mask).unwrap();
+        Self { dir, image, mask }
+    }
+
+    fn path(&self, name: &str) -> PathBuf {
+        self.dir.path().join(name)
+    }
+
+    /// Names of the files in the folder (to check that nothing else was written).
+    fn listing(&self) -> Vec<String> {
+        let mut v: Vec<String> = std::fs::read_dir(self.dir.path())
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .collect();
+        v.sort();
+        v
+    }
+}
+
+fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+/// Runs a fill that must fail: checks the exit code, that the message names `names`, that no
+/// new file appeared and that the inputs are unchanged.
+fn assert_fails(fx: &Fixture, args: &[&std::ffi::OsStr], code: i32, names: &str) {
+    let before = fx.listing();
+    let image_bytes = std::fs::read(&fx.image).unwrap();
+    let out = reweave(args);
+    let msg = stderr(&out);
+    assert_eq!(out.status.code(), Some(code), "exit code; stderr: {msg}");
+    assert!(msg.contains(names), "message should name '{names}': {msg}");
+    assert_eq!(msg.trim().lines().count(), 1, "one-line message: {msg}");
+    assert_eq!(fx.listing(), before, "no file may be written on failure");
+    assert_eq!(std::fs::read(&fx.image).unwrap(), image_bytes, "input changed");
+}
+
+#[test]
+fn fill_writes_result_and_report() {
+    let fx = Fixture::new();
+    let (out, rep) = (fx.path("repaired.png"), fx.path("repaired.json"));
+    let o =
+        reweave(&[os("fill"), os(&fx.image), os("--mask"), os(&fx.mask), os("-o"), os(&out), os("--report"), os(&rep)]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&rep).unwrap()).unwrap();
+    assert_eq!(json["unknowns"], 16);
+    assert_eq!(json["holes"], 1);
+    assert_eq!(json["largest_hole"], 16);
+    assert_eq!(json["width"], 32);
+    assert_eq!(json["height"], 24);
+    assert_eq!(json["channel_count"], 3);
+    assert_eq!(json["bit_depth"], 8);
+    assert_eq!(json["method"], "harmonic");
+    assert_eq!(json["channels"].as_array().unwrap().len(), 3);
+    assert!(json["caution"].as_str().unwrap().contains("estimates"));
+    assert_eq!(json["inputs"]["image"]["sha256"], reweave::report::sha256_file(&fx.image).unwrap());
+    assert_eq!(json["inputs"]["mask"]["sha256"], reweave::report::sha256_file(&fx.mask).unwrap());
+    for key in ["load", "setup", "solve", "save"] {
+        assert!(json["seconds"][key].as_f64().unwrap() >= 0.0);
+    }
+    assert!(!fx.listing().iter().any(|n| n.contains(".tmp")), "temporary files left: {:?}", fx.listing());
+}
+
+#[test]
+fn missing_input_is_reported() {
+    let fx = Fixture::new();
+    let missing = fx.path("nope.png");
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&missing), os("--mask"), os(&fx.mask), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "nope.png",
+    );
+}
+
+#[test]
+fn truncated_image_is_reported() {
+    let fx = Fixture::new();
+    let bytes = std::fs::read(&fx.image).unwrap();
+    let cut = fx.path("cut.png");
+    std::fs::write(&cut, &bytes[..bytes.len() / 2]).unwrap();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&cut), os("--mask"), os(&fx.mask), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "cut.png",
+    );
+}
+
+#[test]
+fn non_image_empty_file_and_folder_are_reported() {
+    let fx = Fixture::new();
+    let text = fx.path("notes.png");
+    std::fs::write(&text, "this is not an image").unwrap();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&text), os("--mask"), os(&fx.mask), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "notes.png",
+    );
+    let empty = fx.path("empty.png");
+    std::fs::write(&empty, b"").unwrap();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&empty), os("--mask"), os(&fx.mask), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "empty.png",
+    );
+    let folder = fx.path("folder.png");
+    std::fs::create_dir(&folder).unwrap();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&folder), os("--mask"), os(&fx.mask), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "folder.png",
+    );
+}
+
+#[test]
+fn mask_of_another_size_is_reported() {
+    let fx = Fixture::new();
+    let small = fx.path("small-mask.png");
+    raster::save_mask(&Mask::new(10, 10), &small).unwrap();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&fx.image), os("--mask"), os(&small), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "small-mask.png",
+    );
+}
+
+#[test]
+fn mask_covering_everything_is_reported() {
+    let fx = Fixture::new();
+    let all = fx.path("all.png");
+    raster::save_mask(&Mask::from_fn(32, 24, |_, _| true), &all).unwrap();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&fx.image), os("--mask"), os(&all), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "scan.png",
+    );
+}
+
+#[test]
+fn writing_over_the_input_needs_in_place() {
+    let fx = Fixture::new();
+    assert_fails(&fx, &[os("fill"), os(&fx.image), os("--mask"), os(&fx.mask), os("-o"), os(&fx.image)], 2, "scan.png");
+    let before = std::fs::read(&fx.image).unwrap();
+    let o = reweave(&[os("fill"), os(&fx.image), os("--mask"), os(&fx.mask), os("--in-place")]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_ne!(std::fs::read(&fx.image).unwrap(), before, "--in-place rewrote the input");
+}
+
+#[test]
+fn usage_errors_exit_with_2() {
+    let fx = Fixture::new();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&fx.image), os("--mask"), os(&fx.mask), os("-o"), os(&fx.path("o.bmp"))],
+        2,
+        "o.bmp",
+    );
+    assert_fails(&fx, &[os("fill"), os(&fx.image), os("-o"), os(&fx.path("o.png"))], 2, "--mask");
+    let o = reweave(&[os("fill"), os(&fx.image), os("--bogus")]);
+    assert_eq!(o.status.code(), Some(2));
+}
+
+#[test]
+fn mask_from_alpha_needs_alpha() {
+    let fx = Fixture::new();
+    assert_fails(
+        &fx,
+        &[os("fill"), os(&fx.image), os("--mask-from-alpha"), os("-o"), os(&fx.path("o.png"))],
+        1,
+        "scan.png",
+    );
+}
+
+#[test]
+fn mask_from_alpha_fills_transparent_pixels() {
+    let fx = Fixture::new();
+    let mut r = Raster::new(16, 16, Layout::Rgba, SampleFormat::U8);
+    for (c, p) in r.planes.iter_mut().enumerate() {
+        for (i, v) in p.iter_mut().enumerate() {
+            *v = if c == 3 { if i == 5 * 16 + 5 { 0.0 } else { 255.0 } } else { 100.0 };
+        }
+    }
+    r.planes[0][5 * 16 + 5] = 0.0;
+    let input = fx.path("logo.png");
+    raster::save(&r, &input).unwrap();
+    let out = fx.path("logo-filled.png");
+    let o = reweave(&[os("fill"), os(&input), os("--mask-from-alpha"), os("-o"), os(&out)]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let filled = raster::load(&out).unwrap();
+    let i = 5 * 16 + 5;
+    assert_eq!((filled.planes[0][i], filled.planes[3][i]), (100.0, 255.0), "colour and alpha filled from neighbours");
+}
+
+#[test]
+fn empty_mask_copies_the_image_through() {
+    let fx = Fixture::new();
+    let none = fx.path("none.png");
+    raster::save_mask(&Mask::new(32, 24), &none).unwrap();
+    let out = fx.path("copy.png");
+    let o = reweave(&[os("fill"), os(&fx.image), os("--mask"), os(&none), os("-o"), os(&out)]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(stderr(&o).contains("no pixel"), "says so: {}", stderr(&o));
+    assert_eq!(std::fs::read(&out).unwrap(), std::fs::read(&fx.image).unwrap());
+}
+
+#[test]
+fn unwritable_output_folder_is_reported() {
+    let fx = Fixture::new();
+    let out = fx.path("no-such-folder").join("o.png");
+    assert_fails(&fx, &[os("fill"), os(&fx.image), os("--mask"), os(&fx.mask), os("-o"), os(&out)], 1, "o.png");
+}
+
+#[test]
+fn help_explains_every_option_with_an_example() {
+    let o = reweave(&[os("fill"), os("--help")]);
+    assert!(o.status.success());
+    let text = String::from_utf8_lossy(&o.stdout);
+    for flag in ["--mask", "--mask-from-alpha", "--output", "--in-place", "--report", "--tolerance", "Examples:"] {
+        assert!(text.contains(flag), "help lacks {flag}");
+    }
+    let o = reweave(&[os("--help")]);
+    assert!(o.status.success());
+    assert!(String::from_utf8_lossy(&o.stdout).contains("reweave fill"));
+    let _ = Path::new("");
+}

@@ -1,0 +1,35 @@
+//! Helpers shared by the integration tests.
+
+#![allow(dead_code)] // not every test module uses every helper
+
+use reweave::fill::{FillParams, FillReport, Solver, Start};
+use reweave::mask::Mask;
+
+/// Fills one plane whose known pixels hold `f(x, y)`; masked pixels start as `start_value`.
+pub fn fill_plane(
+    w: usize,
+    h: usize,
+    mask: &Mask,
+    f: impl Fn(f64, f64) -> f64,
+    tolerance: f64,
+) -> (Vec<f32>, FillReport) {
+    let mut plane: Vec<f32> =
+        (0..w * h).map(|i| if mask.bits()[i] { 12345.0 } else { f((i % w) as f64, (i / w) as f64) as f32 }).collect();
+    let params = FillParams { tolerance, ..FillParams::default() };
+    let solver = Solver::new(mask).expect("mask leaves known pixels");
+    let report =
+        solver.solve(&mut [&mut plane[..]], &params, Start::FullMultigrid, &mut |_| true).expect("fill converges");
+    (plane, report)
+}
+
+/// Geometric mean of the per-cycle residual reduction, leaving out the start.
+pub fn mean_factor(history: &[f64]) -> f64 {
+    assert!(history.len() >= 3, "need at least two cycles to measure a factor: {history:?}");
+    let cycles = (history.len() - 2) as f64;
+    (history[history.len() - 1] / history[1]).powf(1.0 / cycles)
+}
+
+/// Maximum of |a − b| over the masked pixels.
+pub fn max_diff_in_mask(mask: &Mask, a: &[f32], b: impl Fn(usize) -> f64) -> f64 {
+    mask.bits().iter().enumerate().filter(|(_, m)| **m).map(|(i, _)| (f64::from(a[i]) - b(i)).abs()).fold(0.0, f64::max)
+}

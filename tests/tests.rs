@@ -1,0 +1,14 @@
+//! Integration tests, one module per capability a user relies on. They compile into one binary.
+//! Every check against the outside world names its source beside it.
+
+mod common;
+
+mod cli;
+mod convergence;
+mod direct_solver;
+mod exact_harmonic;
+mod exact_rationals;
+mod maximum_principle;
+mod random_walk;
+mod round_trip;
+mod samples;

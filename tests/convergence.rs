@@ -56,9 +56,7 @@ fn every_mask_family_converges_fast() {
 fn gauss_seidel(n: usize) -> (usize, f64) {
     let w = n + 2;
     let mut u = vec![0f64; w * w];
-    for x in 0..w {
-        u[x] = 1.0;
-    }
+    u[..w].fill(1.0);
     let residual = |u: &[f64]| -> f64 {
         let mut s = 0.0;
         for y in 1..=n {

@@ -62,8 +62,9 @@ fn exact_solution(n: usize) -> Vec<Q> {
         for r in 0..m {
             if r != col && a[r][col] != zero {
                 let f = a[r][col].div(a[col][col]);
-                for c in col..=m {
-                    a[r][c] = a[r][c].sub(f.mul(a[col][c]));
+                let pivot_row = a[col].clone();
+                for (dst, src) in a[r][col..=m].iter_mut().zip(&pivot_row[col..=m]) {
+                    *dst = dst.sub(f.mul(*src));
                 }
             }
         }

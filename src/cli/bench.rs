@@ -34,6 +34,9 @@ pub struct BenchArgs {
     /// Worker threads (0: all cores).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
+    /// Gauss-Seidel sweeps before and after each coarse-grid correction, as PRE,POST.
+    #[arg(long, value_name = "PRE,POST", default_value = "2,2")]
+    pub smooth: String,
     /// Seed of the generated masks and images.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -66,7 +69,17 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
     }
     let sizes = if args.size.is_empty() { vec![1024, 2048, 4096] } else { args.size.clone() };
     let cases = if args.case.is_empty() { MaskFamily::ALL.to_vec() } else { args.case.clone() };
-    let params = FillParams { tolerance: args.tolerance, threads: args.threads, ..FillParams::default() };
+    let smooth: Vec<usize> = args.smooth.split(',').filter_map(|v| v.trim().parse().ok()).collect();
+    let [pre_smooth, post_smooth] = smooth[..] else {
+        return Err(UsageError(format!("--smooth takes two counts such as 2,1 (got '{}')", args.smooth)).into());
+    };
+    let params = FillParams {
+        tolerance: args.tolerance,
+        threads: args.threads,
+        pre_smooth,
+        post_smooth,
+        ..FillParams::default()
+    };
     for &n in &sizes {
         for &case in &cases {
             let mask = case.mask(n, args.seed);

@@ -54,7 +54,8 @@ pub(crate) struct Level {
     pub colours: Vec<Range<usize>>,
     /// Neighbour indices, `k` per point; unused slots point at the ghost.
     pub nbr: Vec<u32>,
-    /// Off-diagonal operator entries matching `nbr` (zero for the ghost).
+    /// Off-diagonal operator entries matching `nbr` (zero for the ghost). Empty on level 0, whose
+    /// entries are all −1 (see [`Level::coef_at`]).
     pub coef: Vec<f32>,
     pub diag: Vec<f64>,
     pub inv_diag: Vec<f64>,
@@ -66,6 +67,17 @@ pub(crate) struct Level {
     /// (empty on level 0; unused slots point at the fine ghost).
     pub children: Vec<u32>,
     pub cweights: Vec<f32>,
+}
+
+impl Level {
+    /// The off-diagonal entry in stencil slot `t` of point `i` (zero for an unused slot).
+    pub(crate) fn coef_at(&self, i: usize, t: usize) -> f32 {
+        if self.k == K_FINE {
+            if self.nbr[i * K_FINE + t] as usize == self.n { 0.0 } else { -1.0 }
+        } else {
+            self.coef[i * self.k + t]
+        }
+    }
 }
 
 /// How the coarsest level is solved.
@@ -161,6 +173,48 @@ impl Hierarchy {
     }
 }
 
+/// Finds a level's point index from its grid position. Dense levels use a lookup table over the
+/// grid; sparse ones (few unknowns in a large image) a sorted list per row, so the memory and time
+/// of building a level follow its points, not the pixels.
+enum PosIndex {
+    Dense { w: usize, table: Vec<u32> },
+    Rows { row_start: Vec<u32>, xs: Vec<u32>, ids: Vec<u32> },
+}
+
+impl PosIndex {
+    fn new(w: usize, h: usize, pos: &[u32]) -> Self {
+        if pos.len() * 16 >= w * h {
+            let mut table = vec![u32::MAX; w * h];
+            for (i, &p) in pos.iter().enumerate() {
+                table[p as usize] = to_u32(i);
+            }
+            return Self::Dense { w, table };
+        }
+        let mut order: Vec<u32> = (0..to_u32(pos.len())).collect();
+        order.sort_unstable_by_key(|&i| pos[i as usize]);
+        let mut row_start = vec![0u32; h + 1];
+        for &p in pos {
+            row_start[p as usize / w + 1] += 1;
+        }
+        for y in 0..h {
+            row_start[y + 1] += row_start[y];
+        }
+        let xs = order.iter().map(|&i| to_u32(pos[i as usize] as usize % w)).collect();
+        Self::Rows { row_start, xs, ids: order }
+    }
+
+    /// The index of the point at `(x, y)`, if there is one (the caller keeps `(x, y)` in the grid).
+    fn get(&self, x: usize, y: usize) -> Option<u32> {
+        match self {
+            Self::Dense { w, table } => Some(table[y * w + x]).filter(|&i| i != u32::MAX),
+            Self::Rows { row_start, xs, ids, .. } => {
+                let (a, b) = (row_start[y] as usize, row_start[y + 1] as usize);
+                xs[a..b].binary_search(&to_u32(x)).ok().map(|k| ids[a + k])
+            }
+        }
+    }
+}
+
 fn to_u32(i: usize) -> u32 {
     u32::try_from(i).expect("index fits in u32 (image size is limited on load)")
 }
@@ -183,37 +237,26 @@ fn fine_level(mask: &Mask) -> Level {
         colours.push(start..pos.len());
     }
     let n = pos.len();
-    let mut index = vec![u32::MAX; w * h];
-    for (i, &p) in pos.iter().enumerate() {
-        index[p as usize] = to_u32(i);
-    }
+    let index = PosIndex::new(w, h, &pos);
     let ghost = to_u32(n);
     let mut nbr = vec![ghost; n * K_FINE];
-    let mut coef = vec![0f32; n * K_FINE];
     let mut diag = vec![0f64; n];
-    nbr.par_chunks_mut(K_FINE).zip(coef.par_chunks_mut(K_FINE)).zip(diag.par_iter_mut()).zip(pos.par_iter()).for_each(
-        |(((nb, co), d), &p)| {
-            let p = p as usize;
-            let (x, y) = (p % w, p / w);
-            let mut deg = 0u32;
-            let candidates = [
-                (x > 0).then(|| p - 1),
-                (x + 1 < w).then(|| p + 1),
-                (y > 0).then(|| p - w),
-                (y + 1 < h).then(|| p + w),
-            ];
-            for (slot, q) in candidates.into_iter().enumerate() {
-                if let Some(q) = q {
-                    deg += 1;
-                    if bits[q] {
-                        nb[slot] = index[q];
-                        co[slot] = -1.0;
-                    }
+    nbr.par_chunks_mut(K_FINE).zip(diag.par_iter_mut()).zip(pos.par_iter()).for_each(|((nb, d), &p)| {
+        let p = p as usize;
+        let (x, y) = (p % w, p / w);
+        let mut deg = 0u32;
+        let candidates =
+            [(x > 0).then(|| p - 1), (x + 1 < w).then(|| p + 1), (y > 0).then(|| p - w), (y + 1 < h).then(|| p + w)];
+        for (slot, q) in candidates.into_iter().enumerate() {
+            if let Some(q) = q {
+                deg += 1;
+                if bits[q] {
+                    nb[slot] = index.get(q % w, q / w).unwrap_or(ghost);
                 }
             }
-            *d = f64::from(deg);
-        },
-    );
+        }
+        *d = f64::from(deg);
+    });
     let inv_diag = diag.iter().map(|&d| if d > 0.0 { 1.0 / d } else { 0.0 }).collect();
     Level {
         w,
@@ -223,7 +266,7 @@ fn fine_level(mask: &Mask) -> Level {
         pos,
         colours,
         nbr,
-        coef,
+        coef: Vec::new(),
         diag,
         inv_diag,
         parents: Vec::new(),
@@ -249,7 +292,7 @@ fn coupling(level: &Level, i: usize, dx: isize, dy: isize) -> f64 {
         let s = ((dy + 1) * 3 + (dx + 1)) as usize;
         if s > 4 { s - 1 } else { s }
     };
-    f64::from(level.coef[i * level.k + slot])
+    f64::from(level.coef_at(i, slot))
 }
 
 /// Builds the next coarser level of `fine`, and the interpolation rows of `fine` to it.
@@ -264,10 +307,7 @@ fn coupling(level: &Level, i: usize, dx: isize, dy: isize) -> f64 {
 fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
     let (wf, hf) = (fine.w, fine.h);
     let (wc, hc) = (wf.div_ceil(2), hf.div_ceil(2));
-    let mut findex = vec![u32::MAX; wf * hf];
-    for (i, &p) in fine.pos.iter().enumerate() {
-        findex[p as usize] = to_u32(i);
-    }
+    let findex = PosIndex::new(wf, hf, &fine.pos);
 
     // Coarse points: fine points with both coordinates even; ordered by 4 colours, then row-major.
     let mut keyed: Vec<(u8, u32)> = fine
@@ -294,13 +334,9 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
         start = end;
     }
     let pos: Vec<u32> = keyed.into_iter().map(|(_, p)| p).collect();
-    let mut cindex = vec![u32::MAX; wc * hc];
-    for (i, &p) in pos.iter().enumerate() {
-        cindex[p as usize] = to_u32(i);
-    }
-    let coarse_at = |xc: usize, yc: usize| -> Option<u32> {
-        (xc < wc && yc < hc).then(|| cindex[yc * wc + xc]).filter(|&c| c != u32::MAX)
-    };
+    let cindex = PosIndex::new(wc, hc, &pos);
+    let coarse_at =
+        |xc: usize, yc: usize| -> Option<u32> { if xc < wc && yc < hc { cindex.get(xc, yc) } else { None } };
 
     // Interpolation rows, first of the points on coarse lines (injection and edge points) ...
     let cghost = to_u32(nc);
@@ -365,10 +401,9 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
                         let slot = usize::from(dx > 0) + 2 * usize::from(dy > 0);
                         acc[slot] += share;
                     } else if gx < wf && gy < hf {
-                        let g = findex[gy * wf + gx];
-                        if g == u32::MAX {
+                        let Some(g) = findex.get(gx, gy) else {
                             continue;
-                        }
+                        };
                         let g = g as usize;
                         for t in 0..PARENTS {
                             let j = parents[g * PARENTS + t];
@@ -413,10 +448,9 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
                 if x >= wf || y >= hf {
                     continue;
                 }
-                let f = findex[y * wf + x];
-                if f == u32::MAX {
+                let Some(f) = findex.get(x, y) else {
                     continue;
-                }
+                };
                 let fi = f as usize;
                 let me = to_u32(ic);
                 if let Some(t) = (0..PARENTS).find(|&t| parents[fi * PARENTS + t] == me) {
@@ -431,11 +465,18 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
 
     // Galerkin operator Pᵀ·A·P, one coarse row at a time (a gather, so it runs in parallel).
     let kf = fine.k;
+    let cxy: Vec<(i32, i32)> = pos
+        .iter()
+        .map(|&p| {
+            let p = p as usize;
+            #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap)] // grid sides fit in i32
+            ((p % wc) as i32, (p / wc) as i32)
+        })
+        .collect();
     let rows: Vec<([u32; K_COARSE], [f32; K_COARSE], f64)> = (0..nc)
         .into_par_iter()
         .map(|i| {
-            let pi = pos[i] as usize;
-            let (xi, yi) = ((pi % wc) as isize, (pi / wc) as isize);
+            let (xi, yi) = cxy[i];
             let mut acc = [0f64; 9];
             let mut col = [cghost; 9];
             for s in 0..CHILDREN {
@@ -445,15 +486,16 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
                 }
                 let pfi = f64::from(cweights[i * CHILDREN + s]);
                 let mut add = |g: usize, a: f64| {
-                    for t in 0..PARENTS {
-                        let j = parents[g * PARENTS + t];
+                    let pa = &parents[g * PARENTS..(g + 1) * PARENTS];
+                    let pw = &pweights[g * PARENTS..(g + 1) * PARENTS];
+                    for (&j, &w) in pa.iter().zip(pw) {
                         if j == cghost {
                             continue;
                         }
-                        let pj = pos[j as usize] as usize;
-                        let (xj, yj) = ((pj % wc) as isize, (pj / wc) as isize);
+                        let (xj, yj) = cxy[j as usize];
+                        #[allow(clippy::cast_sign_loss)] // |xj - xi|, |yj - yi| <= 1
                         let slot = ((yj - yi + 1) * 3 + (xj - xi + 1)) as usize;
-                        acc[slot] += pfi * a * f64::from(pweights[g * PARENTS + t]);
+                        acc[slot] += pfi * a * f64::from(w);
                         col[slot] = j;
                     }
                 };
@@ -461,7 +503,7 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
                 for t in 0..kf {
                     let g = fine.nbr[f * kf + t] as usize;
                     if g != fine.n {
-                        add(g, f64::from(fine.coef[f * kf + t]));
+                        add(g, f64::from(fine.coef_at(f, t)));
                     }
                 }
             }
@@ -516,7 +558,7 @@ fn dense_matrix(level: &Level) -> Vec<f64> {
         for t in 0..level.k {
             let j = level.nbr[i * level.k + t] as usize;
             if j != n {
-                a[i * n + j] += f64::from(level.coef[i * level.k + t]);
+                a[i * n + j] += f64::from(level.coef_at(i, t));
             }
         }
     }
@@ -566,10 +608,9 @@ mod tests {
                     if j == level.n {
                         continue;
                     }
-                    let back = (0..level.k)
-                        .find(|&s| level.nbr[j * level.k + s] as usize == i)
-                        .map(|s| level.coef[j * level.k + s]);
-                    let fwd = level.coef[i * level.k + t];
+                    let back =
+                        (0..level.k).find(|&s| level.nbr[j * level.k + s] as usize == i).map(|s| level.coef_at(j, s));
+                    let fwd = level.coef_at(i, t);
                     let back = back.expect("coarse operator has a symmetric pattern");
                     assert!((fwd - back).abs() <= 1e-6 * fwd.abs(), "A[i,j]={fwd} A[j,i]={back}");
                 }

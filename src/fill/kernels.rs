@@ -10,7 +10,7 @@ use std::ops::Range;
 
 use rayon::prelude::*;
 
-use super::hierarchy::{CHILDREN, Level, PARENTS};
+use super::hierarchy::{CHILDREN, K_FINE, Level, PARENTS};
 
 /// Points per parallel task.
 const CHUNK: usize = 2048;
@@ -46,7 +46,7 @@ pub(crate) fn sweep<const K: usize, const C: usize>(level: &Level, range: Range<
             s.copy_from_slice(&b[i * C..i * C + C]);
             for t in 0..K {
                 let j = nbr[i * K + t] as usize;
-                let a = f64::from(coef[i * K + t]);
+                let a = if K == K_FINE { -1.0 } else { f64::from(coef[i * K + t]) };
                 debug_assert!(j * C + C <= len);
                 for (c, sc) in s.iter_mut().enumerate() {
                     // SAFETY: `j` is a neighbour (or the ghost) and so never of this colour; no task
@@ -63,16 +63,27 @@ pub(crate) fn sweep<const K: usize, const C: usize>(level: &Level, range: Range<
     });
 }
 
-/// `r = b − A·u` on every point, and the squared residual norm per channel.
-pub(crate) fn residual<const K: usize, const C: usize>(level: &Level, u: &[f64], b: &[f64], r: &mut [f64]) -> [f64; C] {
+/// Number of partial sums [`residual`] needs for `n` points.
+pub(crate) fn partials_len(n: usize) -> usize {
+    n.div_ceil(CHUNK).max(1)
+}
+
+/// `r = b − A·u` on every point, and the squared residual norm per channel. `partial` is scratch
+/// of at least [`partials_len`] entries, so nothing is allocated.
+pub(crate) fn residual<const K: usize, const C: usize>(
+    level: &Level,
+    u: &[f64],
+    b: &[f64],
+    r: &mut [f64],
+    partial: &mut [[f64; C]],
+) -> [f64; C] {
     debug_assert_eq!(level.k, K);
     let n = level.n;
+    let chunks = n.div_ceil(CHUNK);
     let (nbr, coef, diag) = (&level.nbr[..], &level.coef[..], &level.diag[..]);
-    let partial: Vec<[f64; C]> = r[..n * C]
-        .par_chunks_mut(CHUNK * C)
-        .enumerate()
-        .map(|(ci, rc)| {
-            let mut sq = [0f64; C];
+    r[..n * C].par_chunks_mut(CHUNK * C).zip(partial[..chunks].par_iter_mut()).enumerate().for_each(
+        |(ci, (rc, sq))| {
+            *sq = [0f64; C];
             let lo = ci * CHUNK;
             for (off, ri) in rc.chunks_exact_mut(C).enumerate() {
                 let i = lo + off;
@@ -82,7 +93,7 @@ pub(crate) fn residual<const K: usize, const C: usize>(level: &Level, u: &[f64],
                 }
                 for t in 0..K {
                     let j = nbr[i * K + t] as usize;
-                    let a = f64::from(coef[i * K + t]);
+                    let a = if K == K_FINE { -1.0 } else { f64::from(coef[i * K + t]) };
                     for c in 0..C {
                         s[c] -= a * u[j * C + c];
                     }
@@ -92,11 +103,10 @@ pub(crate) fn residual<const K: usize, const C: usize>(level: &Level, u: &[f64],
                     sq[c] += s[c] * s[c];
                 }
             }
-            sq
-        })
-        .collect();
+        },
+    );
     r[n * C..(n + 1) * C].fill(0.0);
-    sum_partials(&partial)
+    sum_partials(&partial[..chunks])
 }
 
 /// Squared norm per channel of the first `n` points of `v`.

@@ -103,7 +103,7 @@ impl Default for FillParams {
             max_cycles: 100,
             cycle: Cycle::V,
             pre_smooth: 2,
-            post_smooth: 1,
+            post_smooth: 2,
             threads: 0,
         }
     }

@@ -21,10 +21,15 @@ struct LevelWork {
     r: Vec<f64>,
 }
 
+/// The cycle's state. All scratch is allocated here, once; the cycle itself allocates nothing.
 struct Cycler<'a, const C: usize> {
     h: &'a Hierarchy,
     params: &'a FillParams,
     work: Vec<LevelWork>,
+    /// Partial sums of the residual norm.
+    partial: Vec<[f64; C]>,
+    /// One channel of the coarsest level, for the dense solve.
+    coarse_x: Vec<f64>,
 }
 
 fn sweep<const C: usize>(level: &Level, colour: usize, u: &mut [f64], b: &[f64]) {
@@ -36,11 +41,11 @@ fn sweep<const C: usize>(level: &Level, colour: usize, u: &mut [f64], b: &[f64])
     }
 }
 
-fn residual<const C: usize>(level: &Level, u: &[f64], b: &[f64], r: &mut [f64]) -> [f64; C] {
+fn residual<const C: usize>(level: &Level, u: &[f64], b: &[f64], r: &mut [f64], partial: &mut [[f64; C]]) -> [f64; C] {
     if level.k == K_FINE {
-        kernels::residual::<{ K_FINE }, C>(level, u, b, r)
+        kernels::residual::<{ K_FINE }, C>(level, u, b, r, partial)
     } else {
-        kernels::residual::<{ super::hierarchy::K_COARSE }, C>(level, u, b, r)
+        kernels::residual::<{ super::hierarchy::K_COARSE }, C>(level, u, b, r, partial)
     }
 }
 
@@ -54,7 +59,9 @@ impl<'a, const C: usize> Cycler<'a, C> {
                 LevelWork { u: vec![0.0; len], b: vec![0.0; len], r: vec![0.0; len] }
             })
             .collect();
-        Self { h, params, work }
+        let partial = vec![[0f64; C]; kernels::partials_len(h.levels[0].n)];
+        let coarse_x = vec![0f64; h.levels.last().map_or(0, |l| l.n)];
+        Self { h, params, work, partial, coarse_x }
     }
 
     fn smooth(&mut self, l: usize, sweeps: usize, reverse: bool) {
@@ -70,16 +77,15 @@ impl<'a, const C: usize> Cycler<'a, C> {
     }
 
     fn coarsest(&mut self, l: usize) {
-        let level = &self.h.levels[l];
         match &self.h.coarsest {
             Coarsest::Dense(ch) => {
                 let LevelWork { u, b, .. } = &mut self.work[l];
-                let mut x = vec![0f64; level.n];
+                let x = &mut self.coarse_x;
                 for c in 0..C {
                     for (i, xi) in x.iter_mut().enumerate() {
                         *xi = b[i * C + c];
                     }
-                    ch.solve_in_place(&mut x);
+                    ch.solve_in_place(x);
                     for (i, xi) in x.iter().enumerate() {
                         u[i * C + c] = *xi;
                     }
@@ -98,7 +104,7 @@ impl<'a, const C: usize> Cycler<'a, C> {
     fn descend(&mut self, l: usize) {
         let (fine, coarse) = self.work.split_at_mut(l + 1);
         let (fw, cw) = (&mut fine[l], &mut coarse[0]);
-        residual::<C>(&self.h.levels[l], &fw.u, &fw.b, &mut fw.r);
+        residual::<C>(&self.h.levels[l], &fw.u, &fw.b, &mut fw.r, &mut self.partial);
         kernels::restrict::<C>(&self.h.levels[l + 1], &fw.r, &mut cw.b);
         cw.u.fill(0.0);
     }
@@ -241,7 +247,7 @@ fn solve_group<const C: usize>(
     let mut done = [false; C];
     loop {
         let LevelWork { u, b, r } = &mut cy.work[0];
-        let sq = residual::<C>(lv0, u, b, r);
+        let sq = residual::<C>(lv0, u, b, r, &mut cy.partial);
         let mut worst = 0f64;
         for c in 0..C {
             let rel = sq[c].sqrt() / bnorm[c];

@@ -140,24 +140,35 @@ pub fn paint_line(mask: &mut Mask, a: (f64, f64), b: (f64, f64), width: f64) {
     }
 }
 
-/// About 40 polylines (scaled to the image) 1–3 px wide covering about 2% of the pixels.
+/// 40 polylines 1–3 px wide covering about 2% of the pixels at any size (so each polyline's
+/// length grows with the image's area), bending at random.
 #[must_use]
 pub fn scratches(w: usize, h: usize, rng: &mut Rng) -> Mask {
     let mut mask = Mask::new(w, h);
     #[allow(clippy::cast_precision_loss)]
     let (wf, hf) = (w as f64, h as f64);
     let size = wf.min(hf);
+    // 40 lines of mean width 2 and length A/4000 each cover 2% of the area A.
+    let length = wf * hf / 4000.0;
     for _ in 0..40 {
         let width = 1.0 + 2.0 * rng.uniform();
         let mut p = (rng.uniform() * wf, rng.uniform() * hf);
         let mut heading = rng.uniform() * 2.0 * PI;
-        let segments = 4 + rng.below(4);
-        for _ in 0..segments {
+        let mut drawn = 0.0;
+        while drawn < length {
             heading += (rng.uniform() - 0.5) * 1.2;
-            let len = size * (0.1 + 0.15 * rng.uniform());
-            let q =
-                ((p.0 + len * heading.cos()).clamp(0.0, wf - 1.0), (p.1 + len * heading.sin()).clamp(0.0, hf - 1.0));
+            let len = (size * (0.1 + 0.1 * rng.uniform())).min(length - drawn).max(1.0);
+            let mut q = (p.0 + len * heading.cos(), p.1 + len * heading.sin());
+            if q.0 < 0.0 || q.1 < 0.0 || q.0 > wf - 1.0 || q.1 > hf - 1.0 {
+                // Turn back into the image instead of running along its edge.
+                heading += PI;
+                q = (
+                    (p.0 + len * heading.cos()).clamp(0.0, wf - 1.0),
+                    (p.1 + len * heading.sin()).clamp(0.0, hf - 1.0),
+                );
+            }
             paint_line(&mut mask, p, q, width);
+            drawn += len;
             p = q;
         }
     }

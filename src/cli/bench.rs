@@ -37,6 +37,10 @@ pub struct BenchArgs {
     /// Gauss-Seidel sweeps before and after each coarse-grid correction, as PRE,POST.
     #[arg(long, value_name = "PRE,POST", default_value = "2,2")]
     pub smooth: String,
+    /// Also write each case's mask (PNG) and gray image (32-bit float TIFF) into this folder, for
+    /// comparing with other solvers (scripts/amg-compare.py).
+    #[arg(long, value_name = "DIR")]
+    pub save_case: Option<std::path::PathBuf>,
     /// Seed of the generated masks and images.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -85,6 +89,14 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
             let mask = case.mask(n, args.seed);
             let originals: Vec<Vec<f32>> =
                 (0..args.channels).map(|c| smooth_plane(n, n, args.seed + c as u64)).collect();
+            if let Some(dir) = &args.save_case {
+                std::fs::create_dir_all(dir)?;
+                let stem = format!("{}-{n}", case.name());
+                crate::raster::save_mask(&mask, &dir.join(format!("{stem}-mask.png")))?;
+                let mut r = crate::raster::Raster::new(n, n, crate::raster::Layout::Gray, crate::raster::SampleFormat::F32);
+                r.planes[0].clone_from(&originals[0]);
+                crate::raster::save(&r, &dir.join(format!("{stem}.tif")))?;
+            }
             let mut best: Option<(f64, f64, crate::fill::FillReport, usize, u64)> = None;
             for _ in 0..args.repeat.max(1) {
                 let mut planes = originals.clone();

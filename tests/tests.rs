@@ -15,3 +15,4 @@ mod maximum_principle;
 mod random_walk;
 mod round_trip;
 mod samples;
+mod solver_api;

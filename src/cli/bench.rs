@@ -93,7 +93,8 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
                 std::fs::create_dir_all(dir)?;
                 let stem = format!("{}-{n}", case.name());
                 crate::raster::save_mask(&mask, &dir.join(format!("{stem}-mask.png")))?;
-                let mut r = crate::raster::Raster::new(n, n, crate::raster::Layout::Gray, crate::raster::SampleFormat::F32);
+                let mut r =
+                    crate::raster::Raster::new(n, n, crate::raster::Layout::Gray, crate::raster::SampleFormat::F32);
                 r.planes[0].clone_from(&originals[0]);
                 crate::raster::save(&r, &dir.join(format!("{stem}.tif")))?;
             }

@@ -1,0 +1,110 @@
+//! The solver's contract for the programs built on it: deterministic results, warm starts after a
+//! mask edit, cancelling, and an honest error when it cannot converge.
+
+use reweave::fill::{FillError, FillParams, Solver, Start};
+use reweave::mask::Mask;
+use reweave::synth::{MaskFamily, smooth_plane};
+
+#[test]
+fn results_do_not_depend_on_the_thread_count() {
+    let n = 300;
+    let mask = MaskFamily::Dropout.mask(n, 2);
+    let solver = Solver::new(&mask).unwrap();
+    let mut outputs = Vec::new();
+    for threads in [1, 2, 3] {
+        let mut plane = smooth_plane(n, n, 4);
+        let params = FillParams { threads, ..FillParams::default() };
+        solver.solve(&mut [&mut plane[..]], &params, Start::FullMultigrid, &mut |_| true).unwrap();
+        outputs.push(plane);
+    }
+    for o in &outputs[1..] {
+        assert!(o.iter().zip(&outputs[0]).all(|(a, b)| a.to_bits() == b.to_bits()), "bitwise identical");
+    }
+}
+
+#[test]
+fn warm_start_after_a_small_edit_needs_fewer_cycles() {
+    let n = 256;
+    let mask = MaskFamily::Blob.mask(n, 8);
+    let mut plane = smooth_plane(n, n, 1);
+    let params = FillParams { tolerance: 1e-8, ..FillParams::default() };
+    Solver::new(&mask).unwrap().solve(&mut [&mut plane[..]], &params, Start::FullMultigrid, &mut |_| true).unwrap();
+    // A stroke adds a few pixels next to the big hole.
+    let mut edited = mask.clone();
+    for x in 40..60 {
+        edited.set(x, 128, true);
+    }
+    let solver = Solver::new(&edited).unwrap();
+    let mut cold = plane.clone();
+    let cold_report = solver.solve(&mut [&mut cold[..]], &params, Start::FullMultigrid, &mut |_| true).unwrap();
+    let mut warm = plane.clone();
+    let warm_report = solver.solve(&mut [&mut warm[..]], &params, Start::Warm, &mut |_| true).unwrap();
+    assert!(
+        warm_report.channels[0].cycles < cold_report.channels[0].cycles,
+        "warm {} vs cold {}",
+        warm_report.channels[0].cycles,
+        cold_report.channels[0].cycles
+    );
+    let diff = cold.iter().zip(&warm).map(|(a, b)| (a - b).abs()).fold(0f32, f32::max);
+    assert!(diff < 1e-4, "warm and cold starts agree: {diff}");
+}
+
+#[test]
+fn cancelling_leaves_the_planes_unchanged() {
+    let n = 128;
+    let mask = MaskFamily::Frame.mask(n, 1);
+    let original = smooth_plane(n, n, 2);
+    let mut plane = original.clone();
+    let solver = Solver::new(&mask).unwrap();
+    let mut calls = 0;
+    let result = solver.solve(&mut [&mut plane[..]], &FillParams::default(), Start::FullMultigrid, &mut |p| {
+        calls += 1;
+        assert!(p.residual > 0.0 && p.cycle <= p.max_cycles);
+        false
+    });
+    assert_eq!(result.unwrap_err(), FillError::Cancelled);
+    assert_eq!(calls, 1);
+    assert_eq!(plane, original);
+}
+
+#[test]
+fn too_few_cycles_is_an_error_with_the_residual() {
+    let n = 128;
+    let mask = MaskFamily::Frame.mask(n, 1);
+    let mut plane = smooth_plane(n, n, 2);
+    let params = FillParams { tolerance: 1e-12, max_cycles: 2, ..FillParams::default() };
+    match Solver::new(&mask).unwrap().solve(&mut [&mut plane[..]], &params, Start::FullMultigrid, &mut |_| true) {
+        Err(FillError::NoConvergence { residual, cycles }) => {
+            assert_eq!(cycles, 2);
+            assert!(residual > 1e-12 && residual < 1e-2, "residual {residual}");
+        }
+        other => panic!("expected NoConvergence, got {other:?}"),
+    }
+}
+
+#[test]
+fn a_mask_over_every_pixel_is_refused() {
+    assert_eq!(Solver::new(&Mask::from_fn(4, 3, |_, _| true)).unwrap_err(), FillError::NoKnownPixels);
+}
+
+#[test]
+fn five_channels_are_filled_in_two_passes() {
+    let n = 64;
+    let mask = MaskFamily::Blob.mask(n, 3);
+    let mut planes: Vec<Vec<f32>> = (0..5).map(|c| smooth_plane(n, n, c)).collect();
+    let expected: Vec<Vec<f32>> = planes
+        .iter()
+        .map(|p| {
+            let mut q = p.clone();
+            reweave::fill::fill(&mut [&mut q[..]], &mask, &FillParams::default()).unwrap();
+            q
+        })
+        .collect();
+    let mut views: Vec<&mut [f32]> = planes.iter_mut().map(Vec::as_mut_slice).collect();
+    let report = reweave::fill::fill(&mut views, &mask, &FillParams::default()).unwrap();
+    assert_eq!(report.channels.len(), 5);
+    for (got, want) in planes.iter().zip(&expected) {
+        let diff = got.iter().zip(want).map(|(a, b)| (a - b).abs()).fold(0f32, f32::max);
+        assert!(diff < 1e-5, "channel groups agree with single-channel fills: {diff}");
+    }
+}

@@ -9,7 +9,7 @@ use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
 use crate::fill::FillReport;
-use crate::mask::{HoleStats, Mask};
+use crate::mask::{Hole, HoleStats, Mask};
 use crate::raster::Raster;
 
 /// The caution written into every report.
@@ -84,11 +84,26 @@ pub struct Report {
     /// 4-connected components of the mask.
     pub holes: usize,
     pub largest_hole: usize,
+    /// Every hole (largest first), at most [`HOLE_LIST_MAX`]; `holes` is the total.
+    pub hole_list: Vec<Hole>,
+    /// The no-data value that marked pixels to fill (as given or as declared by the file).
+    pub nodata: Option<String>,
+    /// Pixels marked because they held the no-data value or were not finite numbers.
+    pub nodata_pixels: usize,
+    /// Holes left unfilled because they were larger than `--max-hole` (largest first, at most
+    /// [`HOLE_LIST_MAX`]), and their total pixel count.
+    pub skipped_holes: Vec<Hole>,
+    pub skipped_pixels: usize,
     pub method: String,
     pub tolerance: f64,
     pub channels: Vec<ChannelRecord>,
     pub seconds: Seconds,
+    /// Notes on metadata that could not be kept as it was.
+    pub notes: Vec<String>,
 }
+
+/// Most holes listed in a report.
+pub const HOLE_LIST_MAX: usize = 1000;
 
 impl Report {
     /// Assembles a report from the pieces of a finished fill.
@@ -126,6 +141,12 @@ impl Report {
             unknowns: mask.count(),
             holes: holes.holes,
             largest_hole: holes.largest,
+            hole_list: mask.holes().into_iter().take(HOLE_LIST_MAX).collect(),
+            nodata: None,
+            nodata_pixels: 0,
+            skipped_holes: Vec::new(),
+            skipped_pixels: 0,
+            notes: Vec::new(),
             method: fill.method.name().to_owned(),
             tolerance,
             channels,

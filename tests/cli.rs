@@ -197,9 +197,15 @@ fn usage_errors_exit_with_2() {
         2,
         "o.bmp",
     );
-    assert_fails(&fx, &[os("fill"), os(&fx.image), os("-o"), os(&fx.path("o.png"))], 2, "--mask");
     let o = reweave(&[os("fill"), os(&fx.image), os("--bogus")]);
     assert_eq!(o.status.code(), Some(2));
+}
+
+#[test]
+fn nothing_to_fill_is_reported() {
+    // No mask, no alpha option, and an 8-bit PNG declares no no-data value: nothing marks pixels.
+    let fx = Fixture::new();
+    assert_fails(&fx, &[os("fill"), os(&fx.image), os("-o"), os(&fx.path("o.png"))], 1, "--mask");
 }
 
 #[test]

@@ -11,6 +11,7 @@ mod convergence;
 mod direct_solver;
 mod exact_harmonic;
 mod exact_rationals;
+mod fidelity;
 mod maximum_principle;
 mod random_walk;
 mod round_trip;

@@ -33,6 +33,16 @@ pub struct HoleStats {
     pub largest: usize,
 }
 
+/// One hole: its bounding box and pixel count.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+pub struct Hole {
+    pub x: usize,
+    pub y: usize,
+    pub width: usize,
+    pub height: usize,
+    pub pixels: usize,
+}
+
 impl Mask {
     /// A mask with no pixel marked.
     #[must_use]
@@ -151,6 +161,46 @@ impl Mask {
         (labels, sizes)
     }
 
+    /// Every hole with its bounding box and pixel count, largest first (ties in row-major order of
+    /// their first pixel).
+    #[must_use]
+    pub fn holes(&self) -> Vec<Hole> {
+        let (labels, sizes) = self.label_holes();
+        let mut boxes: Vec<(usize, usize, usize, usize)> = vec![(usize::MAX, usize::MAX, 0, 0); sizes.len()];
+        for (p, &l) in labels.iter().enumerate() {
+            if l == 0 {
+                continue;
+            }
+            let (x, y) = (p % self.width, p / self.width);
+            let b = &mut boxes[l as usize - 1];
+            *b = (b.0.min(x), b.1.min(y), b.2.max(x), b.3.max(y));
+        }
+        let mut holes: Vec<Hole> = boxes
+            .iter()
+            .zip(&sizes)
+            .map(|(&(x0, y0, x1, y1), &pixels)| Hole { x: x0, y: y0, width: x1 - x0 + 1, height: y1 - y0 + 1, pixels })
+            .collect();
+        holes.sort_by_key(|h| std::cmp::Reverse(h.pixels));
+        holes
+    }
+
+    /// Unmarks every hole larger than `max_pixels`, returning the holes it left.
+    pub fn drop_holes_larger_than(&mut self, max_pixels: usize) -> Vec<Hole> {
+        let (labels, sizes) = self.label_holes();
+        let big: Vec<bool> = sizes.iter().map(|&s| s > max_pixels).collect();
+        if !big.iter().any(|&b| b) {
+            return Vec::new();
+        }
+        let mut dropped = Mask::new(self.width, self.height);
+        for (p, &l) in labels.iter().enumerate() {
+            if l != 0 && big[l as usize - 1] {
+                self.bits[p] = false;
+                dropped.bits[p] = true;
+            }
+        }
+        dropped.holes()
+    }
+
     /// Counts the holes and the size of the largest.
     #[must_use]
     pub fn hole_stats(&self) -> HoleStats {
@@ -170,6 +220,21 @@ mod tests {
         assert_eq!(m.hole_stats(), HoleStats { holes: 2, largest: 1 });
         let m = Mask::from_fn(4, 4, |x, y| y == 1 || (x == 3 && y == 2));
         assert_eq!(m.hole_stats(), HoleStats { holes: 1, largest: 5 });
+    }
+
+    #[test]
+    fn holes_have_boxes_and_large_ones_can_be_left() {
+        let mut m = Mask::from_fn(10, 8, |x, y| ((1..4).contains(&x) && (2..4).contains(&y)) || (x == 8 && y == 7));
+        assert_eq!(
+            m.holes(),
+            vec![
+                Hole { x: 1, y: 2, width: 3, height: 2, pixels: 6 },
+                Hole { x: 8, y: 7, width: 1, height: 1, pixels: 1 }
+            ]
+        );
+        let left = m.drop_holes_larger_than(5);
+        assert_eq!(left.len(), 1);
+        assert_eq!(m.count(), 1);
     }
 
     #[test]

@@ -1,11 +1,10 @@
-//! PNG and JPEG through the `image` crate.
+//! JPEG through the `image` crate, and the sample (de)interleaving shared by all codecs.
 
 use std::fs::File;
 use std::io::{BufReader, BufWriter, Write};
 use std::path::Path;
 
 use image::codecs::jpeg::JpegEncoder;
-use image::codecs::png::{CompressionType, FilterType, PngEncoder};
 use image::{DynamicImage, ExtendedColorType, ImageDecoder, ImageEncoder, ImageReader};
 
 use super::{FileFormat, Layout, Limits, Metadata, Raster, RasterError, SampleFormat};
@@ -68,7 +67,7 @@ pub(super) fn load(path: &Path, format: FileFormat, limits: Limits) -> Result<Ra
         sample_format,
         layout,
         file_format: format,
-        metadata: Metadata { icc_profile },
+        metadata: Metadata { icc_profile, ..Metadata::default() },
     })
 }
 
@@ -105,11 +104,6 @@ fn u8_bytes(r: &Raster) -> Vec<u8> {
     interleave(r, |v| v as u8)
 }
 
-#[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)] // values are rounded and clamped first
-fn u16_native_bytes(r: &Raster) -> Vec<u8> {
-    interleave(r, |v| v as u16).into_iter().flat_map(u16::to_ne_bytes).collect()
-}
-
 pub(super) fn save(r: &Raster, format: FileFormat, w: &mut BufWriter<File>) -> Result<(), String> {
     let (width, height) =
         (u32::try_from(r.width).map_err(|e| e.to_string())?, u32::try_from(r.height).map_err(|e| e.to_string())?);
@@ -124,23 +118,14 @@ pub(super) fn save(r: &Raster, format: FileFormat, w: &mut BufWriter<File>) -> R
         (Layout::Rgba, SampleFormat::U16) => ExtendedColorType::Rgba16,
         (layout, fmt) => return Err(format!("{} cannot store {} {fmt} samples", format.name(), layout.name())),
     };
-    let bytes = if r.sample_format == SampleFormat::U8 { u8_bytes(r) } else { u16_native_bytes(r) };
-    match format {
-        FileFormat::Png => {
-            let mut enc = PngEncoder::new_with_quality(&mut *w, CompressionType::Default, FilterType::Adaptive);
-            if let Some(icc) = &r.metadata.icc_profile {
-                enc.set_icc_profile(icc.clone()).map_err(|e| e.to_string())?;
-            }
-            enc.write_image(&bytes, width, height, colour).map_err(|e| e.to_string())?;
-        }
-        FileFormat::Jpeg => {
-            let mut enc = JpegEncoder::new_with_quality(&mut *w, JPEG_QUALITY);
-            if let Some(icc) = &r.metadata.icc_profile {
-                enc.set_icc_profile(icc.clone()).map_err(|e| e.to_string())?;
-            }
-            enc.write_image(&bytes, width, height, colour).map_err(|e| e.to_string())?;
-        }
-        FileFormat::Tiff => return Err("internal error: TIFF is written by the TIFF module".to_owned()),
+    if format != FileFormat::Jpeg || r.sample_format != SampleFormat::U8 {
+        return Err(format!("internal error: {} is not written by the JPEG module", format.name()));
     }
+    let bytes = u8_bytes(r);
+    let mut enc = JpegEncoder::new_with_quality(&mut *w, JPEG_QUALITY);
+    if let Some(icc) = &r.metadata.icc_profile {
+        enc.set_icc_profile(icc.clone()).map_err(|e| e.to_string())?;
+    }
+    enc.write_image(&bytes, width, height, colour).map_err(|e| e.to_string())?;
     w.flush().map_err(|e| e.to_string())
 }

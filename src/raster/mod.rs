@@ -3,12 +3,14 @@
 //! A [`Raster`] holds one `f32` plane per channel (every supported sample type — 8/16-bit
 //! unsigned, 16-bit signed, 32-bit float — is exact in `f32`), plus what is needed to write it
 //! back the way it came: the sample format, the channel layout, the file format and metadata to
-//! carry through (an ICC profile). This is the only module that touches codecs: PNG and JPEG go
-//! through the `image` crate, TIFF through the `tiff` crate (so signed and float samples and, later,
-//! GeoTIFF tags are reachable).
+//! carry through (ICC profile, GeoTIFF and other TIFF tags, PNG ancillary chunks, the no-data
+//! value). This is the only module that touches codecs: PNG through the `png` crate, TIFF through
+//! the `tiff` crate, JPEG through the `image` crate.
 
 mod codec;
+mod png_io;
 mod tiff_io;
+mod tiff_tags;
 
 use std::fmt;
 use std::fs::File;
@@ -193,6 +195,75 @@ impl FileFormat {
 pub struct Metadata {
     /// The embedded ICC colour profile, byte for byte.
     pub icc_profile: Option<Vec<u8>>,
+    /// The no-data value the file declares (TIFF tag 42113, GDAL_NODATA), as written there.
+    pub nodata: Option<String>,
+    /// How a TIFF was stored, and the tags to carry through.
+    pub tiff: Option<TiffInfo>,
+    /// Ancillary PNG chunks to carry through, raw (type and data), in file order.
+    pub png_chunks: Vec<([u8; 4], Vec<u8>)>,
+    /// Things the reader noticed and the user should hear about (extra pages ignored, …).
+    pub warnings: Vec<String>,
+}
+
+/// A TIFF tag carried through verbatim: its field type, count and value bytes (little-endian,
+/// as the output is written).
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct RawTag {
+    pub tag: u16,
+    pub field_type: u16,
+    pub count: u64,
+    pub data: Vec<u8>,
+}
+
+impl RawTag {
+    /// A DOUBLE (type 12) tag.
+    #[must_use]
+    pub fn doubles(tag: u16, values: &[f64]) -> Self {
+        Self {
+            tag,
+            field_type: 12,
+            count: values.len() as u64,
+            data: values.iter().flat_map(|v| v.to_le_bytes()).collect(),
+        }
+    }
+
+    /// A SHORT (type 3) tag.
+    #[must_use]
+    pub fn shorts(tag: u16, values: &[u16]) -> Self {
+        Self {
+            tag,
+            field_type: 3,
+            count: values.len() as u64,
+            data: values.iter().flat_map(|v| v.to_le_bytes()).collect(),
+        }
+    }
+
+    /// An ASCII (type 2) tag, NUL-terminated as TIFF 6.0 §2 requires.
+    #[must_use]
+    pub fn ascii(tag: u16, text: &str) -> Self {
+        let mut data = text.as_bytes().to_vec();
+        data.push(0);
+        Self { tag, field_type: 2, count: data.len() as u64, data }
+    }
+}
+
+/// How a TIFF was stored.
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct TiffInfo {
+    /// Compression (tag 259): 1 none, 5 LZW, 8 or 32946 Deflate, 32773 PackBits.
+    pub compression: u16,
+    /// Predictor (tag 317): 1 none, 2 horizontal, 3 floating point.
+    pub predictor: u16,
+    pub big_endian: bool,
+    /// Georeferencing, resolution and descriptive tags, in ascending tag order.
+    pub tags: Vec<RawTag>,
+}
+
+impl TiffInfo {
+    #[must_use]
+    pub fn tag(&self, tag: u16) -> Option<&RawTag> {
+        self.tags.iter().find(|t| t.tag == tag)
+    }
 }
 
 /// An image: one `f32` plane per channel, row-major, and how it was stored.
@@ -319,7 +390,8 @@ pub fn load_with_limits(path: &Path, limits: Limits) -> Result<Raster, RasterErr
     let format = detect(path)?;
     match format {
         FileFormat::Tiff => tiff_io::load(path, limits),
-        FileFormat::Png | FileFormat::Jpeg => codec::load(path, format, limits),
+        FileFormat::Png => png_io::load(path, limits),
+        FileFormat::Jpeg => codec::load(path, format, limits),
     }
 }
 
@@ -352,13 +424,24 @@ fn detect(path: &Path) -> Result<FileFormat, RasterError> {
 /// # Errors
 /// See [`RasterError`].
 pub fn save(raster: &Raster, path: &Path) -> Result<(), RasterError> {
+    save_noting(raster, path).map(drop)
+}
+
+/// [`save`], returning notes about metadata that could not be kept as it was.
+///
+/// # Errors
+/// See [`RasterError`].
+pub fn save_noting(raster: &Raster, path: &Path) -> Result<Vec<String>, RasterError> {
     let format =
         FileFormat::from_extension(path).ok_or_else(|| RasterError::UnknownExtension { path: path.to_owned() })?;
     check_storable(raster, format, path)?;
+    let mut notes = Vec::new();
     write_atomic(path, |w| match format {
-        FileFormat::Tiff => tiff_io::save(raster, w),
-        FileFormat::Png | FileFormat::Jpeg => codec::save(raster, format, w),
-    })
+        FileFormat::Tiff => tiff_io::save(raster, w, &mut notes),
+        FileFormat::Png => png_io::save(raster, w),
+        FileFormat::Jpeg => codec::save(raster, format, w),
+    })?;
+    Ok(notes)
 }
 
 /// Refuses sample formats and layouts the target format cannot hold.

@@ -8,11 +8,13 @@ use std::path::Path;
 use tiff::ColorType as TiffColour;
 use tiff::decoder::{Decoder, DecodingResult};
 use tiff::encoder::colortype::{self, ColorType};
-use tiff::encoder::{TiffEncoder, TiffValue};
-use tiff::tags::{ExtraSamples, PhotometricInterpretation, SampleFormat as TiffSampleFormat, Tag, Type};
+use tiff::encoder::compression::DeflateLevel;
+use tiff::encoder::{Compression, TiffEncoder, TiffValue};
+use tiff::tags::{ExtraSamples, PhotometricInterpretation, Predictor, SampleFormat as TiffSampleFormat, Tag, Type};
 
 use super::codec::{deinterleave, interleave};
-use super::{FileFormat, Layout, Limits, Metadata, Raster, RasterError, SampleFormat};
+use super::tiff_tags::{self, GDAL_NODATA, PRESERVED};
+use super::{FileFormat, Layout, Limits, Metadata, Raster, RasterError, SampleFormat, TiffInfo};
 
 pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
     let decode_err = |e: tiff::TiffError| match e {
@@ -45,6 +47,8 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
         other => return Err(RasterError::Unsupported { path: path.to_owned(), what: format!("{other:?} pixels") }),
     };
     let icc_profile = dec.get_tag_u8_vec(Tag::IccProfile).ok();
+    let compression = dec.get_tag_u32(Tag::Compression).ok().and_then(|v| u16::try_from(v).ok()).unwrap_or(1);
+    let predictor = dec.get_tag_u32(Tag::Predictor).ok().and_then(|v| u16::try_from(v).ok()).unwrap_or(1);
     let (sample_format, samples) = match dec.read_image().map_err(decode_err)? {
         DecodingResult::U8(v) => (SampleFormat::U8, v.into_iter().map(f32::from).collect::<Vec<_>>()),
         DecodingResult::U16(v) => (SampleFormat::U16, v.into_iter().map(f32::from).collect()),
@@ -72,6 +76,24 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
             message: format!("expected {} samples, found {}", width * height * layout.channels(), samples.len()),
         });
     }
+    let mut metadata = Metadata { icc_profile, ..Metadata::default() };
+    match tiff_tags::read(path, PRESERVED) {
+        Ok(found) => {
+            if found.pages > 1 {
+                metadata.warnings.push(format!(
+                    "'{}' has {} pages; only the first was read and will be written",
+                    path.display(),
+                    found.pages
+                ));
+            }
+            metadata.nodata = found.tags.iter().find(|t| t.tag == GDAL_NODATA).map(tiff_tags::ascii);
+            metadata.tiff = Some(TiffInfo { compression, predictor, big_endian: found.big_endian, tags: found.tags });
+        }
+        Err(e) => {
+            metadata.warnings.push(format!("the tags of '{}' could not be read for copying ({e})", path.display()));
+            metadata.tiff = Some(TiffInfo { compression, predictor, ..TiffInfo::default() });
+        }
+    }
     Ok(Raster {
         width,
         height,
@@ -79,7 +101,7 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
         sample_format,
         layout,
         file_format: FileFormat::Tiff,
-        metadata: Metadata { icc_profile },
+        metadata,
     })
 }
 
@@ -94,11 +116,29 @@ macro_rules! gray_alpha {
             const BITS_PER_SAMPLE: &'static [u16] = &[$bits, $bits];
             const SAMPLE_FORMAT: &'static [TiffSampleFormat] = &[$fmt, $fmt];
             fn horizontal_predict(row: &[Self::Inner], result: &mut Vec<Self::Inner>) {
-                result.extend_from_slice(row);
+                // TIFF 6.0 §14: each sample minus the same sample of the previous pixel.
+                result.extend(row.iter().take(2).copied());
+                result.extend(row.iter().skip(2).zip(row).map(|(cur, prev)| predict_diff(*cur, *prev)));
             }
         }
     };
 }
+trait PredictDiff: Copy {
+    fn diff(self, prev: Self) -> Self;
+}
+macro_rules! int_diff {
+    ($($t:ty),*) => {$(impl PredictDiff for $t { fn diff(self, prev: Self) -> Self { self.wrapping_sub(prev) } })*};
+}
+int_diff!(u8, u16, i16);
+impl PredictDiff for f32 {
+    fn diff(self, _prev: Self) -> Self {
+        unreachable!("the tiff crate refuses a horizontal predictor for float samples")
+    }
+}
+fn predict_diff<T: PredictDiff>(cur: T, prev: T) -> T {
+    cur.diff(prev)
+}
+
 gray_alpha!(u8, 8, TiffSampleFormat::Uint);
 gray_alpha!(u16, 16, TiffSampleFormat::Uint);
 gray_alpha!(i16, 16, TiffSampleFormat::Int);
@@ -119,17 +159,58 @@ where
         // colour types already count the alpha sample in SamplesPerPixel.
         image.encoder().write_tag(Tag::ExtraSamples, &[ExtraSamples::UnassociatedAlpha.to_u16()][..])?;
     }
+    let dir = image.encoder();
     if let Some(icc) = &r.metadata.icc_profile {
-        let dir = image.encoder();
         let entry = dir.write_entry_bytes(Type::UNDEFINED, icc)?;
         dir.extend_from(&[(Tag::IccProfile, entry)].into_iter().collect());
     }
+    if let Some(info) = &r.metadata.tiff {
+        for t in &info.tags {
+            let Some(ty) = Type::from_u16(t.field_type) else { continue };
+            let entry = dir.write_entry_bytes(ty, &t.data)?;
+            dir.extend_from(&[(Tag::from_u16_exhaustive(t.tag), entry)].into_iter().collect());
+        }
+    }
+    let software = format!("reweave {}", env!("CARGO_PKG_VERSION"));
+    dir.write_tag(Tag::Software, software.as_str())?;
     image.write_data(data)
 }
 
+/// The compression and predictor to write: the input's where the `tiff` crate can write them.
+fn output_coding(r: &Raster, notes: &mut Vec<String>) -> (Compression, Predictor) {
+    let (compression, predictor) = r.metadata.tiff.as_ref().map_or((1, 1), |t| (t.compression, t.predictor));
+    let c = match compression {
+        1 => Compression::Uncompressed,
+        5 => Compression::Lzw,
+        8 | 32946 => Compression::Deflate(DeflateLevel::Balanced),
+        32773 => Compression::Packbits,
+        other => {
+            notes.push(format!(
+                "TIFF compression {other} cannot be written; the result is Deflate-compressed (lossless)"
+            ));
+            Compression::Deflate(DeflateLevel::Balanced)
+        }
+    };
+    let float = r.sample_format == SampleFormat::F32;
+    let p = match (predictor, float) {
+        (2, false) => Predictor::Horizontal,
+        (2 | 3, true) => {
+            notes.push(
+                "the floating-point TIFF was written without its predictor (not available in the TIFF writer); samples are unchanged"
+                    .to_owned(),
+            );
+            Predictor::None
+        }
+        _ => Predictor::None,
+    };
+    (c, p)
+}
+
 #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)] // samples are rounded and clamped first
-pub(super) fn save(r: &Raster, w: &mut BufWriter<File>) -> Result<(), String> {
-    let mut enc = TiffEncoder::new(w).map_err(|e| e.to_string())?;
+pub(super) fn save(r: &Raster, w: &mut BufWriter<File>, notes: &mut Vec<String>) -> Result<(), String> {
+    let (compression, predictor) = output_coding(r, notes);
+    let mut enc =
+        TiffEncoder::new(w).map_err(|e| e.to_string())?.with_compression(compression).with_predictor(predictor);
     let e = &mut enc;
     let result = match (r.layout, r.sample_format) {
         (Layout::Gray, SampleFormat::U8) => write::<colortype::Gray8>(e, r, &interleave(r, |v| v as u8)),

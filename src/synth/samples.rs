@@ -4,15 +4,16 @@
 //!   (8-bit RGB), with scratches, a fold line and dust, and `harbour-postcard-mask.png` marking them.
 //! - `starfield-frame.tif`: a 16-bit frame from the invented Kessel Ridge survey camera, with dead
 //!   and hot pixels and a dead column, and `starfield-badpix.png`, its bad-pixel map.
-//! - `island-elevation.tif`: a signed 16-bit elevation grid (metres) of the invented island of
-//!   Tarrow, with a void of −32768, and `island-void-mask.png` marking the void.
+//! - `island-elevation.tif`: a signed 16-bit GeoTIFF elevation grid (metres) of the invented island
+//!   of Tarrow, Deflate-compressed with a predictor, with a void of −32768 declared as no-data, and
+//!   `island-void-mask.png` marking the void.
 
 use std::f64::consts::PI;
 use std::path::{Path, PathBuf};
 
 use super::{Rng, paint_disk, paint_line};
 use crate::mask::Mask;
-use crate::raster::{self, Layout, Raster, RasterError, SampleFormat};
+use crate::raster::{self, FileFormat, Layout, Raster, RasterError, RawTag, SampleFormat, TiffInfo};
 
 /// Writes every sample and its mask into `dir` and returns the paths written.
 ///
@@ -203,5 +204,20 @@ pub fn island_elevation() -> (Raster, Mask) {
             img.planes[0][i] = -32768.0;
         }
     }
+    // Georeferencing (OGC GeoTIFF 1.1): WGS 84 longitude/latitude, pixel-is-area, 1/1200° pixels
+    // from a tiepoint in the open Atlantic where no real island is; no-data −32768 (GDAL_NODATA).
+    img.file_format = FileFormat::Tiff;
+    img.metadata.nodata = Some("-32768".to_owned());
+    img.metadata.tiff = Some(TiffInfo {
+        compression: 8,
+        predictor: 2,
+        big_endian: false,
+        tags: vec![
+            RawTag::doubles(33550, &[1.0 / 1200.0, 1.0 / 1200.0, 0.0]),
+            RawTag::doubles(33922, &[0.0, 0.0, 0.0, -31.5, 38.25, 0.0]),
+            RawTag::shorts(34735, &[1, 1, 0, 3, 1024, 0, 1, 2, 1025, 0, 1, 1, 2048, 0, 1, 4326]),
+            RawTag::ascii(42113, "-32768"),
+        ],
+    });
     (img, mask)
 }

@@ -16,7 +16,9 @@ pub(super) const PRESERVED: &[u16] = &[
     296,   // ResolutionUnit
     306,   // DateTime
     315,   // Artist
+    700,   // XMP packet
     33432, // Copyright
+    33723, // IPTC-NAA
     33550, // ModelPixelScale (GeoTIFF)
     33922, // ModelTiepoint (GeoTIFF)
     34264, // ModelTransformation (GeoTIFF)

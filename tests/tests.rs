@@ -6,6 +6,7 @@
 
 mod common;
 
+mod batch;
 mod cli;
 mod convergence;
 mod direct_solver;

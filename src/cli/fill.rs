@@ -1,16 +1,14 @@
 //! `reweave fill`: one image, one mask, one result.
 
-use std::path::{Path, PathBuf};
-use std::time::Instant;
+use std::path::PathBuf;
 
-use anyhow::{Context, Result, bail};
+use anyhow::Result;
 use clap::{Args, ValueEnum};
 
+use super::job::{Job, MaskFile, parse_nodata};
 use super::{UsageError, same_file};
-use crate::fill::{Cycle, FillError, FillMethod, FillParams, Solver, Start};
-use crate::mask::Mask;
-use crate::raster::{self, FileFormat, Raster, SampleFormat};
-use crate::report::{FileRecord, Inputs, Report};
+use crate::fill::{Cycle, FillMethod, FillParams};
+use crate::raster::{self, FileFormat};
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
 pub enum MethodArg {
@@ -113,15 +111,6 @@ struct Plan<'a> {
     nodata: Option<f64>,
 }
 
-/// Parses a no-data value: a number, or "nan" (any case), as GDAL writes them.
-pub(crate) fn parse_nodata(text: &str) -> Option<f64> {
-    let t = text.trim().trim_end_matches('\0').trim();
-    if t.eq_ignore_ascii_case("nan") || t.eq_ignore_ascii_case("-nan") {
-        return Some(f64::NAN);
-    }
-    t.parse::<f64>().ok()
-}
-
 fn plan(args: &FillArgs) -> Result<Plan<'_>> {
     let usage = |m: String| -> anyhow::Error { UsageError(m).into() };
     let output = match (&args.output, args.in_place) {
@@ -184,209 +173,36 @@ fn plan(args: &FillArgs) -> Result<Plan<'_>> {
     Ok(Plan { args, output, params, nodata })
 }
 
-/// Pixels to fill because a sample holds the no-data value or is not a finite number.
-fn missing_samples(image: &Raster, nodata: Option<f64>) -> Mask {
-    let n = image.width * image.height;
-    let mut bits = vec![false; n];
-    for plane in &image.planes {
-        for (b, &v) in bits.iter_mut().zip(plane) {
-            let hit = !v.is_finite() || nodata.is_some_and(|d| if d.is_nan() { v.is_nan() } else { f64::from(v) == d });
-            *b |= hit;
-        }
-    }
-    Mask::from_bits(image.width, image.height, bits)
-}
-
-/// Moves filled samples that would be stored as the no-data value one step off it, so the output
-/// holds no false no-data pixels. Returns how many were moved.
-fn keep_off_nodata(image: &mut Raster, mask: &Mask, nodata: f64) -> usize {
-    if nodata.is_nan() {
-        return 0; // a fill is never NaN
-    }
-    let fmt = image.sample_format;
-    let mut moved = 0;
-    for plane in &mut image.planes {
-        for (v, &m) in plane.iter_mut().zip(mask.bits()) {
-            if !m || f64::from(fmt.quantize(*v)) != nodata {
-                continue;
-            }
-            let q = fmt.quantize(*v);
-            *v = if fmt == SampleFormat::F32 {
-                let up = f32::from_bits(q.to_bits() + 1);
-                if up.is_finite() { up } else { f32::from_bits(q.to_bits() - 1) }
-            } else if fmt.quantize(q + 1.0) != q && (*v >= q || fmt.quantize(q - 1.0) == q) {
-                q + 1.0
-            } else {
-                q - 1.0
-            };
-            moved += 1;
-        }
-    }
-    moved
-}
-
 pub(super) fn run(args: &FillArgs) -> Result<()> {
     let plan = plan(args)?;
-    let Plan { args, output, params, nodata: given_nodata } = &plan;
+    let Plan { args, output, params, nodata } = &plan;
     let say = |s: String| {
         if !args.quiet {
             eprintln!("{s}");
         }
     };
-
-    let t_load = Instant::now();
-    let limits =
-        raster::Limits { max_pixels: args.max_megapixels.saturating_mul(1_000_000), ..raster::Limits::default() };
-    let mut image = raster::load_with_limits(&args.input, limits)?;
-    for w in &image.metadata.warnings {
-        say(format!("warning: {w}"));
-    }
-    let mut mask = match &args.mask {
-        Some(m) => raster::load_mask(m, image.width, image.height)?,
-        None => Mask::new(image.width, image.height),
+    let mask = match &args.mask {
+        Some(path) => Some(MaskFile::load(path)?),
+        None => None,
     };
-    if args.mask_from_alpha {
-        let Some(alpha) = image.transparent_mask() else {
-            bail!(
-                "'{}' has no alpha channel, so --mask-from-alpha marks nothing; give --mask instead",
-                args.input.display()
-            );
-        };
-        for (m, a) in mask.bits_mut().iter_mut().zip(alpha.bits()) {
-            *m |= *a;
-        }
-    }
-    // No-data: --nodata, else the value the file declares.
-    let (nodata, nodata_text) = match (*given_nodata, &image.metadata.nodata) {
-        (Some(v), _) => (Some(v), args.nodata.clone()),
-        (None, Some(declared)) => match parse_nodata(declared) {
-            Some(v) => (Some(v), Some(declared.clone())),
-            None => {
-                say(format!(
-                    "warning: '{}' declares no-data as '{declared}', which is not a number; ignored",
-                    args.input.display()
-                ));
-                (None, None)
-            }
+    let job = Job {
+        input: &args.input,
+        output,
+        mask: mask.as_ref(),
+        mask_from_alpha: args.mask_from_alpha,
+        nodata: nodata.map(|v| (v, args.nodata.clone().unwrap_or_default())),
+        max_hole: args.max_hole,
+        mask_out: args.mask_out.as_deref(),
+        report: args.report.as_deref(),
+        params,
+        limits: raster::Limits {
+            max_pixels: args.max_megapixels.saturating_mul(1_000_000),
+            ..raster::Limits::default()
         },
-        (None, None) => (None, None),
     };
-    let missing = missing_samples(&image, nodata);
-    let nodata_pixels = missing.count();
-    for (m, a) in mask.bits_mut().iter_mut().zip(missing.bits()) {
-        *m |= *a;
-    }
-    if args.mask.is_none() && !args.mask_from_alpha && nodata.is_none() && nodata_pixels == 0 {
-        bail!(
-            "nothing marks pixels to fill in '{}': give --mask MASK.png, --mask-from-alpha or --nodata VALUE",
-            args.input.display()
-        );
-    }
-    let skipped = match args.max_hole {
-        Some(limit) => mask.drop_holes_larger_than(limit),
-        None => Vec::new(),
-    };
-    if !skipped.is_empty() {
-        say(format!(
-            "leaving {} hole{} larger than {} pixels unfilled",
-            skipped.len(),
-            if skipped.len() == 1 { "" } else { "s" },
-            args.max_hole.unwrap_or(0)
-        ));
-    }
-    let load_seconds = t_load.elapsed().as_secs_f64();
-    let holes = mask.hole_stats();
-
-    let out_format = FileFormat::from_extension(output).unwrap_or(FileFormat::Png);
-    let solver = Solver::new(&mask).map_err(|e| match e {
-        FillError::NoKnownPixels => anyhow::anyhow!(
-            "the mask marks every pixel of '{}', so there is no known pixel to fill from; mask only the damage",
-            args.input.display()
-        ),
-        other => other.into(),
-    })?;
-    if mask.is_empty() {
-        say(format!("the mask marks no pixel of '{}'; copying the image unchanged", args.input.display()));
-    }
-    let fill_report = solver
-        .solve(&mut image.planes_mut(), params, Start::FullMultigrid, &mut |_| true)
-        .with_context(|| format!("filling '{}'", args.input.display()))?;
-    if let Some(v) = nodata {
-        let moved = keep_off_nodata(&mut image, &mask, v);
-        if moved > 0 {
-            say(format!("moved {moved} filled samples one step off the no-data value {v}"));
-        }
-    }
-
-    let t_save = Instant::now();
-    if !out_format.is_lossless() {
-        say(format!(
-            "warning: JPEG is lossy, so pixels outside the mask of '{}' will not stay exactly as they were; write .png or .tif to keep them",
-            output.display()
-        ));
-    }
-    let notes = if mask.is_empty() && out_format == image.file_format && !same_file(output, &args.input) {
-        raster::write_atomic(output, |w| {
-            let mut f = std::fs::File::open(&args.input).map_err(|e| e.to_string())?;
-            std::io::copy(&mut f, w).map(|_| ()).map_err(|e| e.to_string())
-        })?;
-        Vec::new()
-    } else {
-        raster::save_noting(&image, output)?
-    };
-    for n in &notes {
-        say(format!("note: {n}"));
-    }
-    if let Some(mask_out) = &args.mask_out {
-        raster::save_mask(&mask, mask_out)?;
-    }
-    let save_seconds = t_save.elapsed().as_secs_f64();
-
-    if let Some(report_path) = &args.report {
-        let inputs = Inputs {
-            image: FileRecord::of(&args.input).with_context(|| format!("hashing '{}'", args.input.display()))?,
-            mask: match &args.mask {
-                Some(m) => Some(FileRecord::of(m).with_context(|| format!("hashing '{}'", m.display()))?),
-                None => None,
-            },
-            mask_from_alpha: args.mask_from_alpha,
-        };
-        let mut report = Report::new(inputs, &image, &mask, &holes, &fill_report, params.tolerance);
-        report.output = Some(FileRecord::of(output).with_context(|| format!("hashing '{}'", output.display()))?);
-        report.seconds.load = load_seconds;
-        report.nodata = nodata_text;
-        report.nodata_pixels = nodata_pixels;
-        report.skipped_pixels = skipped.iter().map(|h| h.pixels).sum();
-        report.skipped_holes = skipped.into_iter().take(crate::report::HOLE_LIST_MAX).collect();
-        report.notes = notes;
-        report.seconds.save = save_seconds;
-        let json = report.to_json();
-        raster::write_atomic(report_path, |w| {
-            use std::io::Write;
-            w.write_all(json.as_bytes()).and_then(|()| w.write_all(b"\n")).map_err(|e| e.to_string())
-        })?;
-    }
-
-    if !mask.is_empty() {
-        let worst = fill_report.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max);
-        let cycles = fill_report.channels.iter().map(|c| c.cycles).max().unwrap_or(0);
-        say(format!(
-            "filled {} pixels in {} hole{} (largest {}) of '{}' -> '{}': residual {:.1e} after {} cycle{}, {:.3} s",
-            mask.count(),
-            holes.holes,
-            if holes.holes == 1 { "" } else { "s" },
-            holes.largest,
-            display_name(&args.input),
-            display_name(output),
-            worst,
-            cycles,
-            if cycles == 1 { "" } else { "s" },
-            fill_report.setup_seconds + fill_report.solve_seconds,
-        ));
+    let outcome = job.run(&say)?;
+    if outcome.filled > 0 {
+        say(outcome.summary(&args.input, output));
     }
     Ok(())
-}
-
-fn display_name(p: &Path) -> String {
-    p.display().to_string()
 }

@@ -4,8 +4,10 @@
 //! reach `main` once: usage errors exit with 2, failed jobs with 1, and every message says which
 //! file and what to do.
 
+mod batch;
 mod bench;
 mod fill;
+mod job;
 mod samples;
 
 use std::path::PathBuf;
@@ -13,6 +15,7 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+pub use batch::BatchArgs;
 pub use bench::BenchArgs;
 pub use fill::FillArgs;
 pub use samples::SamplesArgs;
@@ -36,6 +39,7 @@ every other sample bit for bit, and writes the result at the input's bit depth.\
 Filled values are estimates, not measurements.",
     after_help = "Examples:\n  \
 reweave fill scan.png --mask damage.png -o repaired.png --report repaired.json\n  \
+reweave batch frames/ --mask badpix.png -o fixed/ --jobs 2\n  \
 reweave bench --size 1024 --case frame\n  \
 reweave samples --out sample-images",
     arg_required_else_help = true
@@ -49,6 +53,8 @@ pub struct Cli {
 pub enum Command {
     /// Fill the masked pixels of an image and save the result.
     Fill(FillArgs),
+    /// Repair many files with one mask and/or their no-data, in parallel.
+    Batch(BatchArgs),
     /// Time the solver on the standard synthetic cases and print one JSON line per run.
     Bench(BenchArgs),
     /// Write the bundled demo images and masks (an invented scenario) into a folder.
@@ -60,6 +66,7 @@ pub enum Command {
 pub fn run(cli: Cli) -> ExitCode {
     let result = match cli.command {
         Command::Fill(args) => fill::run(&args),
+        Command::Batch(args) => batch::run(&args),
         Command::Bench(args) => bench::run(&args),
         Command::Samples(args) => samples::run(&args),
     };

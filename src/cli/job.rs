@@ -1,0 +1,299 @@
+//! One repair, as `fill` and `batch` both run it: load, assemble the mask (mask file, alpha,
+//! no-data, NaN), leave holes over the size limit, fill, keep off the no-data value, save
+//! atomically, write the mask and the report.
+
+use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
+use std::time::Instant;
+
+use anyhow::{Context, Result, bail};
+
+use super::same_file;
+use crate::fill::{FillError, FillParams, FillReport, Solver, Start};
+use crate::mask::{Hole, HoleStats, Mask};
+use crate::raster::{self, FileFormat, Raster, RasterError, SampleFormat};
+use crate::report::{FileRecord, HOLE_LIST_MAX, Inputs, Report};
+
+/// A mask file read once and shared by every job, with its hash and (once built) its solver.
+pub(crate) struct MaskFile {
+    pub path: PathBuf,
+    pub mask: Mask,
+    pub record: FileRecord,
+    solver: OnceLock<std::result::Result<Solver, FillError>>,
+}
+
+impl MaskFile {
+    pub fn load(path: &Path) -> Result<Self> {
+        let r = raster::load(path)?;
+        let record = FileRecord::of(path).with_context(|| format!("hashing '{}'", path.display()))?;
+        Ok(Self { path: path.to_owned(), mask: raster::mask_from_raster(&r), record, solver: OnceLock::new() })
+    }
+
+    /// The solver of this mask alone, built on first use.
+    fn solver(&self) -> &std::result::Result<Solver, FillError> {
+        self.solver.get_or_init(|| Solver::new(&self.mask))
+    }
+}
+
+/// Everything one repair needs.
+pub(crate) struct Job<'a> {
+    pub input: &'a Path,
+    pub output: &'a Path,
+    pub mask: Option<&'a MaskFile>,
+    pub mask_from_alpha: bool,
+    /// The no-data value given on the command line, and its text.
+    pub nodata: Option<(f64, String)>,
+    pub max_hole: Option<usize>,
+    pub mask_out: Option<&'a Path>,
+    pub report: Option<&'a Path>,
+    pub params: &'a FillParams,
+    pub limits: raster::Limits,
+}
+
+/// What a repair did.
+pub(crate) struct Outcome {
+    pub filled: usize,
+    pub holes: HoleStats,
+    pub fill: FillReport,
+}
+
+impl Outcome {
+    pub fn summary(&self, input: &Path, output: &Path) -> String {
+        let worst = self.fill.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max);
+        let cycles = self.fill.channels.iter().map(|c| c.cycles).max().unwrap_or(0);
+        format!(
+            "filled {} pixels in {} hole{} (largest {}) of '{}' -> '{}': residual {:.1e} after {} cycle{}, {:.3} s",
+            self.filled,
+            self.holes.holes,
+            if self.holes.holes == 1 { "" } else { "s" },
+            self.holes.largest,
+            input.display(),
+            output.display(),
+            worst,
+            cycles,
+            if cycles == 1 { "" } else { "s" },
+            self.fill.setup_seconds + self.fill.solve_seconds,
+        )
+    }
+}
+
+/// Parses a no-data value: a number, or "nan" (any case), as GDAL writes them.
+pub(crate) fn parse_nodata(text: &str) -> Option<f64> {
+    let t = text.trim().trim_end_matches('\0').trim();
+    if t.eq_ignore_ascii_case("nan") || t.eq_ignore_ascii_case("-nan") {
+        return Some(f64::NAN);
+    }
+    t.parse::<f64>().ok()
+}
+
+impl Job<'_> {
+    /// Runs the repair. `say` receives warnings and notes.
+    pub fn run(&self, say: &(dyn Fn(String) + Sync)) -> Result<Outcome> {
+        let input = self.input;
+        let t_load = Instant::now();
+        let mut image = raster::load_with_limits(input, self.limits)?;
+        for w in &image.metadata.warnings {
+            say(format!("warning: {w}"));
+        }
+        let mut mask = match self.mask {
+            Some(m) => {
+                if (m.mask.width(), m.mask.height()) != (image.width, image.height) {
+                    return Err(RasterError::MaskSize {
+                        path: m.path.clone(),
+                        width: image.width,
+                        height: image.height,
+                        mask_width: m.mask.width(),
+                        mask_height: m.mask.height(),
+                    }
+                    .into());
+                }
+                m.mask.clone()
+            }
+            None => Mask::new(image.width, image.height),
+        };
+        let mut own_mask = false;
+        if self.mask_from_alpha {
+            let Some(alpha) = image.transparent_mask() else {
+                bail!(
+                    "'{}' has no alpha channel, so --mask-from-alpha marks nothing; give --mask instead",
+                    input.display()
+                );
+            };
+            own_mask |= merge(&mut mask, &alpha);
+        }
+        // No-data: the value given, else the value the file declares.
+        let (nodata, nodata_text) = match (&self.nodata, &image.metadata.nodata) {
+            (Some((v, text)), _) => (Some(*v), Some(text.clone())),
+            (None, Some(declared)) => match parse_nodata(declared) {
+                Some(v) => (Some(v), Some(declared.clone())),
+                None => {
+                    say(format!(
+                        "warning: '{}' declares no-data as '{declared}', which is not a number; ignored",
+                        input.display()
+                    ));
+                    (None, None)
+                }
+            },
+            (None, None) => (None, None),
+        };
+        let missing = missing_samples(&image, nodata);
+        let nodata_pixels = missing.count();
+        own_mask |= merge(&mut mask, &missing);
+        if self.mask.is_none() && !self.mask_from_alpha && nodata.is_none() && nodata_pixels == 0 {
+            bail!(
+                "nothing marks pixels to fill in '{}': give --mask MASK.png, --mask-from-alpha or --nodata VALUE",
+                input.display()
+            );
+        }
+        let skipped: Vec<Hole> = self.max_hole.map(|limit| mask.drop_holes_larger_than(limit)).unwrap_or_default();
+        own_mask |= !skipped.is_empty();
+        if !skipped.is_empty() {
+            say(format!(
+                "leaving {} hole{} of '{}' larger than {} pixels unfilled",
+                skipped.len(),
+                if skipped.len() == 1 { "" } else { "s" },
+                input.display(),
+                self.max_hole.unwrap_or(0)
+            ));
+        }
+        let load_seconds = t_load.elapsed().as_secs_f64();
+        let holes = mask.hole_stats();
+
+        let no_known = || {
+            anyhow::anyhow!(
+                "the mask marks every pixel of '{}', so there is no known pixel to fill from; mask only the damage",
+                input.display()
+            )
+        };
+        let built;
+        let solver = match (self.mask, own_mask) {
+            (Some(m), false) => match m.solver() {
+                Ok(s) => s,
+                Err(FillError::NoKnownPixels) => return Err(no_known()),
+                Err(e) => return Err(anyhow::anyhow!("{e}")),
+            },
+            _ => {
+                built = Solver::new(&mask).map_err(|e| match e {
+                    FillError::NoKnownPixels => no_known(),
+                    other => other.into(),
+                })?;
+                &built
+            }
+        };
+        if mask.is_empty() {
+            say(format!("the mask marks no pixel of '{}'; copying the image unchanged", input.display()));
+        }
+        let fill = solver
+            .solve(&mut image.planes_mut(), self.params, Start::FullMultigrid, &mut |_| true)
+            .with_context(|| format!("filling '{}'", input.display()))?;
+        if let Some(v) = nodata {
+            let moved = keep_off_nodata(&mut image, &mask, v);
+            if moved > 0 {
+                say(format!(
+                    "moved {moved} filled samples of '{}' one step off the no-data value {v}",
+                    input.display()
+                ));
+            }
+        }
+
+        let t_save = Instant::now();
+        let out_format = FileFormat::from_extension(self.output).unwrap_or(FileFormat::Png);
+        if !out_format.is_lossless() {
+            say(format!(
+                "warning: JPEG is lossy, so pixels outside the mask of '{}' will not stay exactly as they were; write .png or .tif to keep them",
+                self.output.display()
+            ));
+        }
+        let notes = if mask.is_empty() && out_format == image.file_format && !same_file(self.output, input) {
+            raster::write_atomic(self.output, |w| {
+                let mut f = std::fs::File::open(input).map_err(|e| e.to_string())?;
+                std::io::copy(&mut f, w).map(|_| ()).map_err(|e| e.to_string())
+            })?;
+            Vec::new()
+        } else {
+            raster::save_noting(&image, self.output)?
+        };
+        for n in &notes {
+            say(format!("note: {n}"));
+        }
+        if let Some(mask_out) = self.mask_out {
+            raster::save_mask(&mask, mask_out)?;
+        }
+        let save_seconds = t_save.elapsed().as_secs_f64();
+
+        if let Some(report_path) = self.report {
+            let inputs = Inputs {
+                image: FileRecord::of(input).with_context(|| format!("hashing '{}'", input.display()))?,
+                mask: self.mask.map(|m| m.record.clone()),
+                mask_from_alpha: self.mask_from_alpha,
+            };
+            let mut report = Report::new(inputs, &image, &mask, &holes, &fill, self.params.tolerance);
+            report.output =
+                Some(FileRecord::of(self.output).with_context(|| format!("hashing '{}'", self.output.display()))?);
+            report.nodata = nodata_text;
+            report.nodata_pixels = nodata_pixels;
+            report.skipped_pixels = skipped.iter().map(|h| h.pixels).sum();
+            report.skipped_holes = skipped.iter().take(HOLE_LIST_MAX).copied().collect();
+            report.notes = notes;
+            report.seconds.load = load_seconds;
+            report.seconds.save = save_seconds;
+            let json = report.to_json();
+            raster::write_atomic(report_path, |w| {
+                use std::io::Write;
+                w.write_all(json.as_bytes()).and_then(|()| w.write_all(b"\n")).map_err(|e| e.to_string())
+            })?;
+        }
+        Ok(Outcome { filled: mask.count(), holes, fill })
+    }
+}
+
+/// Adds `extra` to `mask`; true if it added any pixel.
+fn merge(mask: &mut Mask, extra: &Mask) -> bool {
+    let mut added = false;
+    for (m, &e) in mask.bits_mut().iter_mut().zip(extra.bits()) {
+        added |= e && !*m;
+        *m |= e;
+    }
+    added
+}
+
+/// Pixels to fill because a sample holds the no-data value or is not a finite number.
+fn missing_samples(image: &Raster, nodata: Option<f64>) -> Mask {
+    let n = image.width * image.height;
+    let mut bits = vec![false; n];
+    for plane in &image.planes {
+        for (b, &v) in bits.iter_mut().zip(plane) {
+            let hit = !v.is_finite() || nodata.is_some_and(|d| if d.is_nan() { v.is_nan() } else { f64::from(v) == d });
+            *b |= hit;
+        }
+    }
+    Mask::from_bits(image.width, image.height, bits)
+}
+
+/// Moves filled samples that would be stored as the no-data value one step off it, so the output
+/// holds no false no-data pixels. Returns how many were moved.
+fn keep_off_nodata(image: &mut Raster, mask: &Mask, nodata: f64) -> usize {
+    if nodata.is_nan() {
+        return 0; // a fill is never NaN
+    }
+    let fmt = image.sample_format;
+    let mut moved = 0;
+    for plane in &mut image.planes {
+        for (v, &m) in plane.iter_mut().zip(mask.bits()) {
+            if !m || f64::from(fmt.quantize(*v)) != nodata {
+                continue;
+            }
+            let q = fmt.quantize(*v);
+            *v = if fmt == SampleFormat::F32 {
+                let up = f32::from_bits(q.to_bits() + 1);
+                if up.is_finite() { up } else { f32::from_bits(q.to_bits() - 1) }
+            } else if fmt.quantize(q + 1.0) != q && (*v >= q || fmt.quantize(q - 1.0) == q) {
+                q + 1.0
+            } else {
+                q - 1.0
+            };
+            moved += 1;
+        }
+    }
+    moved
+}

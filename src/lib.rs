@@ -10,6 +10,7 @@
 //! Filled pixels are estimates, not measurements.
 
 pub mod cli;
+pub mod detect;
 pub mod fill;
 pub mod mask;
 pub mod raster;

@@ -90,6 +90,9 @@ pub struct Report {
     pub nodata: Option<String>,
     /// Pixels marked because they held the no-data value or were not finite numbers.
     pub nodata_pixels: usize,
+    /// The detector run on the image, if any, and how many pixels it marked.
+    pub detector: Option<String>,
+    pub detected_pixels: usize,
     /// Holes left unfilled because they were larger than `--max-hole` (largest first, at most
     /// [`HOLE_LIST_MAX`]), and their total pixel count.
     pub skipped_holes: Vec<Hole>,
@@ -144,6 +147,8 @@ impl Report {
             hole_list: mask.holes().into_iter().take(HOLE_LIST_MAX).collect(),
             nodata: None,
             nodata_pixels: 0,
+            detector: None,
+            detected_pixels: 0,
             skipped_holes: Vec::new(),
             skipped_pixels: 0,
             notes: Vec::new(),

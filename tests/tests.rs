@@ -9,6 +9,7 @@ mod common;
 mod batch;
 mod cli;
 mod convergence;
+mod detection;
 mod direct_solver;
 mod exact_harmonic;
 mod exact_rationals;

@@ -23,7 +23,8 @@ use crate::raster::{self, FileFormat};
 #[derive(Debug, Args)]
 #[command(after_help = "Examples:\n  \
 reweave batch frames/*.tif --mask badpix.png -o fixed/ --report-dir fixed/reports\n  \
-reweave batch tiles/ --nodata -32768 -o filled/ --skip-existing\n\n\
+reweave batch tiles/ --nodata -32768 -o filled/ --skip-existing\n  \
+reweave batch frames/ --detect outliers -o fixed/\n\n\
 On a cluster, give each array task its own slice of the same sorted list (Slurm):\n  \
 reweave batch archive/*.tif --mask badpix.png -o fixed/ --shard $((SLURM_ARRAY_TASK_ID+1))/$SLURM_ARRAY_TASK_COUNT")]
 pub struct BatchArgs {
@@ -46,6 +47,13 @@ pub struct BatchArgs {
     /// Also fill pixels holding this value ("nan" allowed); else each TIFF's declared no-data.
     #[arg(long, value_name = "VALUE", allow_hyphen_values = true)]
     pub nodata: Option<String>,
+
+    /// Also fill what this detector finds in each file (see `reweave detect --help`).
+    #[arg(long, value_enum, value_name = "METHOD")]
+    pub detect: Option<super::detect::Method>,
+
+    #[command(flatten)]
+    pub detect_options: super::detect::DetectOptions,
 
     /// Leave holes larger than this many pixels unfilled.
     #[arg(long, value_name = "PIXELS")]
@@ -129,6 +137,12 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
         let (i, n) =
             parse_shard(text).ok_or_else(|| usage(format!("--shard takes I/N with 1 ≤ I ≤ N (got '{text}')")))?;
         files = shard(&files, i, n);
+    }
+    if let Some(m) = args.detect {
+        if m == super::detect::Method::Stack {
+            return Err(usage("--detect stack needs all frames at once: run `reweave detect FRAMES... --by stack -o badpix.png`, then batch --mask badpix.png".to_owned()));
+        }
+        super::detect::check(m, &args.detect_options)?;
     }
     if args.jobs == 0 {
         return Err(usage("--jobs must be at least 1".to_owned()));
@@ -220,6 +234,7 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
                                 report: report.as_deref(),
                                 params,
                                 limits,
+                                detect: args.detect.map(|m| (m, &args.detect_options)),
                             };
                             match job.run(say) {
                                 Ok(o) => Done::Filled(o),

@@ -199,6 +199,7 @@ pub(super) fn run(args: &FillArgs) -> Result<()> {
             max_pixels: args.max_megapixels.saturating_mul(1_000_000),
             ..raster::Limits::default()
         },
+        detect: None,
     };
     let outcome = job.run(&say)?;
     if outcome.filled > 0 {

@@ -48,6 +48,8 @@ pub(crate) struct Job<'a> {
     pub report: Option<&'a Path>,
     pub params: &'a FillParams,
     pub limits: raster::Limits,
+    /// Damage found in each image by a detector, added to the mask.
+    pub detect: Option<(super::detect::Method, &'a super::detect::DetectOptions)>,
 }
 
 /// What a repair did.
@@ -121,6 +123,13 @@ impl Job<'_> {
             };
             own_mask |= merge(&mut mask, &alpha);
         }
+        let mut detected = 0;
+        if let Some((method, options)) = self.detect {
+            let found = super::detect::detect_one(method, &image, options)
+                .map_err(|e| anyhow::anyhow!("detecting in '{}': {e}", input.display()))?;
+            detected = found.count();
+            own_mask |= merge(&mut mask, &found);
+        }
         // No-data: the value given, else the value the file declares.
         let (nodata, nodata_text) = match (&self.nodata, &image.metadata.nodata) {
             (Some((v, text)), _) => (Some(*v), Some(text.clone())),
@@ -139,7 +148,12 @@ impl Job<'_> {
         let missing = missing_samples(&image, nodata);
         let nodata_pixels = missing.count();
         own_mask |= merge(&mut mask, &missing);
-        if self.mask.is_none() && !self.mask_from_alpha && nodata.is_none() && nodata_pixels == 0 {
+        if self.mask.is_none()
+            && !self.mask_from_alpha
+            && self.detect.is_none()
+            && nodata.is_none()
+            && nodata_pixels == 0
+        {
             bail!(
                 "nothing marks pixels to fill in '{}': give --mask MASK.png, --mask-from-alpha or --nodata VALUE",
                 input.display()
@@ -232,6 +246,8 @@ impl Job<'_> {
                 Some(FileRecord::of(self.output).with_context(|| format!("hashing '{}'", self.output.display()))?);
             report.nodata = nodata_text;
             report.nodata_pixels = nodata_pixels;
+            report.detected_pixels = detected;
+            report.detector = self.detect.map(|(m, _)| format!("{m:?}").to_lowercase());
             report.skipped_pixels = skipped.iter().map(|h| h.pixels).sum();
             report.skipped_holes = skipped.iter().take(HOLE_LIST_MAX).copied().collect();
             report.notes = notes;

@@ -6,6 +6,7 @@
 
 mod batch;
 mod bench;
+mod detect;
 mod fill;
 mod job;
 mod samples;
@@ -17,6 +18,7 @@ use clap::{Parser, Subcommand};
 
 pub use batch::BatchArgs;
 pub use bench::BenchArgs;
+pub use detect::DetectArgs;
 pub use fill::FillArgs;
 pub use samples::SamplesArgs;
 
@@ -40,6 +42,7 @@ Filled values are estimates, not measurements.",
     after_help = "Examples:\n  \
 reweave fill scan.png --mask damage.png -o repaired.png --report repaired.json\n  \
 reweave batch frames/ --mask badpix.png -o fixed/ --jobs 2\n  \
+reweave detect frame.tif --by outliers -o hotpix.png\n  \
 reweave bench --size 1024 --case frame\n  \
 reweave samples --out sample-images",
     arg_required_else_help = true
@@ -53,8 +56,10 @@ pub struct Cli {
 pub enum Command {
     /// Fill the masked pixels of an image and save the result.
     Fill(FillArgs),
-    /// Repair many files with one mask and/or their no-data, in parallel.
+    /// Repair many files with one mask, their no-data and/or detected damage, in parallel.
     Batch(BatchArgs),
+    /// Find damaged pixels (hot and dead pixels, bad columns, scratches, a value) and write a mask.
+    Detect(DetectArgs),
     /// Time the solver on the standard synthetic cases and print one JSON line per run.
     Bench(BenchArgs),
     /// Write the bundled demo images and masks (an invented scenario) into a folder.
@@ -67,6 +72,7 @@ pub fn run(cli: Cli) -> ExitCode {
     let result = match cli.command {
         Command::Fill(args) => fill::run(&args),
         Command::Batch(args) => batch::run(&args),
+        Command::Detect(args) => detect::run(&args),
         Command::Bench(args) => bench::run(&args),
         Command::Samples(args) => samples::run(&args),
     };

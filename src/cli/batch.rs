@@ -260,7 +260,8 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
     let mut results = results.into_inner().unwrap_or_default();
     results.sort_by_key(|(k, _)| *k);
 
-    let (mut filled, mut skipped, mut pixels, mut fill_seconds) = (0usize, 0usize, 0usize, 0f64);
+    let (mut filled, mut skipped, mut pixels) = (0usize, 0usize, 0usize);
+    let (mut load_seconds, mut fill_seconds, mut save_seconds) = (0f64, 0f64, 0f64);
     let mut failed = Vec::new();
     for (k, done) in &results {
         match done {
@@ -268,6 +269,8 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
                 filled += 1;
                 pixels += o.filled;
                 fill_seconds += o.fill.setup_seconds + o.fill.solve_seconds;
+                load_seconds += o.load_seconds;
+                save_seconds += o.save_seconds;
             }
             Done::Skipped => skipped += 1,
             Done::Failed(msg) => failed.push((files[*k].clone(), msg.clone())),
@@ -281,7 +284,14 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
     println!("skipped    {skipped}");
     println!("failed     {}", failed.len() + lost);
     println!("pixels     {pixels} filled");
-    println!("time       {seconds:.2} s ({rate:.1} files/s; {fill_seconds:.2} s of it solving)");
+    println!("time       {seconds:.2} s, {rate:.2} files/s with {} jobs", args.jobs);
+    let busy = (load_seconds + fill_seconds + save_seconds).max(1e-9);
+    println!(
+        "work       read {load_seconds:.2} s ({:.0}%), fill {fill_seconds:.2} s ({:.0}%), write {save_seconds:.2} s ({:.0}%)",
+        100.0 * load_seconds / busy,
+        100.0 * fill_seconds / busy,
+        100.0 * save_seconds / busy
+    );
     if failed.is_empty() && lost == 0 {
         return Ok(());
     }

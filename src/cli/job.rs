@@ -57,6 +57,10 @@ pub(crate) struct Outcome {
     pub filled: usize,
     pub holes: HoleStats,
     pub fill: FillReport,
+    /// Reading and decoding, mask assembly and detection included.
+    pub load_seconds: f64,
+    /// Encoding and writing the result, mask and report.
+    pub save_seconds: f64,
 }
 
 impl Outcome {
@@ -259,7 +263,7 @@ impl Job<'_> {
                 w.write_all(json.as_bytes()).and_then(|()| w.write_all(b"\n")).map_err(|e| e.to_string())
             })?;
         }
-        Ok(Outcome { filled: mask.count(), holes, fill })
+        Ok(Outcome { filled: mask.count(), holes, fill, load_seconds, save_seconds: t_save.elapsed().as_secs_f64() })
     }
 }
 

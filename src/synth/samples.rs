@@ -137,13 +137,29 @@ pub fn harbour_postcard() -> (Raster, Mask) {
 }
 
 /// A 16-bit survey-camera frame: sky background, stars, read noise; dead, hot and a dead column.
-#[allow(clippy::cast_precision_loss, clippy::cast_possible_truncation)]
 #[must_use]
 pub fn starfield_frame() -> (Raster, Mask) {
-    let (w, h) = (256usize, 256usize);
-    let mut rng = Rng::new(2077);
-    let mut v: Vec<f64> = (0..w * h).map(|i| 1200.0 + 0.8 * (i % w) as f64 + 0.3 * (i / w) as f64).collect();
-    for _ in 0..45 {
+    survey_frame(256, 2077, 2077)
+}
+
+/// A `size × size` 16-bit frame of the invented Kessel Ridge survey camera: a sky with a gradient,
+/// stars of 2–5 px FWHM placed by `seed`, read noise, and the sensor's fixed defects (dead and hot
+/// pixels and a dead column, placed by `sensor`), with the sensor's bad-pixel map.
+#[allow(
+    clippy::cast_precision_loss,
+    clippy::cast_possible_truncation,
+    clippy::cast_sign_loss,
+    clippy::cast_possible_wrap
+)]
+#[must_use]
+pub fn survey_frame(size: usize, seed: u64, sensor: u64) -> (Raster, Mask) {
+    let (w, h) = (size, size);
+    let mut rng = Rng::new(seed);
+    let mut v: Vec<f64> = (0..w * h)
+        .map(|i| 1200.0 + 0.8 * (i % w) as f64 * 256.0 / size as f64 + 0.3 * (i / w) as f64 * 256.0 / size as f64)
+        .collect();
+    let stars = 45 * (size * size) / (256 * 256);
+    for _ in 0..stars {
         let (sx, sy) = (rng.uniform() * w as f64, rng.uniform() * h as f64);
         let fwhm = 2.0 + 3.0 * rng.uniform();
         let sigma = fwhm / 2.354_820_045;
@@ -164,18 +180,40 @@ pub fn starfield_frame() -> (Raster, Mask) {
     for (o, &s) in img.planes[0].iter_mut().zip(&v) {
         *o = (s + 8.0 * rng.normal()).round().clamp(0.0, 65535.0) as f32;
     }
+    let mut defects = Rng::new(sensor);
     let mut mask = Mask::new(w, h);
-    let col = 171;
+    let col = (171 * size) / 256;
     for y in 0..h {
         img.planes[0][y * w + col] = 0.0;
         mask.set(col, y, true);
     }
-    for k in 0..60 {
-        let (x, y) = (rng.below(w), rng.below(h));
+    for k in 0..(60 * size * size) / (256 * 256) {
+        let (x, y) = (defects.below(w), defects.below(h));
         img.planes[0][y * w + x] = if k % 2 == 0 { 65535.0 } else { 0.0 };
         mask.set(x, y, true);
     }
     (img, mask)
+}
+
+/// Writes `count` survey frames of one sensor (`frame-0000.tif`, …) and its map `badpix.png`.
+///
+/// # Errors
+/// When a file cannot be written.
+pub fn write_frames(dir: &Path, count: usize, size: usize) -> Result<Vec<PathBuf>, RasterError> {
+    std::fs::create_dir_all(dir).map_err(|e| RasterError::Write { path: dir.to_owned(), message: e.to_string() })?;
+    let mut written = Vec::with_capacity(count + 1);
+    for k in 0..count {
+        let (frame, mask) = survey_frame(size, 1000 + k as u64, 7);
+        let path = dir.join(format!("frame-{k:04}.tif"));
+        raster::save(&frame, &path)?;
+        written.push(path);
+        if k == 0 {
+            let mp = dir.join("badpix.png");
+            raster::save_mask(&mask, &mp)?;
+            written.push(mp);
+        }
+    }
+    Ok(written)
 }
 
 /// A signed 16-bit elevation grid of a small volcanic island, with a void of −32768.

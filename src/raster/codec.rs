@@ -31,14 +31,7 @@ pub(super) fn load(path: &Path, format: FileFormat, limits: Limits) -> Result<Ra
     reader.limits(image_limits);
     let mut decoder = reader.into_decoder().map_err(decode_err)?;
     let (w, h) = decoder.dimensions();
-    if u64::from(w) * u64::from(h) > limits.max_pixels {
-        return Err(RasterError::TooLarge {
-            path: path.to_owned(),
-            width: w.into(),
-            height: h.into(),
-            limit: limits.max_pixels,
-        });
-    }
+    limits.check(path, w, h)?;
     let icc_profile = decoder.icc_profile().ok().flatten();
     let image = DynamicImage::from_decoder(decoder).map_err(decode_err)?;
     let (width, height) = (w as usize, h as usize);

@@ -342,6 +342,24 @@ impl Default for Limits {
     }
 }
 
+impl Limits {
+    /// Refuses a `w × h` image over the pixel limit, before anything is allocated for it.
+    ///
+    /// # Errors
+    /// [`RasterError::TooLarge`] naming `path`.
+    pub fn check(&self, path: &Path, w: u32, h: u32) -> Result<(), RasterError> {
+        if u64::from(w) * u64::from(h) > self.max_pixels {
+            return Err(RasterError::TooLarge {
+                path: path.to_owned(),
+                width: w.into(),
+                height: h.into(),
+                limit: self.max_pixels,
+            });
+        }
+        Ok(())
+    }
+}
+
 /// Why reading or writing an image failed. Every message names the file and, where there is one,
 /// what to do about it.
 #[derive(Debug, Error)]

@@ -43,14 +43,7 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
         let info = reader.info();
         (info.width, info.height, info.color_type, info.bit_depth)
     };
-    if u64::from(w) * u64::from(h) > limits.max_pixels {
-        return Err(RasterError::TooLarge {
-            path: path.to_owned(),
-            width: w.into(),
-            height: h.into(),
-            limit: limits.max_pixels,
-        });
-    }
+    limits.check(path, w, h)?;
     let icc_profile = reader.info().icc_profile.as_ref().map(|p| p.to_vec());
     let (colour, depth) = reader.output_color_type();
     let layout = match colour {

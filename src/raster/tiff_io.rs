@@ -28,14 +28,7 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
     tiff_limits.ifd_value_size = 64 << 20;
     let mut dec = Decoder::new(BufReader::new(file)).map_err(decode_err)?.with_limits(tiff_limits);
     let (w, h) = dec.dimensions().map_err(decode_err)?;
-    if u64::from(w) * u64::from(h) > limits.max_pixels {
-        return Err(RasterError::TooLarge {
-            path: path.to_owned(),
-            width: w.into(),
-            height: h.into(),
-            limit: limits.max_pixels,
-        });
-    }
+    limits.check(path, w, h)?;
     let colour = dec.colortype().map_err(decode_err)?;
     let layout = match colour {
         TiffColour::Gray(_) => Layout::Gray,

@@ -12,6 +12,7 @@
 pub mod cli;
 pub mod detect;
 pub mod fill;
+pub mod gui;
 pub mod mask;
 pub mod raster;
 pub mod report;

@@ -19,3 +19,4 @@ mod random_walk;
 mod round_trip;
 mod samples;
 mod solver_api;
+mod window;

@@ -40,20 +40,33 @@ values that meet the known pixels around them (the solution of Laplace's equatio
 every other sample bit for bit, and writes the result at the input's bit depth.\n\n\
 Filled values are estimates, not measurements.",
     after_help = "Examples:\n  \
+reweave open scan.png --mask damage.png\n  \
 reweave fill scan.png --mask damage.png -o repaired.png --report repaired.json\n  \
 reweave batch frames/ --mask badpix.png -o fixed/ --jobs 2\n  \
 reweave detect frame.tif --by outliers -o hotpix.png\n  \
 reweave bench --size 1024 --case frame\n  \
-reweave samples --out sample-images",
-    arg_required_else_help = true
+reweave samples --out sample-images"
 )]
 pub struct Cli {
+    /// Without a command, the window opens.
     #[command(subcommand)]
-    pub command: Command,
+    pub command: Option<Command>,
+}
+
+/// Open the window on an image.
+#[derive(Debug, clap::Args)]
+pub struct OpenArgs {
+    /// The image to open.
+    pub file: PathBuf,
+    /// A mask of the image's size to load with it.
+    #[arg(short, long, value_name = "MASK")]
+    pub mask: Option<PathBuf>,
 }
 
 #[derive(Debug, Subcommand)]
 pub enum Command {
+    /// Open the window on an image (and its mask).
+    Open(OpenArgs),
     /// Fill the masked pixels of an image and save the result.
     Fill(FillArgs),
     /// Repair many files with one mask, their no-data and/or detected damage, in parallel.
@@ -70,11 +83,13 @@ pub enum Command {
 #[must_use]
 pub fn run(cli: Cli) -> ExitCode {
     let result = match cli.command {
-        Command::Fill(args) => fill::run(&args),
-        Command::Batch(args) => batch::run(&args),
-        Command::Detect(args) => detect::run(&args),
-        Command::Bench(args) => bench::run(&args),
-        Command::Samples(args) => samples::run(&args),
+        None => crate::gui::run(None, None),
+        Some(Command::Open(args)) => crate::gui::run(Some(args.file), args.mask),
+        Some(Command::Fill(args)) => fill::run(&args),
+        Some(Command::Batch(args)) => batch::run(&args),
+        Some(Command::Detect(args)) => detect::run(&args),
+        Some(Command::Bench(args)) => bench::run(&args),
+        Some(Command::Samples(args)) => samples::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
@@ -86,6 +101,11 @@ pub fn run(cli: Cli) -> ExitCode {
 }
 
 /// Same file, whether or not both exist yet (compared after resolving what can be resolved).
+#[must_use]
+pub fn same_path(a: &std::path::Path, b: &std::path::Path) -> bool {
+    same_file(a, b)
+}
+
 fn same_file(a: &std::path::Path, b: &std::path::Path) -> bool {
     let resolve = |p: &std::path::Path| -> PathBuf {
         if let Ok(c) = p.canonicalize() {

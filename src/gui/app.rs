@@ -1,0 +1,736 @@
+//! The window's state and its panels. Panels return a [`Command`]; commands are applied in one
+//! place ([`App::run_command`]), so state changes in one place.
+
+use std::path::PathBuf;
+
+use egui::{Color32, Key, Pos2, Rect, Sense, Stroke, Vec2};
+
+use super::canvas::{self, IMAGE_TILE, OVERLAY_TILE, Stretch, Tiles, View};
+use super::history::{self, Edit, History};
+use super::worker::{Message, Worker};
+use crate::fill::{FillParams, FillReport, Start};
+use crate::mask::{HoleStats, Mask};
+use crate::raster::{self, Raster};
+
+/// The caution shown next to every result.
+pub const CAUTION: &str = "Filled pixels are estimates, not measurements.";
+
+/// What the pointer does on the image.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Tool {
+    Brush,
+    Eraser,
+}
+
+/// What the canvas shows.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Compare {
+    /// The repaired image (the original until a fill is done).
+    After,
+    /// The image as it was read.
+    Before,
+    /// Before on the left of a draggable divider, after on the right.
+    Split,
+    /// Before and after alternating on a key (B).
+    Blink,
+}
+
+/// The open image and everything made from it.
+pub struct Document {
+    pub path: PathBuf,
+    pub original: Raster,
+    /// The filled planes, once a fill is done.
+    pub result: Option<Vec<Vec<f32>>>,
+    pub mask: Mask,
+    pub holes: HoleStats,
+    pub stretch: Stretch,
+}
+
+impl Document {
+    fn new(path: PathBuf, original: Raster, mask: Option<Mask>) -> Self {
+        let mask = mask.unwrap_or_else(|| Mask::new(original.width, original.height));
+        let holes = mask.hole_stats();
+        let stretch = Stretch::of(&original);
+        Self { path, original, result: None, mask, holes, stretch }
+    }
+
+    /// The result as a raster in the input's format (the original where nothing was filled).
+    #[must_use]
+    pub fn result_raster(&self) -> Raster {
+        let mut r = self.original.clone();
+        if let Some(planes) = &self.result {
+            r.planes.clone_from(planes);
+        }
+        r
+    }
+}
+
+/// Textures of the open document (runtime only).
+struct Textures {
+    before: Tiles,
+    after: Option<Tiles>,
+    overlay: Tiles,
+}
+
+/// A command from a panel or a key.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Command {
+    Open(PathBuf),
+    Fill,
+    Cancel,
+    SaveResult(PathBuf),
+    SaveMask(PathBuf),
+    Undo,
+    Redo,
+    ClearMask,
+    InvertMask,
+    Fit,
+    OneToOne,
+}
+
+/// A stroke in progress.
+struct StrokeState {
+    edit: Edit,
+    last: Pos2,
+}
+
+/// The application.
+pub struct App {
+    pub doc: Option<Document>,
+    pub tool: Tool,
+    /// Brush radius in image pixels.
+    pub radius: f32,
+    pub compare: Compare,
+    /// Divider position of the split view, 0–1 across the canvas.
+    pub split: f32,
+    pub blink_before: bool,
+    pub overlay_visible: bool,
+    pub overlay_colour: Color32,
+    pub tolerance: f64,
+    pub open_field: String,
+    pub save_field: String,
+    pub mask_field: String,
+    pub status: String,
+    pub history: History,
+    pub view: View,
+    pub last_fill: Option<FillReport>,
+    pub progress: Option<(usize, usize, f64)>,
+    pub show_help: bool,
+    pub cursor: Option<(usize, usize)>,
+    worker: Option<Worker>,
+    textures: Option<Textures>,
+    stroke: Option<StrokeState>,
+    mask_after_load: Option<PathBuf>,
+}
+
+impl Default for App {
+    fn default() -> Self {
+        Self {
+            doc: None,
+            tool: Tool::Brush,
+            radius: 4.0,
+            compare: Compare::After,
+            split: 0.5,
+            blink_before: false,
+            overlay_visible: true,
+            overlay_colour: Color32::from_rgba_unmultiplied(255, 40, 200, 140),
+            tolerance: 1e-6,
+            open_field: String::new(),
+            save_field: String::new(),
+            mask_field: String::new(),
+            status: "Open an image: type its path above and press Open, or drop it on the window.".to_owned(),
+            history: History::default(),
+            view: View::default(),
+            last_fill: None,
+            progress: None,
+            show_help: false,
+            cursor: None,
+            worker: None,
+            textures: None,
+            stroke: None,
+            mask_after_load: None,
+        }
+    }
+}
+
+impl App {
+    /// An app that starts loading `path` (and its `mask`).
+    #[must_use]
+    pub fn with_file(ctx: &egui::Context, path: PathBuf, mask: Option<PathBuf>) -> Self {
+        let mut app = Self { open_field: path.display().to_string(), ..Self::default() };
+        app.mask_after_load = mask;
+        app.run_command(ctx, Command::Open(path));
+        app
+    }
+
+    /// Whether background work is running.
+    #[must_use]
+    pub fn busy(&self) -> bool {
+        self.worker.is_some()
+    }
+
+    /// Draws the whole window into `ui`.
+    pub fn ui(&mut self, ui: &mut egui::Ui) {
+        let ctx = ui.ctx().clone();
+        self.poll(&ctx);
+        let mut commands = self.keys(&ctx);
+        for file in ctx.input(|i| i.raw.dropped_files.clone()) {
+            let p = file.path();
+            if !p.as_os_str().is_empty() {
+                commands.push(Command::Open(p.to_owned()));
+            }
+        }
+        egui::Panel::top("files").show(ui, |ui| commands.extend(self.files_ui(ui)));
+        egui::Panel::bottom("status").show(ui, |ui| self.status_ui(ui));
+        egui::Panel::left("tools").resizable(false).exact_size(240.0).show(ui, |ui| commands.extend(self.tools_ui(ui)));
+        egui::CentralPanel::default().show(ui, |ui| commands.extend(self.canvas_ui(ui)));
+        if self.show_help {
+            self.help_ui(&ctx);
+        }
+        for c in commands {
+            self.run_command(&ctx, c);
+        }
+    }
+
+    fn keys(&mut self, ctx: &egui::Context) -> Vec<Command> {
+        let mut out = Vec::new();
+        if ctx.egui_wants_keyboard_input() {
+            return out;
+        }
+        ctx.input(|i| {
+            let cmd = i.modifiers.command;
+            if cmd && i.key_pressed(Key::Z) {
+                out.push(if i.modifiers.shift { Command::Redo } else { Command::Undo });
+            }
+            if cmd && i.key_pressed(Key::Y) {
+                out.push(Command::Redo);
+            }
+            if !cmd {
+                if i.key_pressed(Key::B) {
+                    self.blink_before = !self.blink_before;
+                    self.compare = Compare::Blink;
+                }
+                if i.key_pressed(Key::M) {
+                    self.overlay_visible = !self.overlay_visible;
+                }
+                if i.key_pressed(Key::F) {
+                    out.push(Command::Fit);
+                }
+                if i.key_pressed(Key::Num1) {
+                    out.push(Command::OneToOne);
+                }
+                if i.key_pressed(Key::OpenBracket) {
+                    self.radius = (self.radius / 1.25).max(0.5);
+                }
+                if i.key_pressed(Key::CloseBracket) {
+                    self.radius = (self.radius * 1.25).min(500.0);
+                }
+                if i.key_pressed(Key::E) {
+                    self.tool = Tool::Eraser;
+                }
+                if i.key_pressed(Key::P) {
+                    self.tool = Tool::Brush;
+                }
+                if i.key_pressed(Key::F1) {
+                    self.show_help = !self.show_help;
+                }
+            }
+        });
+        out
+    }
+
+    fn files_ui(&mut self, ui: &mut egui::Ui) -> Vec<Command> {
+        let mut out = Vec::new();
+        ui.horizontal(|ui| {
+            let label = ui.label("Image");
+            ui.add(egui::TextEdit::singleline(&mut self.open_field).desired_width(260.0)).labelled_by(label.id);
+            if ui.button("Open").clicked() && !self.open_field.trim().is_empty() {
+                out.push(Command::Open(PathBuf::from(self.open_field.trim())));
+            }
+            if ui.button("Browse…").clicked()
+                && let Some(p) =
+                    rfd::FileDialog::new().add_filter("images", &["png", "tif", "tiff", "jpg", "jpeg"]).pick_file()
+            {
+                out.push(Command::Open(p));
+            }
+            ui.separator();
+            let label = ui.label("Result to");
+            ui.add(egui::TextEdit::singleline(&mut self.save_field).desired_width(200.0)).labelled_by(label.id);
+            if ui.add_enabled(self.doc.is_some(), egui::Button::new("Save result")).clicked() {
+                out.push(Command::SaveResult(PathBuf::from(self.save_field.trim())));
+            }
+            let label = ui.label("Mask to");
+            ui.add(egui::TextEdit::singleline(&mut self.mask_field).desired_width(160.0)).labelled_by(label.id);
+            if ui.add_enabled(self.doc.is_some(), egui::Button::new("Save mask")).clicked() {
+                out.push(Command::SaveMask(PathBuf::from(self.mask_field.trim())));
+            }
+        });
+        out
+    }
+
+    fn tools_ui(&mut self, ui: &mut egui::Ui) -> Vec<Command> {
+        let mut out = Vec::new();
+        ui.spacing_mut().slider_width = 100.0;
+        ui.heading("Mark");
+        ui.horizontal(|ui| {
+            ui.selectable_value(&mut self.tool, Tool::Brush, "Brush");
+            ui.selectable_value(&mut self.tool, Tool::Eraser, "Eraser");
+        });
+        ui.add(egui::Slider::new(&mut self.radius, 0.5..=200.0).logarithmic(true).text("Size"));
+        ui.horizontal(|ui| {
+            if ui.add_enabled(self.history.can_undo(), egui::Button::new("Undo")).clicked() {
+                out.push(Command::Undo);
+            }
+            if ui.add_enabled(self.history.can_redo(), egui::Button::new("Redo")).clicked() {
+                out.push(Command::Redo);
+            }
+        });
+        ui.horizontal(|ui| {
+            if ui.button("Clear").clicked() {
+                out.push(Command::ClearMask);
+            }
+            if ui.button("Invert").clicked() {
+                out.push(Command::InvertMask);
+            }
+        });
+        ui.checkbox(&mut self.overlay_visible, "Show mask (M)");
+        let mut alpha = f32::from(self.overlay_colour.a()) / 255.0;
+        if ui.add(egui::Slider::new(&mut alpha, 0.1..=1.0).text("Opacity")).changed() {
+            let [r, g, b, _] = self.overlay_colour.to_srgba_unmultiplied();
+            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+            let a = (alpha * 255.0).round() as u8;
+            self.overlay_colour = Color32::from_rgba_unmultiplied(r, g, b, a);
+            self.textures = None;
+        }
+        ui.separator();
+        ui.heading("Repair");
+        ui.label("Method: harmonic");
+        egui::ComboBox::from_label("Tolerance").selected_text(format!("{:.0e}", self.tolerance)).show_ui(ui, |ui| {
+            for t in [1e-4, 1e-6, 1e-8, 1e-10] {
+                ui.selectable_value(&mut self.tolerance, t, format!("{t:.0e}"));
+            }
+        });
+        match (&self.worker, self.progress) {
+            (Some(w), progress) => {
+                ui.horizontal(|ui| {
+                    ui.spinner();
+                    ui.label(format!("{}…", w.what));
+                });
+                if let Some((cycle, max, residual)) = progress {
+                    #[allow(clippy::cast_precision_loss)]
+                    let done = (residual.max(1e-300).log10() / self.tolerance.log10()).clamp(0.0, 1.0) as f32;
+                    ui.add(egui::ProgressBar::new(done).text(format!("cycle {cycle}/{max}, residual {residual:.1e}")));
+                }
+                if w.what == "fill" && ui.button("Cancel").clicked() {
+                    out.push(Command::Cancel);
+                }
+            }
+            (None, _) => {
+                if ui
+                    .add_enabled(self.doc.as_ref().is_some_and(|d| !d.mask.is_empty()), egui::Button::new("Fill"))
+                    .clicked()
+                {
+                    out.push(Command::Fill);
+                }
+            }
+        }
+        ui.small(CAUTION);
+        ui.separator();
+        ui.heading("Compare");
+        ui.selectable_value(&mut self.compare, Compare::After, "After");
+        ui.selectable_value(&mut self.compare, Compare::Before, "Before");
+        ui.selectable_value(&mut self.compare, Compare::Split, "Split");
+        ui.selectable_value(&mut self.compare, Compare::Blink, "Blink (B)");
+        ui.separator();
+        ui.horizontal(|ui| {
+            if ui.button("Fit").clicked() {
+                out.push(Command::Fit);
+            }
+            if ui.button("1:1").clicked() {
+                out.push(Command::OneToOne);
+            }
+            if ui.button("Keys (F1)").clicked() {
+                self.show_help = !self.show_help;
+            }
+        });
+        out
+    }
+
+    fn status_ui(&self, ui: &mut egui::Ui) {
+        ui.horizontal(|ui| {
+            if let Some(d) = &self.doc {
+                ui.label(format!(
+                    "{}×{} {} {}",
+                    d.original.width,
+                    d.original.height,
+                    d.original.layout.name(),
+                    d.original.sample_format
+                ));
+                ui.separator();
+                if let Some((x, y)) = self.cursor {
+                    let i = y * d.original.width + x;
+                    let values: Vec<String> = d.original.planes.iter().map(|p| format!("{}", p[i])).collect();
+                    ui.label(format!("({x}, {y}) = {}", values.join(", ")));
+                    ui.separator();
+                }
+                ui.label(format!("mask {} px in {} holes", d.mask.count(), d.holes.holes));
+                if let Some(r) = &self.last_fill {
+                    ui.separator();
+                    let worst = r.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max);
+                    ui.label(format!("last fill {:.3} s, residual {worst:.1e}", r.setup_seconds + r.solve_seconds));
+                }
+                ui.separator();
+            }
+            ui.label(&self.status);
+        });
+    }
+
+    fn help_ui(&mut self, ctx: &egui::Context) {
+        let mut open = self.show_help;
+        egui::Window::new("Keys").open(&mut open).show(ctx, |ui| {
+            egui::Grid::new("keys").show(ui, |ui| {
+                for (k, what) in [
+                    ("P / E", "brush / eraser"),
+                    ("[ and ]", "smaller / larger brush"),
+                    ("drag", "paint (brush) or erase"),
+                    ("middle drag, Space + drag", "pan"),
+                    ("wheel, pinch", "zoom about the cursor"),
+                    ("F / 1", "fit / actual pixels"),
+                    ("M", "show or hide the mask"),
+                    ("B", "blink between before and after"),
+                    ("Ctrl+Z", "undo"),
+                    ("Ctrl+Shift+Z, Ctrl+Y", "redo"),
+                    ("F1", "this list"),
+                ] {
+                    ui.label(k);
+                    ui.label(what);
+                    ui.end_row();
+                }
+            });
+        });
+        self.show_help = open;
+    }
+
+    /// The canvas: draws the image, handles zoom, pan and painting.
+    fn canvas_ui(&mut self, ui: &mut egui::Ui) -> Vec<Command> {
+        let (response, painter) = ui.allocate_painter(ui.available_size(), Sense::click_and_drag());
+        let rect = response.rect;
+        painter.rect_filled(rect, 0.0, Color32::from_gray(40));
+        let Some(doc) = &mut self.doc else {
+            return Vec::new();
+        };
+        let ctx = ui.ctx().clone();
+        #[allow(clippy::cast_precision_loss)]
+        let size = Vec2::new(doc.original.width as f32, doc.original.height as f32);
+        if self.view.fit_pending {
+            self.view.fit(rect, size);
+        }
+        // Textures, made on first use.
+        let textures = self.textures.get_or_insert_with(|| make_textures(&ctx, doc, self.overlay_colour));
+        if doc.result.is_some() && textures.after.is_none() {
+            textures.after = Some(after_tiles(&ctx, doc));
+        }
+        // Zoom about the cursor, pan.
+        let hover = response.hover_pos();
+        if let Some(p) = hover {
+            let (scroll, zoom) = ctx.input(|i| (i.smooth_scroll_delta, i.zoom_delta()));
+            let factor = zoom * (scroll.y * 0.002).exp();
+            if (factor - 1.0).abs() > 1e-4 {
+                self.view.zoom_about(p, factor);
+            }
+        }
+        let space = ctx.input(|i| i.key_down(Key::Space));
+        let panning = response.dragged_by(egui::PointerButton::Middle) || (space && response.dragged());
+        if panning {
+            self.view.origin += response.drag_delta();
+        }
+        self.cursor = hover.and_then(|p| {
+            let q = self.view.image_from_screen(p);
+            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+            (q.x >= 0.0 && q.y >= 0.0 && q.x < size.x && q.y < size.y).then_some((q.x as usize, q.y as usize))
+        });
+        // Painting.
+        if !panning && self.worker.is_none() && response.dragged_by(egui::PointerButton::Primary) {
+            if let Some(p) = response.interact_pointer_pos() {
+                let here = self.view.image_from_screen(p);
+                let stroke = self.stroke.get_or_insert_with(|| StrokeState { edit: Edit::default(), last: here });
+                let value = self.tool == Tool::Brush;
+                let step = (self.radius * 0.5).max(0.5);
+                let n = ((here - stroke.last).length() / step).ceil().max(1.0);
+                #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+                for k in 0..=n as usize {
+                    #[allow(clippy::cast_precision_loss)]
+                    let c = stroke.last + (here - stroke.last) * (k as f32 / n);
+                    let edit = &mut stroke.edit;
+                    let changed = canvas::stamp(&mut doc.mask, c, self.radius, value, &mut |m, x, y| {
+                        edit.save(m, history::tile_of(m, x, y));
+                    });
+                    if let Some((x0, y0, x1, y1)) = changed {
+                        let (mask, colour) = (&doc.mask, self.overlay_colour);
+                        textures.overlay.update_rect(x0, y0, x1, y1, &|i| canvas::overlay(mask, colour, i));
+                    }
+                }
+                stroke.last = here;
+            }
+        } else if let Some(stroke) = self.stroke.take() {
+            self.history.push(stroke.edit);
+            doc.holes = doc.mask.hole_stats();
+        }
+        // Draw.
+        let show_before = match self.compare {
+            Compare::Before => true,
+            Compare::Blink => self.blink_before,
+            Compare::After | Compare::Split => false,
+        };
+        let after = textures.after.as_ref().unwrap_or(&textures.before);
+        if self.compare == Compare::Split {
+            let x = rect.left() + rect.width() * self.split;
+            let (left, right) = (
+                Rect::from_min_max(rect.min, Pos2::new(x, rect.bottom())),
+                Rect::from_min_max(Pos2::new(x, rect.top()), rect.max),
+            );
+            textures.before.paint(&painter, &self.view, left, Color32::WHITE);
+            after.paint(&painter, &self.view, right, Color32::WHITE);
+            let handle = ui.interact(
+                Rect::from_center_size(Pos2::new(x, rect.center().y), Vec2::new(12.0, rect.height())),
+                ui.scope_id().with("divider"),
+                Sense::drag(),
+            );
+            if handle.dragged() {
+                self.split = ((x + handle.drag_delta().x - rect.left()) / rect.width()).clamp(0.02, 0.98);
+            }
+            painter.line_segment(
+                [Pos2::new(x, rect.top()), Pos2::new(x, rect.bottom())],
+                Stroke::new(2.0, Color32::YELLOW),
+            );
+        } else if show_before {
+            textures.before.paint(&painter, &self.view, rect, Color32::WHITE);
+        } else {
+            after.paint(&painter, &self.view, rect, Color32::WHITE);
+        }
+        if self.overlay_visible {
+            textures.overlay.paint(&painter, &self.view, rect, Color32::WHITE);
+        }
+        // Pixel grid from 8× up.
+        if self.view.zoom >= 8.0 {
+            let img = Rect::from_min_max(
+                self.view.screen_from_image(Pos2::ZERO),
+                self.view.screen_from_image(size.to_pos2()),
+            )
+            .intersect(rect);
+            let a = self.view.image_from_screen(img.min);
+            let b = self.view.image_from_screen(img.max);
+            let grid = Stroke::new(1.0, Color32::from_black_alpha(60));
+            for x in (a.x.floor() as i64)..=(b.x.ceil() as i64) {
+                #[allow(clippy::cast_precision_loss)]
+                let sx = self.view.screen_from_image(Pos2::new(x as f32, 0.0)).x;
+                painter.line_segment([Pos2::new(sx, img.top()), Pos2::new(sx, img.bottom())], grid);
+            }
+            for y in (a.y.floor() as i64)..=(b.y.ceil() as i64) {
+                #[allow(clippy::cast_precision_loss)]
+                let sy = self.view.screen_from_image(Pos2::new(0.0, y as f32)).y;
+                painter.line_segment([Pos2::new(img.left(), sy), Pos2::new(img.right(), sy)], grid);
+            }
+        }
+        // Brush outline.
+        if let Some(p) = hover {
+            painter.circle_stroke(p, self.radius * self.view.zoom, Stroke::new(1.0, Color32::WHITE));
+            painter.circle_stroke(p, self.radius * self.view.zoom + 1.0, Stroke::new(1.0, Color32::BLACK));
+        }
+        Vec::new()
+    }
+
+    /// Receives what the worker reports.
+    fn poll(&mut self, ctx: &egui::Context) {
+        let Some(worker) = &self.worker else { return };
+        let mut finished = false;
+        while let Ok(msg) = worker.receiver.try_recv() {
+            match msg {
+                Message::Progress { cycle, max_cycles, residual } => {
+                    self.progress = Some((cycle, max_cycles, residual))
+                }
+                Message::Loaded { path, raster, mask } => {
+                    self.status = format!("opened {}", path.display());
+                    if self.save_field.is_empty() {
+                        self.save_field = sibling(&path, "-repaired").display().to_string();
+                    }
+                    if self.mask_field.is_empty() {
+                        self.mask_field = sibling(&path, "-mask").with_extension("png").display().to_string();
+                    }
+                    self.doc = Some(Document::new(path, *raster, mask));
+                    self.textures = None;
+                    self.history = History::default();
+                    self.view.fit_pending = true;
+                    self.last_fill = None;
+                    finished = true;
+                }
+                Message::Filled { planes, report, mask } => {
+                    if let Some(d) = &mut self.doc {
+                        self.status = format!("filled {} pixels. {CAUTION}", mask.count());
+                        d.result = Some(planes);
+                        if let Some(t) = &mut self.textures {
+                            t.after = None;
+                        }
+                    }
+                    self.last_fill = Some(report);
+                    self.compare = Compare::After;
+                    // Show the repair itself; M brings the mask back.
+                    self.overlay_visible = false;
+                    finished = true;
+                }
+                Message::Saved { path, notes } => {
+                    self.status = format!("saved {}", path.display());
+                    if !notes.is_empty() {
+                        self.status.push_str(&format!(" ({})", notes.join("; ")));
+                    }
+                    finished = true;
+                }
+                Message::Failed(e) => {
+                    self.status = e;
+                    finished = true;
+                }
+            }
+        }
+        if finished {
+            self.worker = None;
+            self.progress = None;
+            if let Some(m) = self.mask_after_load.take()
+                && let Some(d) = &mut self.doc
+            {
+                match raster::load_mask(&m, d.original.width, d.original.height) {
+                    Ok(mask) => {
+                        d.mask = mask;
+                        d.holes = d.mask.hole_stats();
+                        self.textures = None;
+                    }
+                    Err(e) => self.status = e.to_string(),
+                }
+            }
+            ctx.request_repaint();
+        }
+    }
+
+    /// Applies one command.
+    pub fn run_command(&mut self, ctx: &egui::Context, command: Command) {
+        let repaint = {
+            let ctx = ctx.clone();
+            move || ctx.request_repaint()
+        };
+        match command {
+            Command::Open(path) => {
+                if self.worker.is_some() {
+                    self.status = "wait for the current work to finish".to_owned();
+                    return;
+                }
+                self.status = format!("opening {}…", path.display());
+                self.open_field = path.display().to_string();
+                self.worker = Some(Worker::load(path, None, repaint));
+            }
+            Command::Fill => {
+                let Some(d) = &self.doc else { return };
+                if self.worker.is_some() || d.mask.is_empty() {
+                    return;
+                }
+                // Start from the previous result where there is one (warm start after an edit).
+                let (planes, start) = match &d.result {
+                    Some(p) => (p.clone(), Start::Warm),
+                    None => (d.original.planes.clone(), Start::FullMultigrid),
+                };
+                let planes = restore_unmasked(planes, &d.original.planes, &d.mask);
+                let params = FillParams { tolerance: self.tolerance, ..FillParams::default() };
+                self.status = "filling…".to_owned();
+                self.worker = Some(Worker::fill(planes, d.mask.clone(), params, start, repaint));
+            }
+            Command::Cancel => {
+                if let Some(w) = &self.worker {
+                    w.cancel();
+                }
+            }
+            Command::SaveResult(path) => {
+                let Some(d) = &self.doc else { return };
+                if self.worker.is_some() {
+                    return;
+                }
+                if path.as_os_str().is_empty() || crate::cli::same_path(&path, &d.path) {
+                    self.status = "choose a file name for the result other than the input".to_owned();
+                    return;
+                }
+                self.worker = Some(Worker::save(d.result_raster(), path, repaint));
+            }
+            Command::SaveMask(path) => {
+                let Some(d) = &self.doc else { return };
+                self.status = match raster::save_mask(&d.mask, &path) {
+                    Ok(()) => format!("saved the mask to {}", path.display()),
+                    Err(e) => e.to_string(),
+                };
+            }
+            Command::Undo | Command::Redo => {
+                let Some(d) = &mut self.doc else { return };
+                let touched = if command == Command::Undo {
+                    self.history.undo(&mut d.mask)
+                } else {
+                    self.history.redo(&mut d.mask)
+                };
+                if let (Some(tiles), Some(t)) = (touched, &mut self.textures) {
+                    for tile in tiles {
+                        let (x0, y0, x1, y1) = history::rect_of(&d.mask, tile);
+                        let (mask, colour) = (&d.mask, self.overlay_colour);
+                        t.overlay.update_rect(x0, y0, x1, y1, &|i| canvas::overlay(mask, colour, i));
+                    }
+                }
+                d.holes = d.mask.hole_stats();
+            }
+            Command::ClearMask | Command::InvertMask => {
+                let Some(d) = &mut self.doc else { return };
+                let mut edit = Edit::default();
+                edit.save_all(&d.mask);
+                for b in d.mask.bits_mut() {
+                    *b = command == Command::InvertMask && !*b;
+                }
+                self.history.push(edit);
+                d.holes = d.mask.hole_stats();
+                self.textures = None;
+            }
+            Command::Fit => self.view.fit_pending = true,
+            Command::OneToOne => {
+                let centre = self.view.screen_from_image(Pos2::ZERO);
+                self.view.zoom_about(centre, 1.0 / self.view.zoom);
+            }
+        }
+    }
+}
+
+/// `dir/stem-suffix.ext` next to `path`.
+fn sibling(path: &std::path::Path, suffix: &str) -> PathBuf {
+    let stem = path.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+    let ext = path.extension().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "png".to_owned());
+    path.with_file_name(format!("{stem}{suffix}.{ext}"))
+}
+
+/// Planes whose unmasked samples are the original's (a warm start keeps its filled values).
+fn restore_unmasked(mut planes: Vec<Vec<f32>>, original: &[Vec<f32>], mask: &Mask) -> Vec<Vec<f32>> {
+    for (p, o) in planes.iter_mut().zip(original) {
+        for ((v, &ov), &m) in p.iter_mut().zip(o).zip(mask.bits()) {
+            if !m {
+                *v = ov;
+            }
+        }
+    }
+    planes
+}
+
+fn make_textures(ctx: &egui::Context, d: &Document, colour: Color32) -> Textures {
+    let (w, h) = (d.original.width, d.original.height);
+    let (planes, layout, s) = (&d.original.planes, d.original.layout, d.stretch);
+    let before = Tiles::new(ctx, "before", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i));
+    let overlay = Tiles::new(ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::overlay(&d.mask, colour, i));
+    let after = d.result.as_ref().map(|_| after_tiles(ctx, d));
+    Textures { before, after, overlay }
+}
+
+fn after_tiles(ctx: &egui::Context, d: &Document) -> Tiles {
+    let (w, h) = (d.original.width, d.original.height);
+    let planes = d.result.as_ref().unwrap_or(&d.original.planes);
+    let (layout, s) = (d.original.layout, d.stretch);
+    Tiles::new(ctx, "after", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i))
+}

@@ -1,0 +1,211 @@
+//! The image view: one transform between image and screen, tiled textures (so large images fit
+//! the GPU's texture limits and a stroke re-uploads only the tiles it touched), the mask overlay,
+//! zoom about the cursor, pan, and painting.
+
+use egui::{Color32, ColorImage, Pos2, Rect, TextureHandle, TextureOptions, Vec2, pos2, vec2};
+
+use crate::mask::Mask;
+use crate::raster::{Layout, Raster, SampleFormat};
+
+/// Side of an image texture tile.
+pub const IMAGE_TILE: usize = 1024;
+/// Side of a mask overlay tile (small, so a stroke re-uploads little).
+pub const OVERLAY_TILE: usize = 256;
+
+/// The view transform: `pos_in_screen = origin + pos_in_image · zoom`.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct View {
+    /// Screen points per image pixel.
+    pub zoom: f32,
+    /// Screen position of the image's top-left corner.
+    pub origin: Pos2,
+    /// Fit the image to the canvas on the next frame.
+    pub fit_pending: bool,
+}
+
+impl Default for View {
+    fn default() -> Self {
+        Self { zoom: 1.0, origin: Pos2::ZERO, fit_pending: true }
+    }
+}
+
+impl View {
+    #[must_use]
+    pub fn screen_from_image(&self, pos_in_image: Pos2) -> Pos2 {
+        self.origin + pos_in_image.to_vec2() * self.zoom
+    }
+
+    #[must_use]
+    pub fn image_from_screen(&self, pos_in_screen: Pos2) -> Pos2 {
+        ((pos_in_screen - self.origin) / self.zoom).to_pos2()
+    }
+
+    /// Fits an image of `size` into `rect`, centred.
+    pub fn fit(&mut self, rect: Rect, size: Vec2) {
+        self.zoom = (rect.width() / size.x).min(rect.height() / size.y).max(1e-3);
+        self.origin = rect.center() - size * self.zoom / 2.0;
+        self.fit_pending = false;
+    }
+
+    /// Zooms by `factor` keeping the image point under `anchor_in_screen` in place.
+    pub fn zoom_about(&mut self, anchor_in_screen: Pos2, factor: f32) {
+        let anchor_in_image = self.image_from_screen(anchor_in_screen);
+        self.zoom = (self.zoom * factor).clamp(1.0 / 64.0, 128.0);
+        self.origin = anchor_in_screen - anchor_in_image.to_vec2() * self.zoom;
+    }
+}
+
+/// How samples map to display brightness: `(v − lo) · scale`, clamped to 0–255.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Stretch {
+    pub lo: f32,
+    pub scale: f32,
+}
+
+impl Stretch {
+    /// 8-bit shown as is, 16-bit scaled, signed and float stretched over their finite range.
+    #[must_use]
+    pub fn of(r: &Raster) -> Self {
+        match r.sample_format {
+            SampleFormat::U8 => Self { lo: 0.0, scale: 1.0 },
+            SampleFormat::U16 => Self { lo: 0.0, scale: 1.0 / 257.0 },
+            SampleFormat::I16 | SampleFormat::F32 => {
+                let colour = if r.layout.has_alpha() { r.channels() - 1 } else { r.channels() };
+                let (lo, hi) = r.planes[..colour]
+                    .iter()
+                    .flat_map(|p| p.iter())
+                    .filter(|v| v.is_finite())
+                    .fold((f32::MAX, f32::MIN), |(l, h), &v| (l.min(v), h.max(v)));
+                if lo < hi { Self { lo, scale: 255.0 / (hi - lo) } } else { Self { lo: lo.min(0.0), scale: 1.0 } }
+            }
+        }
+    }
+}
+
+/// The display colour of pixel `i` of `planes` laid out as `layout`.
+#[must_use]
+#[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)] // clamped to 0..=255 first
+pub fn colour(planes: &[Vec<f32>], layout: Layout, s: Stretch, i: usize) -> Color32 {
+    let c = |v: f32| -> u8 { if v.is_finite() { ((v - s.lo) * s.scale).round().clamp(0.0, 255.0) as u8 } else { 0 } };
+    match layout {
+        Layout::Gray | Layout::GrayAlpha => {
+            let v = planes[0][i];
+            if v.is_finite() {
+                let g = c(v);
+                Color32::from_rgb(g, g, g)
+            } else {
+                Color32::from_rgb(160, 0, 160) // not a number: shown in purple
+            }
+        }
+        Layout::Rgb | Layout::Rgba => Color32::from_rgb(c(planes[0][i]), c(planes[1][i]), c(planes[2][i])),
+    }
+}
+
+/// A set of texture tiles covering a `w × h` image.
+pub struct Tiles {
+    pub w: usize,
+    pub h: usize,
+    pub side: usize,
+    pub handles: Vec<TextureHandle>,
+}
+
+impl Tiles {
+    /// Builds the tiles from a colour function of the pixel index.
+    pub fn new(ctx: &egui::Context, name: &str, w: usize, h: usize, side: usize, f: &dyn Fn(usize) -> Color32) -> Self {
+        let (tx, ty) = (w.div_ceil(side), h.div_ceil(side));
+        let mut handles = Vec::with_capacity(tx * ty);
+        for t in 0..tx * ty {
+            let img = tile_image(w, h, side, t, f);
+            handles.push(ctx.load_texture(format!("{name}-{t}"), img, TextureOptions::NEAREST));
+        }
+        Self { w, h, side, handles }
+    }
+
+    /// Re-uploads the tiles that hold any pixel of the rectangle `(x0, y0)–(x1, y1)` (exclusive).
+    pub fn update_rect(&mut self, x0: usize, y0: usize, x1: usize, y1: usize, f: &dyn Fn(usize) -> Color32) {
+        let tx = self.w.div_ceil(self.side);
+        let (cx0, cy0) = (x0 / self.side, y0 / self.side);
+        let (cx1, cy1) = ((x1.max(x0 + 1) - 1) / self.side, (y1.max(y0 + 1) - 1) / self.side);
+        for cy in cy0..=cy1 {
+            for cx in cx0..=cx1 {
+                let t = cy * tx + cx;
+                if let Some(h) = self.handles.get_mut(t) {
+                    h.set(tile_image(self.w, self.h, self.side, t, f), TextureOptions::NEAREST);
+                }
+            }
+        }
+    }
+
+    /// Paints the tiles for `view`, clipped to `clip`.
+    pub fn paint(&self, painter: &egui::Painter, view: &View, clip: Rect, tint: Color32) {
+        let tx = self.w.div_ceil(self.side);
+        let painter = painter.with_clip_rect(clip);
+        for (t, h) in self.handles.iter().enumerate() {
+            let (x0, y0) = ((t % tx) * self.side, (t / tx) * self.side);
+            let (x1, y1) = ((x0 + self.side).min(self.w), (y0 + self.side).min(self.h));
+            #[allow(clippy::cast_precision_loss)]
+            let rect = Rect::from_min_max(
+                view.screen_from_image(pos2(x0 as f32, y0 as f32)),
+                view.screen_from_image(pos2(x1 as f32, y1 as f32)),
+            );
+            if rect.intersects(clip) {
+                painter.image(h.id(), rect, Rect::from_min_max(Pos2::ZERO, pos2(1.0, 1.0)), tint);
+            }
+        }
+    }
+}
+
+fn tile_image(w: usize, h: usize, side: usize, t: usize, f: &dyn Fn(usize) -> Color32) -> ColorImage {
+    let tx = w.div_ceil(side);
+    let (x0, y0) = ((t % tx) * side, (t / tx) * side);
+    let (x1, y1) = ((x0 + side).min(w), (y0 + side).min(h));
+    let mut pixels = Vec::with_capacity((x1 - x0) * (y1 - y0));
+    for y in y0..y1 {
+        for x in x0..x1 {
+            pixels.push(f(y * w + x));
+        }
+    }
+    ColorImage::new([x1 - x0, y1 - y0], pixels)
+}
+
+/// The overlay colour of a mask pixel.
+#[must_use]
+pub fn overlay(mask: &Mask, colour: Color32, i: usize) -> Color32 {
+    if mask.bits()[i] { colour } else { Color32::TRANSPARENT }
+}
+
+/// Marks (or clears) a disk of `radius` pixels around `centre` (image coordinates); calls `before`
+/// with each pixel about to change. Returns the changed rectangle.
+pub fn stamp(
+    mask: &mut Mask,
+    centre: Pos2,
+    radius: f32,
+    value: bool,
+    before: &mut dyn FnMut(&Mask, usize, usize),
+) -> Option<(usize, usize, usize, usize)> {
+    let (w, h) = (mask.width(), mask.height());
+    #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss, clippy::cast_precision_loss)]
+    let (x0, y0, x1, y1) = (
+        (centre.x - radius).floor().max(0.0) as usize,
+        (centre.y - radius).floor().max(0.0) as usize,
+        ((centre.x + radius).ceil().max(0.0) as usize).min(w),
+        ((centre.y + radius).ceil().max(0.0) as usize).min(h),
+    );
+    if x0 >= x1 || y0 >= y1 {
+        return None;
+    }
+    let r2 = radius * radius;
+    let mut changed = false;
+    for y in y0..y1 {
+        for x in x0..x1 {
+            #[allow(clippy::cast_precision_loss)]
+            let d = vec2(x as f32 + 0.5 - centre.x, y as f32 + 0.5 - centre.y);
+            if d.length_sq() <= r2 && mask.get(x, y) != value {
+                before(mask, x, y);
+                mask.set(x, y, value);
+                changed = true;
+            }
+        }
+    }
+    changed.then_some((x0, y0, x1, y1))
+}

@@ -1,0 +1,120 @@
+//! Background work for the window: loading, filling and saving run on named threads that report
+//! through a channel and ask for a repaint, so the window never blocks. A fill can be cancelled.
+
+use std::path::PathBuf;
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::mpsc::{Receiver, Sender, channel};
+
+use crate::fill::{FillParams, FillReport, Solver, Start};
+use crate::mask::Mask;
+use crate::raster::{self, Raster};
+
+/// What a worker reports.
+pub enum Message {
+    Loaded { path: PathBuf, raster: Box<Raster>, mask: Option<Mask> },
+    Progress { cycle: usize, max_cycles: usize, residual: f64 },
+    Filled { planes: Vec<Vec<f32>>, report: FillReport, mask: Mask },
+    Saved { path: PathBuf, notes: Vec<String> },
+    Failed(String),
+}
+
+/// A running job.
+pub struct Worker {
+    pub what: &'static str,
+    pub receiver: Receiver<Message>,
+    cancel: Arc<AtomicBool>,
+}
+
+impl Worker {
+    /// Asks the job to stop (fills stop at the next cycle; nothing is changed).
+    pub fn cancel(&self) {
+        self.cancel.store(true, Ordering::Relaxed);
+    }
+
+    fn spawn(
+        what: &'static str,
+        repaint: impl Fn() + Send + 'static,
+        job: impl FnOnce(&Sender<Message>, &AtomicBool) + Send + 'static,
+    ) -> Self {
+        let (tx, rx) = channel();
+        let cancel = Arc::new(AtomicBool::new(false));
+        let flag = Arc::clone(&cancel);
+        let spawned = std::thread::Builder::new().name(format!("reweave-{what}")).spawn(move || {
+            job(&tx, &flag);
+            repaint();
+        });
+        if let Err(e) = spawned {
+            let (tx, rx2) = channel();
+            let _ = tx.send(Message::Failed(format!("could not start the {what} thread: {e}")));
+            return Self { what, receiver: rx2, cancel };
+        }
+        Self { what, receiver: rx, cancel }
+    }
+
+    /// Loads an image (and optionally a mask of its size).
+    pub fn load(path: PathBuf, mask_path: Option<PathBuf>, repaint: impl Fn() + Send + 'static) -> Self {
+        Self::spawn("load", repaint, move |tx, _| {
+            let msg = match raster::load(&path) {
+                Ok(r) => match mask_path.map(|m| raster::load_mask(&m, r.width, r.height)).transpose() {
+                    Ok(mask) => Message::Loaded { path, raster: Box::new(r), mask },
+                    Err(e) => Message::Failed(e.to_string()),
+                },
+                Err(e) => Message::Failed(e.to_string()),
+            };
+            let _ = tx.send(msg);
+        })
+    }
+
+    /// Fills `planes` under `mask`.
+    pub fn fill(
+        mut planes: Vec<Vec<f32>>,
+        mask: Mask,
+        params: FillParams,
+        start: Start,
+        repaint: impl Fn() + Send + Sync + 'static,
+    ) -> Self {
+        let repaint = Arc::new(repaint);
+        let ping = Arc::clone(&repaint);
+        Self::spawn(
+            "fill",
+            move || repaint(),
+            move |tx, cancel| {
+                let solver = match Solver::new(&mask) {
+                    Ok(s) => s,
+                    Err(e) => {
+                        let _ = tx.send(Message::Failed(e.to_string()));
+                        return;
+                    }
+                };
+                let progress_tx = tx.clone();
+                let mut views: Vec<&mut [f32]> = planes.iter_mut().map(Vec::as_mut_slice).collect();
+                let result = solver.solve(&mut views, &params, start, &mut |p| {
+                    let _ = progress_tx.send(Message::Progress {
+                        cycle: p.cycle,
+                        max_cycles: p.max_cycles,
+                        residual: p.residual,
+                    });
+                    ping();
+                    !cancel.load(Ordering::Relaxed)
+                });
+                let msg = match result {
+                    Ok(report) => Message::Filled { planes, report, mask },
+                    Err(e) => Message::Failed(e.to_string()),
+                };
+                let _ = tx.send(msg);
+            },
+        )
+    }
+
+    /// Saves a raster (result) to `path`.
+    pub fn save(raster: Raster, path: PathBuf, repaint: impl Fn() + Send + 'static) -> Self {
+        Self::spawn("save", repaint, move |tx, _| {
+            let msg = match raster::save_noting(&raster, &path) {
+                Ok(notes) => Message::Saved { path, notes },
+                Err(e) => Message::Failed(e.to_string()),
+            };
+            let _ = tx.send(msg);
+        })
+    }
+}

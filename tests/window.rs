@@ -1,0 +1,144 @@
+//! The window, driven as a user drives it (egui_kittest, through the accessibility tree and
+//! pointer events): open an image, paint a stroke, fill, undo and redo, compare, save.
+
+use std::path::Path;
+
+use egui::Pos2;
+use egui_kittest::Harness;
+use egui_kittest::kittest::Queryable;
+use reweave::gui::{App, Compare};
+use reweave::raster::{self, Layout, Raster, SampleFormat};
+
+fn fixture(dir: &Path) -> std::path::PathBuf {
+    let mut r = Raster::new(64, 48, Layout::Rgb, SampleFormat::U8);
+    for (c, p) in r.planes.iter_mut().enumerate() {
+        for (i, v) in p.iter_mut().enumerate() {
+            let (x, y) = ((i % 64) as f32, (i / 64) as f32);
+            // A smooth scene with a bright scratch along row 24, which the stroke covers.
+            *v = if (23..=25).contains(&(i / 64)) && (22..42).contains(&(i % 64)) {
+                255.0
+            } else {
+                (120.0 + 50.0 * (x / 6.0 + c as f32).sin() * (y / 8.0).cos()).round()
+            };
+        }
+    }
+    let path = dir.join("card.png");
+    raster::save(&r, &path).unwrap();
+    path
+}
+
+fn harness() -> Harness<'static, App> {
+    Harness::builder().with_size((1200.0, 800.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default())
+}
+
+/// Steps until background work is done (at most about 10 s).
+fn settle(h: &mut Harness<'_, App>) {
+    for _ in 0..1000 {
+        h.step();
+        if !h.state().busy() {
+            h.step();
+            return;
+        }
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    }
+    panic!("background work did not finish");
+}
+
+#[test]
+fn open_paint_fill_undo_compare_save() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture(dir.path());
+    let mut h = harness();
+    h.state_mut().open_field = input.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(&mut h);
+    assert!(h.state().doc.is_some(), "opened: {}", h.state().status);
+
+    // Paint a horizontal stroke across the middle of the image.
+    h.state_mut().radius = 2.0;
+    let view = h.state().view;
+    let a = view.screen_from_image(Pos2::new(20.0, 24.0));
+    let b = view.screen_from_image(Pos2::new(44.0, 24.0));
+    h.hover_at(a);
+    h.step();
+    h.drag_at(a);
+    h.step();
+    for k in 1..=10 {
+        h.hover_at(a + (b - a) * (k as f32 / 10.0));
+        h.step();
+    }
+    h.drop_at(b);
+    h.run();
+    let painted = h.state().doc.as_ref().unwrap().mask.count();
+    assert!(painted > 40, "the stroke marked {painted} pixels");
+    assert!(h.state().doc.as_ref().unwrap().mask.get(32, 24));
+
+    // Fill in the background; only masked samples change.
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    {
+        let d = h.state().doc.as_ref().unwrap();
+        let result = d.result.as_ref().expect("a result");
+        let mut changed = 0;
+        for (p, o) in result.iter().zip(&d.original.planes) {
+            for (i, (&a, &b)) in p.iter().zip(o).enumerate() {
+                if d.mask.bits()[i] {
+                    changed += usize::from(a != b);
+                } else {
+                    assert_eq!(a.to_bits(), b.to_bits(), "pixel {i} outside the mask changed");
+                }
+            }
+        }
+        assert!(changed > 0);
+        assert!(h.state().last_fill.is_some());
+    }
+
+    // Undo and redo the stroke.
+    h.get_by_label("Undo").click();
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0);
+    h.get_by_label("Redo").click();
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), painted);
+
+    // Compare modes.
+    for (label, mode) in [("Split", Compare::Split), ("Before", Compare::Before), ("After", Compare::After)] {
+        h.get_by_label(label).click();
+        h.run();
+        assert_eq!(h.state().compare, mode);
+    }
+    h.key_press(egui::Key::B);
+    h.run();
+    assert_eq!(h.state().compare, Compare::Blink);
+    assert!(h.state().blink_before);
+
+    // Save and read back: the repaired pixels and the rest, exactly.
+    let out = dir.path().join("card-repaired.png");
+    h.state_mut().save_field = out.display().to_string();
+    h.run();
+    h.get_by_label("Save result").click();
+    settle(&mut h);
+    let saved = raster::load(&out).unwrap_or_else(|_| panic!("{}", h.state().status));
+    let d = h.state().doc.as_ref().unwrap();
+    let expected = d.result_raster();
+    for (a, b) in saved.planes.iter().zip(&expected.planes) {
+        for (x, y) in a.iter().zip(b) {
+            assert_eq!(*x, SampleFormat::U8.quantize(*y));
+        }
+    }
+}
+
+#[test]
+fn a_file_that_fails_says_why_in_the_status() {
+    let dir = tempfile::tempdir().unwrap();
+    let bad = dir.path().join("notes.png");
+    std::fs::write(&bad, "not an image").unwrap();
+    let mut h = harness();
+    h.state_mut().open_field = bad.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(&mut h);
+    assert!(h.state().doc.is_none());
+    assert!(h.state().status.contains("notes.png"), "{}", h.state().status);
+}

@@ -258,3 +258,25 @@ fn a_header_claiming_ten_gigapixels_is_refused_quickly() {
     assert!(err.contains("huge.png") && err.contains("--max-megapixels"), "{err}");
     assert!(elapsed.as_secs_f64() < 1.0, "refused in {elapsed:?}");
 }
+
+#[test]
+fn jpeg_keeps_its_icc_profile_and_warns_that_it_is_lossy() {
+    // JPEG carries ICC profiles in APP2 segments (ICC.1 Annex B); the bytes here are a stand-in.
+    let dir = tempfile::tempdir().unwrap();
+    let mut r = Raster::new(48, 32, Layout::Rgb, SampleFormat::U8);
+    for (c, p) in r.planes.iter_mut().enumerate() {
+        for (i, v) in p.iter_mut().enumerate() {
+            *v = ((i % 48) * 4 + c * 20) as f32;
+        }
+    }
+    let profile: Vec<u8> = (0..500u32).map(|i| (i * 13 % 251) as u8).collect();
+    r.metadata.icc_profile = Some(profile.clone());
+    let input = dir.path().join("photo.jpg");
+    raster::save(&r, &input).unwrap();
+    let mask = dir.path().join("m.png");
+    raster::save_mask(&Mask::from_fn(48, 32, |x, y| (20..24).contains(&x) && (10..20).contains(&y)), &mask).unwrap();
+    let out = dir.path().join("out.jpg");
+    let err = fill_ok(&[os("fill"), os(&input), os("--mask"), os(&mask), os("-o"), os(&out)]);
+    assert!(err.contains("lossy"), "{err}");
+    assert_eq!(raster::load(&out).unwrap().metadata.icc_profile, Some(profile));
+}

@@ -142,3 +142,26 @@ fn a_file_that_fails_says_why_in_the_status() {
     assert!(h.state().doc.is_none());
     assert!(h.state().status.contains("notes.png"), "{}", h.state().status);
 }
+
+#[test]
+fn a_geotiff_with_a_void_opens_with_the_void_marked_and_saves_with_its_tags() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-images/island-elevation.tif");
+    let mut h = harness();
+    h.state_mut().open_field = input.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(&mut h);
+    // The sample's void is 1258 pixels of -32768, its declared no-data (GDAL_NODATA).
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 1258, "{}", h.state().status);
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    let out = dir.path().join("island-filled.tif");
+    h.state_mut().save_field = out.display().to_string();
+    h.run();
+    h.get_by_label("Save result").click();
+    settle(&mut h);
+    let saved = raster::load(&out).unwrap_or_else(|_| panic!("{}", h.state().status));
+    assert!(saved.planes[0].iter().all(|&v| v != -32768.0), "no void left");
+    assert_eq!(saved.metadata.tiff.as_ref().unwrap().tags, raster::load(&input).unwrap().metadata.tiff.unwrap().tags);
+}

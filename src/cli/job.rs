@@ -11,7 +11,9 @@ use anyhow::{Context, Result, bail};
 use super::same_file;
 use crate::fill::{FillError, FillParams, FillReport, Solver, Start};
 use crate::mask::{Hole, HoleStats, Mask};
-use crate::raster::{self, FileFormat, Raster, RasterError, SampleFormat};
+pub(crate) use crate::raster::nodata::parse_nodata;
+use crate::raster::nodata::{keep_off_nodata, missing_samples};
+use crate::raster::{self, FileFormat, RasterError};
 use crate::report::{FileRecord, HOLE_LIST_MAX, Inputs, Report};
 
 /// A mask file read once and shared by every job, with its hash and (once built) its solver.
@@ -81,15 +83,6 @@ impl Outcome {
             self.fill.setup_seconds + self.fill.solve_seconds,
         )
     }
-}
-
-/// Parses a no-data value: a number, or "nan" (any case), as GDAL writes them.
-pub(crate) fn parse_nodata(text: &str) -> Option<f64> {
-    let t = text.trim().trim_end_matches('\0').trim();
-    if t.eq_ignore_ascii_case("nan") || t.eq_ignore_ascii_case("-nan") {
-        return Some(f64::NAN);
-    }
-    t.parse::<f64>().ok()
 }
 
 impl Job<'_> {
@@ -205,7 +198,7 @@ impl Job<'_> {
             .solve(&mut image.planes_mut(), self.params, Start::FullMultigrid, &mut |_| true)
             .with_context(|| format!("filling '{}'", input.display()))?;
         if let Some(v) = nodata {
-            let moved = keep_off_nodata(&mut image, &mask, v);
+            let moved = keep_off_nodata(&mut image.planes, image.sample_format, &mask, v);
             if moved > 0 {
                 say(format!(
                     "moved {moved} filled samples of '{}' one step off the no-data value {v}",
@@ -275,45 +268,4 @@ fn merge(mask: &mut Mask, extra: &Mask) -> bool {
         *m |= e;
     }
     added
-}
-
-/// Pixels to fill because a sample holds the no-data value or is not a finite number.
-fn missing_samples(image: &Raster, nodata: Option<f64>) -> Mask {
-    let n = image.width * image.height;
-    let mut bits = vec![false; n];
-    for plane in &image.planes {
-        for (b, &v) in bits.iter_mut().zip(plane) {
-            let hit = !v.is_finite() || nodata.is_some_and(|d| if d.is_nan() { v.is_nan() } else { f64::from(v) == d });
-            *b |= hit;
-        }
-    }
-    Mask::from_bits(image.width, image.height, bits)
-}
-
-/// Moves filled samples that would be stored as the no-data value one step off it, so the output
-/// holds no false no-data pixels. Returns how many were moved.
-fn keep_off_nodata(image: &mut Raster, mask: &Mask, nodata: f64) -> usize {
-    if nodata.is_nan() {
-        return 0; // a fill is never NaN
-    }
-    let fmt = image.sample_format;
-    let mut moved = 0;
-    for plane in &mut image.planes {
-        for (v, &m) in plane.iter_mut().zip(mask.bits()) {
-            if !m || f64::from(fmt.quantize(*v)) != nodata {
-                continue;
-            }
-            let q = fmt.quantize(*v);
-            *v = if fmt == SampleFormat::F32 {
-                let up = f32::from_bits(q.to_bits() + 1);
-                if up.is_finite() { up } else { f32::from_bits(q.to_bits() - 1) }
-            } else if fmt.quantize(q + 1.0) != q && (*v >= q || fmt.quantize(q - 1.0) == q) {
-                q + 1.0
-            } else {
-                q - 1.0
-            };
-            moved += 1;
-        }
-    }
-    moved
 }

@@ -44,6 +44,8 @@ pub struct Document {
     pub mask: Mask,
     pub holes: HoleStats,
     pub stretch: Stretch,
+    /// The no-data value the file declares, kept off by filled samples.
+    pub nodata: Option<f64>,
 }
 
 impl Document {
@@ -51,7 +53,7 @@ impl Document {
         let mask = mask.unwrap_or_else(|| Mask::new(original.width, original.height));
         let holes = mask.hole_stats();
         let stretch = Stretch::of(&original);
-        Self { path, original, result: None, mask, holes, stretch }
+        Self { path, original, result: None, mask, holes, stretch, nodata: None }
     }
 
     /// The result as a raster in the input's format (the original where nothing was filled).
@@ -557,7 +559,19 @@ impl App {
                     if self.mask_field.is_empty() {
                         self.mask_field = sibling(&path, "-mask").with_extension("png").display().to_string();
                     }
-                    self.doc = Some(Document::new(path, *raster, mask));
+                    // No-data and NaN samples are damage too: mark them from the start.
+                    let nodata = raster.metadata.nodata.as_deref().and_then(raster::nodata::parse_nodata);
+                    let missing = raster::nodata::missing_samples(&raster, nodata);
+                    let mut doc = Document::new(path, *raster, mask);
+                    if !missing.is_empty() {
+                        for (m, &x) in doc.mask.bits_mut().iter_mut().zip(missing.bits()) {
+                            *m |= x;
+                        }
+                        doc.holes = doc.mask.hole_stats();
+                        self.status.push_str(&format!("; {} no-data or NaN pixels are marked", missing.count()));
+                    }
+                    doc.nodata = nodata;
+                    self.doc = Some(doc);
                     self.textures = None;
                     self.history = History::default();
                     self.view.fit_pending = true;
@@ -567,6 +581,10 @@ impl App {
                 Message::Filled { planes, report, mask } => {
                     if let Some(d) = &mut self.doc {
                         self.status = format!("filled {} pixels. {CAUTION}", mask.count());
+                        let mut planes = planes;
+                        if let Some(v) = d.nodata {
+                            raster::nodata::keep_off_nodata(&mut planes, d.original.sample_format, &mask, v);
+                        }
                         d.result = Some(planes);
                         if let Some(t) = &mut self.textures {
                             t.after = None;

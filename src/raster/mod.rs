@@ -8,6 +8,7 @@
 //! the `tiff` crate, JPEG through the `image` crate.
 
 mod codec;
+pub mod nodata;
 mod png_io;
 mod tiff_io;
 mod tiff_tags;

@@ -165,3 +165,26 @@ fn a_geotiff_with_a_void_opens_with_the_void_marked_and_saves_with_its_tags() {
     assert!(saved.planes[0].iter().all(|&v| v != -32768.0), "no void left");
     assert_eq!(saved.metadata.tiff.as_ref().unwrap().tags, raster::load(&input).unwrap().metadata.tiff.unwrap().tags);
 }
+
+#[test]
+fn found_damage_is_shown_for_review_then_added() {
+    let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-images/starfield-frame.tif");
+    let mut h = harness();
+    h.state_mut().open_field = input.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(&mut h);
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0);
+    h.get_by_label("Find").click();
+    settle(&mut h);
+    let found = h.state().proposal.as_ref().expect("a proposal").count();
+    assert!(found > 250, "the dead column and the hot and dead pixels: {found}");
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0, "nothing joins the mask before review");
+    h.get_by_label("Add").click();
+    h.run();
+    assert!(h.state().proposal.is_none());
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), found);
+    h.get_by_label("Undo").click();
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0, "adding is undoable");
+}

@@ -84,6 +84,10 @@ pub struct BatchArgs {
     #[arg(long, default_value_t = 1024, value_name = "MP")]
     pub max_megapixels: u64,
 
+    /// Largest decoded image accepted, in gigabytes of memory.
+    #[arg(long, default_value_t = 8, value_name = "GB")]
+    pub max_gigabytes: u64,
+
     /// No progress bar, no warnings; only the summary and errors.
     #[arg(short, long)]
     pub quiet: bool,
@@ -183,8 +187,10 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
         None => None,
     };
     let params = FillParams { tolerance: args.tolerance, ..FillParams::default() };
-    let limits =
-        raster::Limits { max_pixels: args.max_megapixels.saturating_mul(1_000_000), ..raster::Limits::default() };
+    let limits = raster::Limits {
+        max_pixels: args.max_megapixels.saturating_mul(1_000_000),
+        max_bytes: args.max_gigabytes.saturating_mul(1 << 30),
+    };
 
     let bar = if args.quiet {
         ProgressBar::hidden()

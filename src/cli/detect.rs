@@ -70,6 +70,25 @@ pub struct DetectOptions {
     pub max_size: Option<usize>,
 }
 
+impl Default for DetectOptions {
+    /// The command line's defaults.
+    fn default() -> Self {
+        Self {
+            k: 5.0,
+            sharpness: 2.0,
+            share: 0.5,
+            element: 7,
+            min_length: 15,
+            value: None,
+            within: 0.0,
+            seed: None,
+            grow: 0,
+            min_size: None,
+            max_size: None,
+        }
+    }
+}
+
 /// Find damaged pixels and write them as a mask (PNG, white = damaged).
 ///
 /// For every method but stack, several inputs (of one size) are each searched and the results
@@ -127,7 +146,7 @@ fn parse_seed(text: &str) -> Option<(usize, usize)> {
 }
 
 /// Runs a single-image method on one raster.
-pub(crate) fn detect_one(method: Method, image: &Raster, o: &DetectOptions) -> Result<Mask> {
+pub fn detect_one(method: Method, image: &Raster, o: &DetectOptions) -> Result<Mask> {
     let (w, h) = (image.width, image.height);
     let mut mask = match method {
         Method::Outliers => detect::outliers(

@@ -97,6 +97,10 @@ pub struct FillArgs {
     #[arg(long, default_value_t = 1024, value_name = "MP")]
     pub max_megapixels: u64,
 
+    /// Largest decoded image accepted, in gigabytes of memory.
+    #[arg(long, default_value_t = 8, value_name = "GB")]
+    pub max_gigabytes: u64,
+
     /// Print nothing but errors.
     #[arg(short, long)]
     pub quiet: bool,
@@ -197,7 +201,7 @@ pub(super) fn run(args: &FillArgs) -> Result<()> {
         params,
         limits: raster::Limits {
             max_pixels: args.max_megapixels.saturating_mul(1_000_000),
-            ..raster::Limits::default()
+            max_bytes: args.max_gigabytes.saturating_mul(1 << 30),
         },
         detect: None,
     };

@@ -18,7 +18,7 @@ use clap::{Parser, Subcommand};
 
 pub use batch::BatchArgs;
 pub use bench::BenchArgs;
-pub use detect::DetectArgs;
+pub use detect::{DetectArgs, DetectOptions, Method as DetectMethod, detect_one};
 pub use fill::FillArgs;
 pub use samples::SamplesArgs;
 

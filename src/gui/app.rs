@@ -72,6 +72,7 @@ struct Textures {
     before: Tiles,
     after: Option<Tiles>,
     overlay: Tiles,
+    proposal: Option<Tiles>,
 }
 
 /// A command from a panel or a key.
@@ -88,6 +89,13 @@ pub enum Command {
     InvertMask,
     Fit,
     OneToOne,
+    /// Look for damage with a detector; the result is shown for review.
+    Find(crate::cli::DetectMethod),
+    /// Add the proposal to the mask, or replace the mask with it, or drop it.
+    AcceptProposal {
+        replace: bool,
+    },
+    DiscardProposal,
 }
 
 /// A stroke in progress.
@@ -119,6 +127,9 @@ pub struct App {
     pub progress: Option<(usize, usize, f64)>,
     pub show_help: bool,
     pub cursor: Option<(usize, usize)>,
+    /// Damage found by a detector, shown for review before it joins the mask.
+    pub proposal: Option<Mask>,
+    pub find_method: crate::cli::DetectMethod,
     worker: Option<Worker>,
     textures: Option<Textures>,
     stroke: Option<StrokeState>,
@@ -147,6 +158,8 @@ impl Default for App {
             progress: None,
             show_help: false,
             cursor: None,
+            proposal: None,
+            find_method: crate::cli::DetectMethod::Outliers,
             worker: None,
             textures: None,
             stroke: None,
@@ -296,6 +309,35 @@ impl App {
             }
         });
         ui.checkbox(&mut self.overlay_visible, "Show mask (M)");
+        ui.separator();
+        ui.heading("Detect");
+        egui::ComboBox::from_label("Method").selected_text(format!("{:?}", self.find_method)).show_ui(ui, |ui| {
+            use crate::cli::DetectMethod as M;
+            for m in [M::Outliers, M::Lines, M::Scratches, M::Nodata] {
+                ui.selectable_value(&mut self.find_method, m, format!("{m:?}"));
+            }
+        });
+        match &self.proposal {
+            None => {
+                if ui.add_enabled(self.doc.is_some() && self.worker.is_none(), egui::Button::new("Find")).clicked() {
+                    out.push(Command::Find(self.find_method));
+                }
+            }
+            Some(p) => {
+                ui.label(format!("found {} px (cyan)", p.count()));
+                ui.horizontal(|ui| {
+                    if ui.button("Add").clicked() {
+                        out.push(Command::AcceptProposal { replace: false });
+                    }
+                    if ui.button("Replace").clicked() {
+                        out.push(Command::AcceptProposal { replace: true });
+                    }
+                    if ui.button("Discard").clicked() {
+                        out.push(Command::DiscardProposal);
+                    }
+                });
+            }
+        }
         let mut alpha = f32::from(self.overlay_colour.a()) / 255.0;
         if ui.add(egui::Slider::new(&mut alpha, 0.1..=1.0).text("Opacity")).changed() {
             let [r, g, b, _] = self.overlay_colour.to_srgba_unmultiplied();
@@ -513,6 +555,13 @@ impl App {
         if self.overlay_visible {
             textures.overlay.paint(&painter, &self.view, rect, Color32::WHITE);
         }
+        if let Some(p) = &self.proposal {
+            let tiles = textures.proposal.get_or_insert_with(|| {
+                let cyan = Color32::from_rgba_unmultiplied(0, 230, 255, 170);
+                Tiles::new(&ctx, "proposal", p.width(), p.height(), OVERLAY_TILE, &|i| canvas::overlay(p, cyan, i))
+            });
+            tiles.paint(&painter, &self.view, rect, Color32::WHITE);
+        }
         // Pixel grid from 8× up.
         if self.view.zoom >= 8.0 {
             let img = Rect::from_min_max(
@@ -572,6 +621,7 @@ impl App {
                     }
                     doc.nodata = nodata;
                     self.doc = Some(doc);
+                    self.proposal = None;
                     self.textures = None;
                     self.history = History::default();
                     self.view.fit_pending = true;
@@ -600,6 +650,17 @@ impl App {
                     self.status = format!("saved {}", path.display());
                     if !notes.is_empty() {
                         self.status.push_str(&format!(" ({})", notes.join("; ")));
+                    }
+                    finished = true;
+                }
+                Message::Detected { mask, method } => {
+                    self.status = format!(
+                        "{method:?}: found {} pixels; review them (cyan), then Add, Replace or Discard",
+                        mask.count()
+                    );
+                    self.proposal = Some(mask);
+                    if let Some(t) = &mut self.textures {
+                        t.proposal = None;
                     }
                     finished = true;
                 }
@@ -709,6 +770,32 @@ impl App {
                 d.holes = d.mask.hole_stats();
                 self.textures = None;
             }
+            Command::Find(method) => {
+                let Some(d) = &self.doc else { return };
+                if self.worker.is_some() {
+                    return;
+                }
+                self.status = format!("looking for damage ({method:?})…");
+                self.worker = Some(Worker::detect(d.original.clone(), method, repaint));
+            }
+            Command::AcceptProposal { replace } => {
+                let (Some(d), Some(p)) = (&mut self.doc, self.proposal.take()) else { return };
+                let mut edit = Edit::default();
+                edit.save_all(&d.mask);
+                for (m, &x) in d.mask.bits_mut().iter_mut().zip(p.bits()) {
+                    *m = x || (*m && !replace);
+                }
+                self.history.push(edit);
+                d.holes = d.mask.hole_stats();
+                self.overlay_visible = true;
+                self.textures = None;
+            }
+            Command::DiscardProposal => {
+                self.proposal = None;
+                if let Some(t) = &mut self.textures {
+                    t.proposal = None;
+                }
+            }
             Command::Fit => self.view.fit_pending = true,
             Command::OneToOne => {
                 let centre = self.view.screen_from_image(Pos2::ZERO);
@@ -743,7 +830,7 @@ fn make_textures(ctx: &egui::Context, d: &Document, colour: Color32) -> Textures
     let before = Tiles::new(ctx, "before", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i));
     let overlay = Tiles::new(ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::overlay(&d.mask, colour, i));
     let after = d.result.as_ref().map(|_| after_tiles(ctx, d));
-    Textures { before, after, overlay }
+    Textures { before, after, overlay, proposal: None }
 }
 
 fn after_tiles(ctx: &egui::Context, d: &Document) -> Tiles {

@@ -16,6 +16,7 @@ pub enum Message {
     Progress { cycle: usize, max_cycles: usize, residual: f64 },
     Filled { planes: Vec<Vec<f32>>, report: FillReport, mask: Mask },
     Saved { path: PathBuf, notes: Vec<String> },
+    Detected { mask: Mask, method: crate::cli::DetectMethod },
     Failed(String),
 }
 
@@ -105,6 +106,17 @@ impl Worker {
                 let _ = tx.send(msg);
             },
         )
+    }
+
+    /// Looks for damage in `raster` with `method`.
+    pub fn detect(raster: Raster, method: crate::cli::DetectMethod, repaint: impl Fn() + Send + 'static) -> Self {
+        Self::spawn("search", repaint, move |tx, _| {
+            let msg = match crate::cli::detect_one(method, &raster, &crate::cli::DetectOptions::default()) {
+                Ok(mask) => Message::Detected { mask, method },
+                Err(e) => Message::Failed(format!("{e:#}")),
+            };
+            let _ = tx.send(msg);
+        })
     }
 
     /// Saves a raster (result) to `path`.

@@ -378,7 +378,7 @@ pub enum RasterError {
     #[error("'{path}' holds {what}, which reweave cannot read yet")]
     Unsupported { path: PathBuf, what: String },
     #[error(
-        "'{path}' claims {width}×{height} pixels, more than the limit of {limit} pixels; if the file is genuine, raise the limit with --max-megapixels"
+        "'{path}' claims {width}×{height} pixels, more than the limit of {limit} pixels (or more memory than --max-gigabytes allows); if the file is genuine, raise the limit with --max-megapixels or --max-gigabytes"
     )]
     TooLarge { path: PathBuf, width: u64, height: u64, limit: u64 },
     #[error("cannot tell the format of '{path}' from its extension; use .png, .tif or .jpg")]

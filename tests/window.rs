@@ -188,3 +188,61 @@ fn found_damage_is_shown_for_review_then_added() {
     h.run();
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0, "adding is undoable");
 }
+
+#[test]
+fn box_pick_grow_shrink_and_difference() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture(dir.path());
+    let mut h = harness();
+    h.state_mut().open_field = input.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(&mut h);
+
+    // Box: drag from (10, 10) to (20, 16) in image pixels.
+    h.get_by_label("Box").click();
+    h.run();
+    let view = h.state().view;
+    let (a, b) = (view.screen_from_image(Pos2::new(10.0, 10.0)), view.screen_from_image(Pos2::new(20.0, 16.0)));
+    h.hover_at(a);
+    h.step();
+    h.drag_at(a);
+    h.step();
+    for k in 1..=5 {
+        h.hover_at(a + (b - a) * (k as f32 / 5.0));
+        h.step();
+    }
+    h.drop_at(b);
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60, "a 10×6 box");
+
+    // Grow by 1 (an octagon step: 4-neighbours first) and shrink back.
+    h.get_by_label("Grow").click();
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60 + 2 * 10 + 2 * 6);
+    h.get_by_label("Shrink").click();
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60);
+
+    // Pick by value: the bright scratch (255) is one connected region of 3 rows × 20 columns.
+    h.get_by_label("Clear").click();
+    h.run();
+    h.get_by_label("Pick by value").click();
+    h.run();
+    h.state_mut().pick_tolerance = 1.0;
+    let p = h.state().view.screen_from_image(Pos2::new(30.5, 24.5));
+    h.hover_at(p);
+    h.step();
+    h.drag_at(p);
+    h.step();
+    h.drop_at(p);
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60, "{}", h.state().status);
+
+    // Difference after a fill.
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    h.get_by_label("Difference").click();
+    h.run();
+    assert_eq!(h.state().compare, Compare::Difference);
+}

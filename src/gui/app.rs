@@ -20,6 +20,10 @@ pub const CAUTION: &str = "Filled pixels are estimates, not measurements.";
 pub enum Tool {
     Brush,
     Eraser,
+    /// Drag a rectangle to mark.
+    Box,
+    /// Click a pixel: mark the connected pixels within a tolerance of its value (or all such).
+    Pick,
 }
 
 /// What the canvas shows.
@@ -33,6 +37,8 @@ pub enum Compare {
     Split,
     /// Before and after alternating on a key (B).
     Blink,
+    /// |after − before| as a heat map.
+    Difference,
 }
 
 /// The open image and everything made from it.
@@ -71,6 +77,8 @@ impl Document {
 struct Textures {
     before: Tiles,
     after: Option<Tiles>,
+    /// The difference heat map and its largest value.
+    difference: Option<(Tiles, f32)>,
     overlay: Tiles,
     proposal: Option<Tiles>,
 }
@@ -96,6 +104,12 @@ pub enum Command {
         replace: bool,
     },
     DiscardProposal,
+    /// Mark a rectangle of image pixels `(x0, y0, x1, y1)`, ends exclusive.
+    MarkBox(usize, usize, usize, usize),
+    /// Mark by the value of the pixel at `(x, y)`.
+    Pick(usize, usize),
+    Grow(usize),
+    Shrink(usize),
 }
 
 /// A stroke in progress.
@@ -130,6 +144,15 @@ pub struct App {
     /// Damage found by a detector, shown for review before it joins the mask.
     pub proposal: Option<Mask>,
     pub find_method: crate::cli::DetectMethod,
+    /// Pick by value: tolerance in the image's units, and whether to take all such pixels.
+    pub pick_tolerance: f64,
+    pub pick_all: bool,
+    /// Pixels to grow or shrink the mask by.
+    pub mask_steps: usize,
+    /// A result not saved since the last fill.
+    pub unsaved: bool,
+    pub close_prompt: bool,
+    box_anchor: Option<Pos2>,
     worker: Option<Worker>,
     textures: Option<Textures>,
     stroke: Option<StrokeState>,
@@ -160,6 +183,12 @@ impl Default for App {
             cursor: None,
             proposal: None,
             find_method: crate::cli::DetectMethod::Outliers,
+            pick_tolerance: 8.0,
+            pick_all: false,
+            mask_steps: 1,
+            unsaved: false,
+            close_prompt: false,
+            box_anchor: None,
             worker: None,
             textures: None,
             stroke: None,
@@ -201,6 +230,29 @@ impl App {
         egui::CentralPanel::default().show(ui, |ui| commands.extend(self.canvas_ui(ui)));
         if self.show_help {
             self.help_ui(&ctx);
+        }
+        if ctx.input(|i| i.viewport().close_requested()) && self.unsaved {
+            ctx.send_viewport_cmd(egui::ViewportCommand::CancelClose);
+            self.close_prompt = true;
+        }
+        if self.close_prompt {
+            egui::Window::new("Unsaved result").collapsible(false).resizable(false).show(&ctx, |ui| {
+                ui.label("The repaired image has not been saved.");
+                ui.horizontal(|ui| {
+                    if ui.button("Save and close").clicked() {
+                        commands.push(Command::SaveResult(PathBuf::from(self.save_field.trim())));
+                        self.close_prompt = false;
+                    }
+                    if ui.button("Close without saving").clicked() {
+                        self.unsaved = false;
+                        self.close_prompt = false;
+                        ctx.send_viewport_cmd(egui::ViewportCommand::Close);
+                    }
+                    if ui.button("Keep working").clicked() {
+                        self.close_prompt = false;
+                    }
+                });
+            });
         }
         for c in commands {
             self.run_command(&ctx, c);
@@ -290,6 +342,22 @@ impl App {
         ui.horizontal(|ui| {
             ui.selectable_value(&mut self.tool, Tool::Brush, "Brush");
             ui.selectable_value(&mut self.tool, Tool::Eraser, "Eraser");
+            ui.selectable_value(&mut self.tool, Tool::Box, "Box");
+            ui.selectable_value(&mut self.tool, Tool::Pick, "Pick by value");
+        });
+        if self.tool == Tool::Pick {
+            ui.add(egui::Slider::new(&mut self.pick_tolerance, 0.0..=65535.0).logarithmic(true).text("Within"));
+            ui.checkbox(&mut self.pick_all, "All such pixels");
+        }
+        ui.horizontal(|ui| {
+            let label = ui.label("By");
+            ui.add(egui::DragValue::new(&mut self.mask_steps).range(1..=100)).labelled_by(label.id);
+            if ui.button("Grow").clicked() {
+                out.push(Command::Grow(self.mask_steps));
+            }
+            if ui.button("Shrink").clicked() {
+                out.push(Command::Shrink(self.mask_steps));
+            }
         });
         ui.add(egui::Slider::new(&mut self.radius, 0.5..=200.0).logarithmic(true).text("Size"));
         ui.horizontal(|ui| {
@@ -385,6 +453,7 @@ impl App {
         ui.selectable_value(&mut self.compare, Compare::Before, "Before");
         ui.selectable_value(&mut self.compare, Compare::Split, "Split");
         ui.selectable_value(&mut self.compare, Compare::Blink, "Blink (B)");
+        ui.selectable_value(&mut self.compare, Compare::Difference, "Difference");
         ui.separator();
         ui.horizontal(|ui| {
             if ui.button("Fit").clicked() {
@@ -493,11 +562,50 @@ impl App {
             #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
             (q.x >= 0.0 && q.y >= 0.0 && q.x < size.x && q.y < size.y).then_some((q.x as usize, q.y as usize))
         });
-        // Painting.
-        if !panning && self.worker.is_none() && response.dragged_by(egui::PointerButton::Primary) {
+        let mut commands = Vec::new();
+        let pixel_at = |p: Pos2| -> Option<(usize, usize)> {
+            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+            (p.x >= 0.0 && p.y >= 0.0 && p.x < size.x && p.y < size.y).then_some((p.x as usize, p.y as usize))
+        };
+        if matches!(self.tool, Tool::Box | Tool::Pick) && !panning {
+            if self.tool == Tool::Pick
+                && response.clicked()
+                && let Some((x, y)) =
+                    response.interact_pointer_pos().and_then(|p| pixel_at(self.view.image_from_screen(p)))
+            {
+                commands.push(Command::Pick(x, y));
+            }
+            if self.tool == Tool::Box {
+                if response.drag_started_by(egui::PointerButton::Primary) {
+                    // From where the button went down, not where the drag was recognised.
+                    let origin = ui.ctx().input(|i| i.pointer.press_origin()).or(response.interact_pointer_pos());
+                    self.box_anchor = origin.map(|p| self.view.image_from_screen(p));
+                }
+                if let (Some(a), Some(p)) = (self.box_anchor, response.interact_pointer_pos()) {
+                    let b = self.view.image_from_screen(p);
+                    let r = Rect::from_two_pos(a, b);
+                    painter.rect_stroke(
+                        Rect::from_min_max(self.view.screen_from_image(r.min), self.view.screen_from_image(r.max)),
+                        0.0,
+                        Stroke::new(1.5, Color32::YELLOW),
+                        egui::StrokeKind::Middle,
+                    );
+                    if response.drag_stopped() {
+                        #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+                        let c = |v: f32, hi: f32| v.clamp(0.0, hi) as usize;
+                        let (x0, y0) = (c(r.min.x.floor(), size.x), c(r.min.y.floor(), size.y));
+                        let (x1, y1) = (c(r.max.x.ceil(), size.x), c(r.max.y.ceil(), size.y));
+                        commands.push(Command::MarkBox(x0, y0, x1, y1));
+                        self.box_anchor = None;
+                    }
+                }
+            }
+        } else if !panning && self.worker.is_none() && response.dragged_by(egui::PointerButton::Primary) {
             if let Some(p) = response.interact_pointer_pos() {
                 let here = self.view.image_from_screen(p);
-                let stroke = self.stroke.get_or_insert_with(|| StrokeState { edit: Edit::default(), last: here });
+                let origin =
+                    ui.ctx().input(|i| i.pointer.press_origin()).map_or(here, |p| self.view.image_from_screen(p));
+                let stroke = self.stroke.get_or_insert_with(|| StrokeState { edit: Edit::default(), last: origin });
                 let value = self.tool == Tool::Brush;
                 let step = (self.radius * 0.5).max(0.5);
                 let n = ((here - stroke.last).length() / step).ceil().max(1.0);
@@ -524,10 +632,45 @@ impl App {
         let show_before = match self.compare {
             Compare::Before => true,
             Compare::Blink => self.blink_before,
-            Compare::After | Compare::Split => false,
+            Compare::After | Compare::Split | Compare::Difference => false,
         };
+        if self.compare == Compare::Difference && textures.difference.is_none() {
+            textures.difference = Some(difference_tiles(&ctx, doc));
+        }
         let after = textures.after.as_ref().unwrap_or(&textures.before);
-        if self.compare == Compare::Split {
+        if let (Compare::Difference, Some((tiles, max))) = (self.compare, &textures.difference) {
+            tiles.paint(&painter, &self.view, rect, Color32::WHITE);
+            // Legend: black is no change, white the largest change, in the image's units.
+            let legend = Rect::from_min_size(rect.left_bottom() + Vec2::new(12.0, -34.0), Vec2::new(160.0, 10.0));
+            for k in 0..32 {
+                #[allow(clippy::cast_precision_loss, clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+                let c = heat(k as f32 / 31.0);
+                #[allow(clippy::cast_precision_loss)]
+                let x = legend.left() + legend.width() * k as f32 / 32.0;
+                painter.rect_filled(
+                    Rect::from_min_size(
+                        Pos2::new(x, legend.top()),
+                        Vec2::new(legend.width() / 32.0 + 0.5, legend.height()),
+                    ),
+                    0.0,
+                    c,
+                );
+            }
+            painter.text(
+                legend.left_bottom() + Vec2::new(0.0, 2.0),
+                egui::Align2::LEFT_TOP,
+                "0",
+                egui::FontId::proportional(12.0),
+                Color32::WHITE,
+            );
+            painter.text(
+                legend.right_bottom() + Vec2::new(0.0, 2.0),
+                egui::Align2::RIGHT_TOP,
+                format!("{max}"),
+                egui::FontId::proportional(12.0),
+                Color32::WHITE,
+            );
+        } else if self.compare == Compare::Split {
             let x = rect.left() + rect.width() * self.split;
             let (left, right) = (
                 Rect::from_min_max(rect.min, Pos2::new(x, rect.bottom())),
@@ -584,11 +727,11 @@ impl App {
             }
         }
         // Brush outline.
-        if let Some(p) = hover {
+        if let Some(p) = hover.filter(|_| matches!(self.tool, Tool::Brush | Tool::Eraser)) {
             painter.circle_stroke(p, self.radius * self.view.zoom, Stroke::new(1.0, Color32::WHITE));
             painter.circle_stroke(p, self.radius * self.view.zoom + 1.0, Stroke::new(1.0, Color32::BLACK));
         }
-        Vec::new()
+        commands
     }
 
     /// Receives what the worker reports.
@@ -636,8 +779,10 @@ impl App {
                             raster::nodata::keep_off_nodata(&mut planes, d.original.sample_format, &mask, v);
                         }
                         d.result = Some(planes);
+                        self.unsaved = true;
                         if let Some(t) = &mut self.textures {
                             t.after = None;
+                            t.difference = None;
                         }
                     }
                     self.last_fill = Some(report);
@@ -647,6 +792,7 @@ impl App {
                     finished = true;
                 }
                 Message::Saved { path, notes } => {
+                    self.unsaved = false;
                     self.status = format!("saved {}", path.display());
                     if !notes.is_empty() {
                         self.status.push_str(&format!(" ({})", notes.join("; ")));
@@ -796,6 +942,61 @@ impl App {
                     t.proposal = None;
                 }
             }
+            Command::MarkBox(x0, y0, x1, y1) => {
+                let Some(d) = &mut self.doc else { return };
+                let value = self.tool != Tool::Eraser;
+                let mut edit = Edit::default();
+                for y in y0..y1 {
+                    for x in x0..x1 {
+                        edit.save(&d.mask, history::tile_of(&d.mask, x, y));
+                    }
+                }
+                for y in y0..y1 {
+                    for x in x0..x1 {
+                        d.mask.set(x, y, value);
+                    }
+                }
+                self.finish_mask_edit(edit);
+            }
+            Command::Pick(x, y) => {
+                let Some(d) = &mut self.doc else { return };
+                let i = y * d.original.width + x;
+                let values: Vec<f64> = d.original.planes.iter().map(|p| f64::from(p[i])).collect();
+                let seed = (!self.pick_all).then_some((x, y));
+                let found = crate::detect::by_value(
+                    &d.original.planes,
+                    d.original.width,
+                    d.original.height,
+                    &values,
+                    self.pick_tolerance,
+                    seed,
+                );
+                let mut edit = Edit::default();
+                edit.save_all(&d.mask);
+                for (m, &f) in d.mask.bits_mut().iter_mut().zip(found.bits()) {
+                    *m |= f;
+                }
+                self.status = format!("picked {} pixels near {values:?}", found.count());
+                self.finish_mask_edit(edit);
+            }
+            Command::Grow(n) | Command::Shrink(n) => {
+                let Some(d) = &mut self.doc else { return };
+                let mut edit = Edit::default();
+                edit.save_all(&d.mask);
+                let shrink = matches!(command, Command::Shrink(_));
+                if shrink {
+                    for b in d.mask.bits_mut() {
+                        *b = !*b;
+                    }
+                }
+                crate::detect::grow(&mut d.mask, n);
+                if shrink {
+                    for b in d.mask.bits_mut() {
+                        *b = !*b;
+                    }
+                }
+                self.finish_mask_edit(edit);
+            }
             Command::Fit => self.view.fit_pending = true,
             Command::OneToOne => {
                 let centre = self.view.screen_from_image(Pos2::ZERO);
@@ -803,6 +1004,47 @@ impl App {
             }
         }
     }
+}
+
+impl App {
+    /// Records a whole-mask edit and refreshes what depends on the mask.
+    fn finish_mask_edit(&mut self, edit: Edit) {
+        self.history.push(edit);
+        if let Some(d) = &mut self.doc {
+            d.holes = d.mask.hole_stats();
+        }
+        self.overlay_visible = true;
+        self.textures = None;
+    }
+}
+
+/// A dark-to-bright heat colour for `t` in 0–1.
+#[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+fn heat(t: f32) -> Color32 {
+    let t = t.clamp(0.0, 1.0);
+    let r = (t * 3.0).min(1.0);
+    let g = (t * 3.0 - 1.0).clamp(0.0, 1.0);
+    let b = (t * 3.0 - 2.0).clamp(0.0, 1.0);
+    Color32::from_rgb((r * 255.0) as u8, (g * 255.0) as u8, (b * 255.0) as u8)
+}
+
+/// The heat map of |after − before| (largest over the channels) and its largest value.
+fn difference_tiles(ctx: &egui::Context, d: &Document) -> (Tiles, f32) {
+    let (w, h) = (d.original.width, d.original.height);
+    let after = d.result.as_ref().unwrap_or(&d.original.planes);
+    let diff: Vec<f32> = (0..w * h)
+        .map(|i| {
+            after
+                .iter()
+                .zip(&d.original.planes)
+                .map(|(a, b)| (a[i] - b[i]).abs())
+                .filter(|v| v.is_finite())
+                .fold(0.0, f32::max)
+        })
+        .collect();
+    let max = diff.iter().copied().fold(0.0, f32::max);
+    let scale = if max > 0.0 { 1.0 / max } else { 0.0 };
+    (Tiles::new(ctx, "difference", w, h, IMAGE_TILE, &|i| heat(diff[i] * scale)), max)
 }
 
 /// `dir/stem-suffix.ext` next to `path`.
@@ -830,7 +1072,7 @@ fn make_textures(ctx: &egui::Context, d: &Document, colour: Color32) -> Textures
     let before = Tiles::new(ctx, "before", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i));
     let overlay = Tiles::new(ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::overlay(&d.mask, colour, i));
     let after = d.result.as_ref().map(|_| after_tiles(ctx, d));
-    Textures { before, after, overlay, proposal: None }
+    Textures { before, after, difference: None, overlay, proposal: None }
 }
 
 fn after_tiles(ctx: &egui::Context, d: &Document) -> Tiles {

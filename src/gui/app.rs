@@ -343,8 +343,8 @@ impl App {
             ui.selectable_value(&mut self.tool, Tool::Brush, "Brush");
             ui.selectable_value(&mut self.tool, Tool::Eraser, "Eraser");
             ui.selectable_value(&mut self.tool, Tool::Box, "Box");
-            ui.selectable_value(&mut self.tool, Tool::Pick, "Pick by value");
         });
+        ui.selectable_value(&mut self.tool, Tool::Pick, "Pick by value");
         if self.tool == Tool::Pick {
             ui.add(egui::Slider::new(&mut self.pick_tolerance, 0.0..=65535.0).logarithmic(true).text("Within"));
             ui.checkbox(&mut self.pick_all, "All such pixels");
@@ -377,6 +377,14 @@ impl App {
             }
         });
         ui.checkbox(&mut self.overlay_visible, "Show mask (M)");
+        let mut alpha = f32::from(self.overlay_colour.a()) / 255.0;
+        if ui.add(egui::Slider::new(&mut alpha, 0.1..=1.0).text("Opacity")).changed() {
+            let [r, g, b, _] = self.overlay_colour.to_srgba_unmultiplied();
+            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+            let a = (alpha * 255.0).round() as u8;
+            self.overlay_colour = Color32::from_rgba_unmultiplied(r, g, b, a);
+            self.textures = None;
+        }
         ui.separator();
         ui.heading("Detect");
         egui::ComboBox::from_label("Method").selected_text(format!("{:?}", self.find_method)).show_ui(ui, |ui| {
@@ -405,14 +413,6 @@ impl App {
                     }
                 });
             }
-        }
-        let mut alpha = f32::from(self.overlay_colour.a()) / 255.0;
-        if ui.add(egui::Slider::new(&mut alpha, 0.1..=1.0).text("Opacity")).changed() {
-            let [r, g, b, _] = self.overlay_colour.to_srgba_unmultiplied();
-            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
-            let a = (alpha * 255.0).round() as u8;
-            self.overlay_colour = Color32::from_rgba_unmultiplied(r, g, b, a);
-            self.textures = None;
         }
         ui.separator();
         ui.heading("Repair");
@@ -666,7 +666,7 @@ impl App {
             painter.text(
                 legend.right_bottom() + Vec2::new(0.0, 2.0),
                 egui::Align2::RIGHT_TOP,
-                format!("{max}"),
+                if *max >= 1.0 { format!("{max:.1}") } else { format!("{max:.3e}") },
                 egui::FontId::proportional(12.0),
                 Color32::WHITE,
             );

@@ -199,11 +199,11 @@ fn box_pick_grow_shrink_and_difference() {
     h.get_by_label("Open").click();
     settle(&mut h);
 
-    // Box: drag from (10, 10) to (20, 16) in image pixels.
+    // Box: drag from the centre of pixel (10, 10) to that of (19, 15): pixels 10..20 × 10..16.
     h.get_by_label("Box").click();
     h.run();
     let view = h.state().view;
-    let (a, b) = (view.screen_from_image(Pos2::new(10.0, 10.0)), view.screen_from_image(Pos2::new(20.0, 16.0)));
+    let (a, b) = (view.screen_from_image(Pos2::new(10.5, 10.5)), view.screen_from_image(Pos2::new(19.5, 15.5)));
     h.hover_at(a);
     h.step();
     h.drag_at(a);
@@ -245,4 +245,56 @@ fn box_pick_grow_shrink_and_difference() {
     h.get_by_label("Difference").click();
     h.run();
     assert_eq!(h.state().compare, Compare::Difference);
+}
+
+#[test]
+fn live_mode_refills_after_a_stroke_and_saving_over_a_file_asks_first() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture(dir.path());
+    let mut h = harness();
+    h.state_mut().open_field = input.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(&mut h);
+    h.get_by_label("Live: re-fill after each edit").click();
+    h.run();
+    assert!(h.state().live);
+    let view = h.state().view;
+    let (a, b) = (view.screen_from_image(Pos2::new(22.0, 24.0)), view.screen_from_image(Pos2::new(41.0, 24.0)));
+    h.hover_at(a);
+    h.step();
+    h.drag_at(a);
+    h.step();
+    for k in 1..=6 {
+        h.hover_at(a + (b - a) * (k as f32 / 6.0));
+        h.step();
+    }
+    h.drop_at(b);
+    h.step();
+    settle(&mut h);
+    assert!(h.state().doc.as_ref().unwrap().result.is_some(), "filled without pressing Fill");
+
+    // The report of that fill.
+    let report = dir.path().join("card.json");
+    h.state_mut().report_field = report.display().to_string();
+    h.run();
+    h.get_by_label("Save report").click();
+    h.run();
+    let bytes = std::fs::read(&report).unwrap_or_else(|e| panic!("{e}: {}", h.state().status));
+    let json: serde_json::Value = serde_json::from_slice(&bytes).unwrap();
+    assert_eq!(json["unknowns"].as_u64().unwrap() as usize, h.state().doc.as_ref().unwrap().mask.count());
+    assert!(json["caution"].as_str().unwrap().contains("estimates"));
+
+    // Saving over an existing file waits for a confirmation.
+    let out = dir.path().join("taken.png");
+    std::fs::write(&out, b"keep me").unwrap();
+    h.state_mut().save_field = out.display().to_string();
+    h.run();
+    h.get_by_label("Save result").click();
+    h.run();
+    assert!(h.state().pending_overwrite.is_some());
+    assert_eq!(std::fs::read(&out).unwrap(), b"keep me");
+    h.get_by_label("Replace").click();
+    settle(&mut h);
+    assert!(raster::load(&out).is_ok(), "{}", h.state().status);
 }

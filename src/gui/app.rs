@@ -37,6 +37,8 @@ pub enum Compare {
     Split,
     /// Before and after alternating on a key (B).
     Blink,
+    /// Before and after next to each other, sharing zoom and pan.
+    SideBySide,
     /// |after − before| as a heat map.
     Difference,
 }
@@ -52,6 +54,8 @@ pub struct Document {
     pub stretch: Stretch,
     /// The no-data value the file declares, kept off by filled samples.
     pub nodata: Option<f64>,
+    /// The mask the result was filled under (the mask may have been edited since).
+    pub result_mask: Option<Mask>,
 }
 
 impl Document {
@@ -59,7 +63,7 @@ impl Document {
         let mask = mask.unwrap_or_else(|| Mask::new(original.width, original.height));
         let holes = mask.hole_stats();
         let stretch = Stretch::of(&original);
-        Self { path, original, result: None, mask, holes, stretch, nodata: None }
+        Self { path, original, result: None, mask, holes, stretch, nodata: None, result_mask: None }
     }
 
     /// The result as a raster in the input's format (the original where nothing was filled).
@@ -110,6 +114,9 @@ pub enum Command {
     Pick(usize, usize),
     Grow(usize),
     Shrink(usize),
+    SaveReport(PathBuf),
+    /// The user confirmed replacing an existing file with the pending save.
+    ConfirmOverwrite,
 }
 
 /// A stroke in progress.
@@ -152,7 +159,15 @@ pub struct App {
     /// A result not saved since the last fill.
     pub unsaved: bool,
     pub close_prompt: bool,
+    /// Re-fill automatically after every mask edit (warm start from the last result).
+    pub live: bool,
+    pub report_field: String,
+    /// A save waiting for the user to confirm replacing an existing file.
+    pub pending_overwrite: Option<Command>,
     box_anchor: Option<Pos2>,
+    live_refill: bool,
+    /// A fill was asked for while another ran; run it when that one ends.
+    refill_after: bool,
     worker: Option<Worker>,
     textures: Option<Textures>,
     stroke: Option<StrokeState>,
@@ -188,7 +203,12 @@ impl Default for App {
             mask_steps: 1,
             unsaved: false,
             close_prompt: false,
+            live: false,
+            report_field: String::new(),
+            pending_overwrite: None,
             box_anchor: None,
+            live_refill: false,
+            refill_after: false,
             worker: None,
             textures: None,
             stroke: None,
@@ -231,6 +251,23 @@ impl App {
         if self.show_help {
             self.help_ui(&ctx);
         }
+        if let Some(pending) = self.pending_overwrite.clone() {
+            let target = match &pending {
+                Command::SaveResult(p) | Command::SaveMask(p) | Command::SaveReport(p) => p.display().to_string(),
+                _ => String::new(),
+            };
+            egui::Window::new("Replace file?").collapsible(false).resizable(false).show(&ctx, |ui| {
+                ui.label(format!("{target} exists. Replace it?"));
+                ui.horizontal(|ui| {
+                    if ui.button("Replace").clicked() {
+                        commands.push(Command::ConfirmOverwrite);
+                    }
+                    if ui.button("Keep it").clicked() {
+                        self.pending_overwrite = None;
+                    }
+                });
+            });
+        }
         if ctx.input(|i| i.viewport().close_requested()) && self.unsaved {
             ctx.send_viewport_cmd(egui::ViewportCommand::CancelClose);
             self.close_prompt = true;
@@ -256,6 +293,9 @@ impl App {
         }
         for c in commands {
             self.run_command(&ctx, c);
+        }
+        if std::mem::take(&mut self.live_refill) {
+            self.run_command(&ctx, Command::Fill);
         }
     }
 
@@ -320,7 +360,8 @@ impl App {
             {
                 out.push(Command::Open(p));
             }
-            ui.separator();
+        });
+        ui.horizontal(|ui| {
             let label = ui.label("Result to");
             ui.add(egui::TextEdit::singleline(&mut self.save_field).desired_width(200.0)).labelled_by(label.id);
             if ui.add_enabled(self.doc.is_some(), egui::Button::new("Save result")).clicked() {
@@ -330,6 +371,11 @@ impl App {
             ui.add(egui::TextEdit::singleline(&mut self.mask_field).desired_width(160.0)).labelled_by(label.id);
             if ui.add_enabled(self.doc.is_some(), egui::Button::new("Save mask")).clicked() {
                 out.push(Command::SaveMask(PathBuf::from(self.mask_field.trim())));
+            }
+            let label = ui.label("Report to");
+            ui.add(egui::TextEdit::singleline(&mut self.report_field).desired_width(140.0)).labelled_by(label.id);
+            if ui.add_enabled(self.last_fill.is_some(), egui::Button::new("Save report")).clicked() {
+                out.push(Command::SaveReport(PathBuf::from(self.report_field.trim())));
             }
         });
         out
@@ -446,12 +492,14 @@ impl App {
                 }
             }
         }
+        ui.checkbox(&mut self.live, "Live: re-fill after each edit");
         ui.small(CAUTION);
         ui.separator();
         ui.heading("Compare");
         ui.selectable_value(&mut self.compare, Compare::After, "After");
         ui.selectable_value(&mut self.compare, Compare::Before, "Before");
         ui.selectable_value(&mut self.compare, Compare::Split, "Split");
+        ui.selectable_value(&mut self.compare, Compare::SideBySide, "Side by side");
         ui.selectable_value(&mut self.compare, Compare::Blink, "Blink (B)");
         ui.selectable_value(&mut self.compare, Compare::Difference, "Difference");
         ui.separator();
@@ -600,7 +648,7 @@ impl App {
                     }
                 }
             }
-        } else if !panning && self.worker.is_none() && response.dragged_by(egui::PointerButton::Primary) {
+        } else if !panning && response.dragged_by(egui::PointerButton::Primary) {
             if let Some(p) = response.interact_pointer_pos() {
                 let here = self.view.image_from_screen(p);
                 let origin =
@@ -627,12 +675,15 @@ impl App {
         } else if let Some(stroke) = self.stroke.take() {
             self.history.push(stroke.edit);
             doc.holes = doc.mask.hole_stats();
+            if self.live {
+                commands.push(Command::Fill);
+            }
         }
         // Draw.
         let show_before = match self.compare {
             Compare::Before => true,
             Compare::Blink => self.blink_before,
-            Compare::After | Compare::Split | Compare::Difference => false,
+            Compare::After | Compare::Split | Compare::Difference | Compare::SideBySide => false,
         };
         if self.compare == Compare::Difference && textures.difference.is_none() {
             textures.difference = Some(difference_tiles(&ctx, doc));
@@ -670,6 +721,16 @@ impl App {
                 egui::FontId::proportional(12.0),
                 Color32::WHITE,
             );
+        } else if self.compare == Compare::SideBySide {
+            let half = rect.width() / 2.0;
+            let (left, right) = (
+                Rect::from_min_size(rect.min, Vec2::new(half, rect.height())),
+                Rect::from_min_max(Pos2::new(rect.left() + half, rect.top()), rect.max),
+            );
+            let right_view = View { origin: self.view.origin + Vec2::new(half, 0.0), ..self.view };
+            textures.before.paint(&painter, &self.view, left, Color32::WHITE);
+            after.paint(&painter, &right_view, right, Color32::WHITE);
+            painter.line_segment([left.right_top(), left.right_bottom()], Stroke::new(2.0, Color32::from_gray(20)));
         } else if self.compare == Compare::Split {
             let x = rect.left() + rect.width() * self.split;
             let (left, right) = (
@@ -748,6 +809,9 @@ impl App {
                     if self.save_field.is_empty() {
                         self.save_field = sibling(&path, "-repaired").display().to_string();
                     }
+                    if self.report_field.is_empty() {
+                        self.report_field = sibling(&path, "-repaired").with_extension("json").display().to_string();
+                    }
                     if self.mask_field.is_empty() {
                         self.mask_field = sibling(&path, "-mask").with_extension("png").display().to_string();
                     }
@@ -779,6 +843,7 @@ impl App {
                             raster::nodata::keep_off_nodata(&mut planes, d.original.sample_format, &mask, v);
                         }
                         d.result = Some(planes);
+                        d.result_mask = Some(mask);
                         self.unsaved = true;
                         if let Some(t) = &mut self.textures {
                             t.after = None;
@@ -786,7 +851,9 @@ impl App {
                         }
                     }
                     self.last_fill = Some(report);
-                    self.compare = Compare::After;
+                    if self.compare != Compare::SideBySide && self.compare != Compare::Split {
+                        self.compare = Compare::After;
+                    }
                     // Show the repair itself; M brings the mask back.
                     self.overlay_visible = false;
                     finished = true;
@@ -819,6 +886,9 @@ impl App {
         if finished {
             self.worker = None;
             self.progress = None;
+            if std::mem::take(&mut self.refill_after) && self.doc.is_some() {
+                self.live_refill = true;
+            }
             if let Some(m) = self.mask_after_load.take()
                 && let Some(d) = &mut self.doc
             {
@@ -837,6 +907,25 @@ impl App {
 
     /// Applies one command.
     pub fn run_command(&mut self, ctx: &egui::Context, command: Command) {
+        // Saving over an existing file asks first.
+        let command = match command {
+            Command::SaveResult(ref p) | Command::SaveMask(ref p) | Command::SaveReport(ref p)
+                if p.exists() && self.pending_overwrite.as_ref() != Some(&command) =>
+            {
+                self.pending_overwrite = Some(command);
+                return;
+            }
+            Command::ConfirmOverwrite => match self.pending_overwrite.take() {
+                Some(c) => {
+                    self.pending_overwrite = Some(c.clone());
+                    self.run_command(ctx, c);
+                    self.pending_overwrite = None;
+                    return;
+                }
+                None => return,
+            },
+            other => other,
+        };
         let repaint = {
             let ctx = ctx.clone();
             move || ctx.request_repaint()
@@ -853,7 +942,11 @@ impl App {
             }
             Command::Fill => {
                 let Some(d) = &self.doc else { return };
-                if self.worker.is_some() || d.mask.is_empty() {
+                if self.worker.is_some() {
+                    self.refill_after = true;
+                    return;
+                }
+                if d.mask.is_empty() {
                     return;
                 }
                 // Start from the previous result where there is one (warm start after an edit).
@@ -889,6 +982,31 @@ impl App {
                     Err(e) => e.to_string(),
                 };
             }
+            Command::SaveReport(path) => {
+                let (Some(d), Some(fill)) = (&self.doc, &self.last_fill) else { return };
+                let image = match crate::report::FileRecord::of(&d.path) {
+                    Ok(r) => r,
+                    Err(e) => {
+                        self.status = format!("cannot read {}: {e}", d.path.display());
+                        return;
+                    }
+                };
+                let inputs = crate::report::Inputs { image, mask: None, mask_from_alpha: false };
+                let filled = d.result_mask.as_ref().unwrap_or(&d.mask);
+                let mut report =
+                    crate::report::Report::new(inputs, &d.original, filled, &filled.hole_stats(), fill, self.tolerance);
+                let saved = PathBuf::from(self.save_field.trim());
+                report.output = crate::report::FileRecord::of(&saved).ok().filter(|_| !self.unsaved);
+                let json = report.to_json();
+                self.status = match raster::write_atomic(&path, |w| {
+                    use std::io::Write;
+                    w.write_all(json.as_bytes()).map_err(|e| e.to_string())
+                }) {
+                    Ok(()) => format!("saved the report to {}", path.display()),
+                    Err(e) => e.to_string(),
+                };
+            }
+            Command::ConfirmOverwrite => {}
             Command::Undo | Command::Redo => {
                 let Some(d) = &mut self.doc else { return };
                 let touched = if command == Command::Undo {
@@ -904,6 +1022,7 @@ impl App {
                     }
                 }
                 d.holes = d.mask.hole_stats();
+                self.live_refill = self.live;
             }
             Command::ClearMask | Command::InvertMask => {
                 let Some(d) = &mut self.doc else { return };
@@ -1010,6 +1129,7 @@ impl App {
     /// Records a whole-mask edit and refreshes what depends on the mask.
     fn finish_mask_edit(&mut self, edit: Edit) {
         self.history.push(edit);
+        self.live_refill = self.live;
         if let Some(d) = &mut self.doc {
             d.holes = d.mask.hole_stats();
         }

@@ -842,12 +842,20 @@ impl App {
                         if let Some(v) = d.nodata {
                             raster::nodata::keep_off_nodata(&mut planes, d.original.sample_format, &mask, v);
                         }
+                        // Re-upload only the tiles where this fill or the one before changed pixels.
+                        let bbox = changed_box(&mask, d.result_mask.as_ref());
                         d.result = Some(planes);
                         d.result_mask = Some(mask);
                         self.unsaved = true;
                         if let Some(t) = &mut self.textures {
-                            t.after = None;
                             t.difference = None;
+                            match (&mut t.after, bbox, &d.result) {
+                                (Some(after), Some((x0, y0, x1, y1)), Some(planes)) => {
+                                    let (layout, st) = (d.original.layout, d.stretch);
+                                    after.update_rect(x0, y0, x1, y1, &|i| canvas::colour(planes, layout, st, i));
+                                }
+                                _ => t.after = None,
+                            }
                         }
                     }
                     self.last_fill = Some(report);
@@ -875,6 +883,15 @@ impl App {
                     if let Some(t) = &mut self.textures {
                         t.proposal = None;
                     }
+                    finished = true;
+                }
+                Message::FillFailed { planes, error } => {
+                    if let Some(d) = &mut self.doc
+                        && d.result_mask.is_some()
+                    {
+                        d.result = Some(planes);
+                    }
+                    self.status = error;
                     finished = true;
                 }
                 Message::Failed(e) => {
@@ -941,7 +958,7 @@ impl App {
                 self.worker = Some(Worker::load(path, None, repaint));
             }
             Command::Fill => {
-                let Some(d) = &self.doc else { return };
+                let Some(d) = &mut self.doc else { return };
                 if self.worker.is_some() {
                     self.refill_after = true;
                     return;
@@ -949,12 +966,18 @@ impl App {
                 if d.mask.is_empty() {
                     return;
                 }
-                // Start from the previous result where there is one (warm start after an edit).
-                let (planes, start) = match &d.result {
-                    Some(p) => (p.clone(), Start::Warm),
+                // Start from the previous result where there is one (a warm start after an edit).
+                // Its planes move to the worker and come back, so nothing image-sized is copied;
+                // the textures keep showing it meanwhile.
+                let (planes, start) = match d.result.take() {
+                    Some(mut p) => {
+                        if let Some(previous) = &d.result_mask {
+                            restore_unmasked(&mut p, &d.original.planes, previous, &d.mask);
+                        }
+                        (p, Start::Warm)
+                    }
                     None => (d.original.planes.clone(), Start::FullMultigrid),
                 };
-                let planes = restore_unmasked(planes, &d.original.planes, &d.mask);
                 let params = FillParams { tolerance: self.tolerance, ..FillParams::default() };
                 self.status = "filling…".to_owned();
                 self.worker = Some(Worker::fill(planes, d.mask.clone(), params, start, repaint));
@@ -1174,16 +1197,31 @@ fn sibling(path: &std::path::Path, suffix: &str) -> PathBuf {
     path.with_file_name(format!("{stem}{suffix}.{ext}"))
 }
 
-/// Planes whose unmasked samples are the original's (a warm start keeps its filled values).
-fn restore_unmasked(mut planes: Vec<Vec<f32>>, original: &[Vec<f32>], mask: &Mask) -> Vec<Vec<f32>> {
-    for (p, o) in planes.iter_mut().zip(original) {
-        for ((v, &ov), &m) in p.iter_mut().zip(o).zip(mask.bits()) {
-            if !m {
-                *v = ov;
+/// Puts back the original samples of pixels filled before (`previous`) but no longer masked.
+fn restore_unmasked(planes: &mut [Vec<f32>], original: &[Vec<f32>], previous: &Mask, mask: &Mask) {
+    for (i, (&was, &is)) in previous.bits().iter().zip(mask.bits()).enumerate() {
+        if was && !is {
+            for (p, o) in planes.iter_mut().zip(original) {
+                p[i] = o[i];
             }
         }
     }
-    planes
+}
+
+/// The bounding box `(x0, y0, x1, y1)` (ends exclusive) of the pixels set in either mask.
+fn changed_box(a: &Mask, b: Option<&Mask>) -> Option<(usize, usize, usize, usize)> {
+    let w = a.width();
+    let mut bbox: Option<(usize, usize, usize, usize)> = None;
+    for (i, &m) in a.bits().iter().enumerate() {
+        if m || b.is_some_and(|b| b.bits()[i]) {
+            let (x, y) = (i % w, i / w);
+            bbox = Some(match bbox {
+                None => (x, y, x + 1, y + 1),
+                Some((x0, y0, x1, y1)) => (x0.min(x), y0.min(y), x1.max(x + 1), y1.max(y + 1)),
+            });
+        }
+    }
+    bbox
 }
 
 fn make_textures(ctx: &egui::Context, d: &Document, colour: Color32) -> Textures {

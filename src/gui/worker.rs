@@ -12,11 +12,34 @@ use crate::raster::{self, Raster};
 
 /// What a worker reports.
 pub enum Message {
-    Loaded { path: PathBuf, raster: Box<Raster>, mask: Option<Mask> },
-    Progress { cycle: usize, max_cycles: usize, residual: f64 },
-    Filled { planes: Vec<Vec<f32>>, report: FillReport, mask: Mask },
-    Saved { path: PathBuf, notes: Vec<String> },
-    Detected { mask: Mask, method: crate::cli::DetectMethod },
+    Loaded {
+        path: PathBuf,
+        raster: Box<Raster>,
+        mask: Option<Mask>,
+    },
+    Progress {
+        cycle: usize,
+        max_cycles: usize,
+        residual: f64,
+    },
+    Filled {
+        planes: Vec<Vec<f32>>,
+        report: FillReport,
+        mask: Mask,
+    },
+    /// A fill that failed or was cancelled hands its (unchanged) planes back.
+    FillFailed {
+        planes: Vec<Vec<f32>>,
+        error: String,
+    },
+    Saved {
+        path: PathBuf,
+        notes: Vec<String>,
+    },
+    Detected {
+        mask: Mask,
+        method: crate::cli::DetectMethod,
+    },
     Failed(String),
 }
 
@@ -84,7 +107,7 @@ impl Worker {
                 let solver = match Solver::new(&mask) {
                     Ok(s) => s,
                     Err(e) => {
-                        let _ = tx.send(Message::Failed(e.to_string()));
+                        let _ = tx.send(Message::FillFailed { planes, error: e.to_string() });
                         return;
                     }
                 };
@@ -99,9 +122,10 @@ impl Worker {
                     ping();
                     !cancel.load(Ordering::Relaxed)
                 });
+                drop(views);
                 let msg = match result {
                     Ok(report) => Message::Filled { planes, report, mask },
-                    Err(e) => Message::Failed(e.to_string()),
+                    Err(e) => Message::FillFailed { planes, error: e.to_string() },
                 };
                 let _ = tx.send(msg);
             },

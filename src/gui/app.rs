@@ -24,6 +24,8 @@ pub enum Tool {
     Box,
     /// Click a pixel: mark the connected pixels within a tolerance of its value (or all such).
     Pick,
+    /// Click vertices; close on the first vertex or with Enter (Escape drops it).
+    Polygon,
 }
 
 /// What the canvas shows.
@@ -114,6 +116,8 @@ pub enum Command {
     Pick(usize, usize),
     Grow(usize),
     Shrink(usize),
+    /// Mark the pixels whose centres lie inside the polygon (image coordinates).
+    MarkPolygon(Vec<Pos2>),
     SaveReport(PathBuf),
     /// The user confirmed replacing an existing file with the pending save.
     ConfirmOverwrite,
@@ -165,6 +169,8 @@ pub struct App {
     /// A save waiting for the user to confirm replacing an existing file.
     pub pending_overwrite: Option<Command>,
     box_anchor: Option<Pos2>,
+    /// Vertices of the polygon being drawn, in image coordinates.
+    pub polygon: Vec<Pos2>,
     live_refill: bool,
     /// A fill was asked for while another ran; run it when that one ends.
     refill_after: bool,
@@ -207,6 +213,7 @@ impl Default for App {
             report_field: String::new(),
             pending_overwrite: None,
             box_anchor: None,
+            polygon: Vec::new(),
             live_refill: false,
             refill_after: false,
             worker: None,
@@ -390,7 +397,10 @@ impl App {
             ui.selectable_value(&mut self.tool, Tool::Eraser, "Eraser");
             ui.selectable_value(&mut self.tool, Tool::Box, "Box");
         });
-        ui.selectable_value(&mut self.tool, Tool::Pick, "Pick by value");
+        ui.horizontal(|ui| {
+            ui.selectable_value(&mut self.tool, Tool::Polygon, "Polygon");
+            ui.selectable_value(&mut self.tool, Tool::Pick, "Pick by value");
+        });
         if self.tool == Tool::Pick {
             ui.add(egui::Slider::new(&mut self.pick_tolerance, 0.0..=65535.0).logarithmic(true).text("Within"));
             ui.checkbox(&mut self.pick_all, "All such pixels");
@@ -553,7 +563,9 @@ impl App {
                 for (k, what) in [
                     ("P / E", "brush / eraser"),
                     ("[ and ]", "smaller / larger brush"),
-                    ("drag", "paint (brush) or erase"),
+                    ("drag", "paint (brush) or erase; Box: drag a rectangle"),
+                    ("click, Enter", "Polygon: add a vertex; close it (or click the first vertex)"),
+                    ("Escape", "drop the polygon being drawn"),
                     ("middle drag, Space + drag", "pan"),
                     ("wheel, pinch", "zoom about the cursor"),
                     ("F / 1", "fit / actual pixels"),
@@ -615,7 +627,38 @@ impl App {
             #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
             (p.x >= 0.0 && p.y >= 0.0 && p.x < size.x && p.y < size.y).then_some((p.x as usize, p.y as usize))
         };
-        if matches!(self.tool, Tool::Box | Tool::Pick) && !panning {
+        if self.tool == Tool::Polygon && !panning {
+            if response.clicked()
+                && let Some(p) = response.interact_pointer_pos()
+            {
+                let close =
+                    self.polygon.len() >= 3 && (self.view.screen_from_image(self.polygon[0]) - p).length() <= 8.0;
+                if close {
+                    commands.push(Command::MarkPolygon(std::mem::take(&mut self.polygon)));
+                } else {
+                    self.polygon.push(self.view.image_from_screen(p));
+                }
+            }
+            let (enter, escape) = ui.ctx().input(|i| (i.key_pressed(Key::Enter), i.key_pressed(Key::Escape)));
+            if enter && self.polygon.len() >= 3 {
+                commands.push(Command::MarkPolygon(std::mem::take(&mut self.polygon)));
+            }
+            if escape {
+                self.polygon.clear();
+            }
+            if !self.polygon.is_empty() {
+                let mut pts: Vec<Pos2> = self.polygon.iter().map(|&q| self.view.screen_from_image(q)).collect();
+                if let Some(h) = hover {
+                    pts.push(h);
+                }
+                painter.add(egui::Shape::line(pts, Stroke::new(1.5, Color32::YELLOW)));
+                painter.circle_stroke(
+                    self.view.screen_from_image(self.polygon[0]),
+                    8.0,
+                    Stroke::new(1.0, Color32::YELLOW),
+                );
+            }
+        } else if matches!(self.tool, Tool::Box | Tool::Pick) && !panning {
             if self.tool == Tool::Pick
                 && response.clicked()
                 && let Some((x, y)) =
@@ -1100,6 +1143,21 @@ impl App {
                 }
                 self.finish_mask_edit(edit);
             }
+            Command::MarkPolygon(points) => {
+                let Some(d) = &mut self.doc else { return };
+                let inside = polygon_mask(d.mask.width(), d.mask.height(), &points);
+                let mut edit = Edit::default();
+                for (i, &m) in inside.bits().iter().enumerate() {
+                    if m {
+                        let w = d.mask.width();
+                        edit.save(&d.mask, history::tile_of(&d.mask, i % w, i / w));
+                    }
+                }
+                for (m, &x) in d.mask.bits_mut().iter_mut().zip(inside.bits()) {
+                    *m |= x;
+                }
+                self.finish_mask_edit(edit);
+            }
             Command::Pick(x, y) => {
                 let Some(d) = &mut self.doc else { return };
                 let i = y * d.original.width + x;
@@ -1159,6 +1217,39 @@ impl App {
         self.overlay_visible = true;
         self.textures = None;
     }
+}
+
+/// The pixels whose centres lie inside `points` (even-odd rule), within the image.
+fn polygon_mask(w: usize, h: usize, points: &[Pos2]) -> Mask {
+    let mut mask = Mask::new(w, h);
+    if points.len() < 3 {
+        return mask;
+    }
+    let (lo, hi) = points.iter().fold((f32::MAX, f32::MIN), |(l, h), p| (l.min(p.y), h.max(p.y)));
+    #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss, clippy::cast_precision_loss)]
+    let (y0, y1) = ((lo.floor().max(0.0) as usize).min(h), (hi.ceil().max(0.0) as usize).min(h));
+    for y in y0..y1 {
+        #[allow(clippy::cast_precision_loss)]
+        let cy = y as f32 + 0.5;
+        // Crossings of the scanline with the edges, sorted; pixels between pairs are inside.
+        let mut xs: Vec<f32> = Vec::new();
+        for k in 0..points.len() {
+            let (a, b) = (points[k], points[(k + 1) % points.len()]);
+            if (a.y <= cy) != (b.y <= cy) {
+                xs.push(a.x + (cy - a.y) / (b.y - a.y) * (b.x - a.x));
+            }
+        }
+        xs.sort_by(f32::total_cmp);
+        for pair in xs.chunks_exact(2) {
+            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss, clippy::cast_precision_loss)]
+            let (x0, x1) =
+                (((pair[0] - 0.5).ceil().max(0.0) as usize).min(w), ((pair[1] - 0.5).ceil().max(0.0) as usize).min(w));
+            for x in x0..x1 {
+                mask.set(x, y, true);
+            }
+        }
+    }
+    mask
 }
 
 /// A dark-to-bright heat colour for `t` in 0–1.
@@ -1238,4 +1329,21 @@ fn after_tiles(ctx: &egui::Context, d: &Document) -> Tiles {
     let planes = d.result.as_ref().unwrap_or(&d.original.planes);
     let (layout, s) = (d.original.layout, d.stretch);
     Tiles::new(ctx, "after", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn polygon_marks_pixel_centres_inside() {
+        // A 4×3 rectangle from (2, 1) to (6, 4): exactly 12 pixel centres inside.
+        let pts = [Pos2::new(2.0, 1.0), Pos2::new(6.0, 1.0), Pos2::new(6.0, 4.0), Pos2::new(2.0, 4.0)];
+        let m = polygon_mask(10, 8, &pts);
+        assert_eq!(m.count(), 12);
+        assert!(m.get(2, 1) && m.get(5, 3) && !m.get(6, 3) && !m.get(1, 1));
+        // A triangle: half of a 6×6 square, the diagonal's centres excluded on one side.
+        let tri = [Pos2::new(0.0, 0.0), Pos2::new(6.0, 0.0), Pos2::new(0.0, 6.0)];
+        assert_eq!(polygon_mask(8, 8, &tri).count(), 15);
+    }
 }

@@ -171,6 +171,9 @@ pub struct App {
     box_anchor: Option<Pos2>,
     /// Vertices of the polygon being drawn, in image coordinates.
     pub polygon: Vec<Pos2>,
+    /// Settings kept between runs (recent files, last folder, window size…).
+    pub settings: super::Settings,
+    dialog: Option<std::sync::mpsc::Receiver<Option<PathBuf>>>,
     live_refill: bool,
     /// A fill was asked for while another ran; run it when that one ends.
     refill_after: bool,
@@ -214,6 +217,8 @@ impl Default for App {
             pending_overwrite: None,
             box_anchor: None,
             polygon: Vec::new(),
+            settings: super::Settings::default(),
+            dialog: None,
             live_refill: false,
             refill_after: false,
             worker: None,
@@ -225,13 +230,30 @@ impl Default for App {
 }
 
 impl App {
-    /// An app that starts loading `path` (and its `mask`).
-    #[must_use]
-    pub fn with_file(ctx: &egui::Context, path: PathBuf, mask: Option<PathBuf>) -> Self {
-        let mut app = Self { open_field: path.display().to_string(), ..Self::default() };
-        app.mask_after_load = mask;
-        app.run_command(ctx, Command::Open(path));
-        app
+    /// Starts loading `path` (and then its `mask`).
+    pub fn open(&mut self, ctx: &egui::Context, path: PathBuf, mask: Option<PathBuf>) {
+        self.open_field = path.display().to_string();
+        self.mask_after_load = mask;
+        self.run_command(ctx, Command::Open(path));
+    }
+
+    /// Takes over saved settings (brush, overlay, tolerance, recent files).
+    pub fn apply_settings(&mut self, s: super::Settings) {
+        self.radius = s.radius.clamp(0.5, 500.0);
+        let [r, g, b, a] = s.overlay_rgba;
+        self.overlay_colour = Color32::from_rgba_unmultiplied(r, g, b, a);
+        if s.tolerance > 0.0 && s.tolerance < 1.0 {
+            self.tolerance = s.tolerance;
+        }
+        self.settings = s;
+    }
+
+    /// The settings as they are now, to be saved.
+    pub fn store_settings(&mut self) -> &super::Settings {
+        self.settings.radius = self.radius;
+        self.settings.overlay_rgba = self.overlay_colour.to_srgba_unmultiplied();
+        self.settings.tolerance = self.tolerance;
+        &self.settings
     }
 
     /// Whether background work is running.
@@ -308,6 +330,7 @@ impl App {
 
     fn keys(&mut self, ctx: &egui::Context) -> Vec<Command> {
         let mut out = Vec::new();
+        let mut quit = false;
         if ctx.egui_wants_keyboard_input() {
             return out;
         }
@@ -318,6 +341,9 @@ impl App {
             }
             if cmd && i.key_pressed(Key::Y) {
                 out.push(Command::Redo);
+            }
+            if cmd && i.key_pressed(Key::Q) {
+                quit = true;
             }
             if !cmd {
                 if i.key_pressed(Key::B) {
@@ -350,6 +376,10 @@ impl App {
                 }
             }
         });
+        if quit {
+            // Outside the input closure: the context must not be locked while sending.
+            ctx.send_viewport_cmd(egui::ViewportCommand::Close);
+        }
         out
     }
 
@@ -361,12 +391,40 @@ impl App {
             if ui.button("Open").clicked() && !self.open_field.trim().is_empty() {
                 out.push(Command::Open(PathBuf::from(self.open_field.trim())));
             }
-            if ui.button("Browse…").clicked()
-                && let Some(p) =
-                    rfd::FileDialog::new().add_filter("images", &["png", "tif", "tiff", "jpg", "jpeg"]).pick_file()
-            {
-                out.push(Command::Open(p));
+            if ui.add_enabled(self.dialog.is_none(), egui::Button::new("Browse…")).clicked() {
+                // The system dialog blocks its thread, so it gets one of its own.
+                let mut dialog = rfd::FileDialog::new().add_filter("images", &["png", "tif", "tiff", "jpg", "jpeg"]);
+                if let Some(folder) = &self.settings.last_folder {
+                    dialog = dialog.set_directory(folder);
+                }
+                let (tx, rx) = std::sync::mpsc::channel();
+                let ctx = ui.ctx().clone();
+                let spawned = std::thread::Builder::new().name("reweave-dialog".to_owned()).spawn(move || {
+                    let _ = tx.send(dialog.pick_file());
+                    ctx.request_repaint();
+                });
+                if spawned.is_ok() {
+                    self.dialog = Some(rx);
+                }
             }
+            if let Some(rx) = &self.dialog
+                && let Ok(choice) = rx.try_recv()
+            {
+                self.dialog = None;
+                match choice {
+                    Some(p) => out.push(Command::Open(p)),
+                    None => {
+                        self.status = "no file chosen (where no file dialog is available, type the path)".to_owned();
+                    }
+                }
+            }
+            egui::ComboBox::from_label("Recent").selected_text("").show_ui(ui, |ui| {
+                for p in &self.settings.recent {
+                    if ui.selectable_label(false, p.display().to_string()).clicked() {
+                        out.push(Command::Open(p.clone()));
+                    }
+                }
+            });
         });
         ui.horizontal(|ui| {
             let label = ui.label("Result to");
@@ -573,6 +631,7 @@ impl App {
                     ("B", "blink between before and after"),
                     ("Ctrl+Z", "undo"),
                     ("Ctrl+Shift+Z, Ctrl+Y", "redo"),
+                    ("Ctrl+Q", "close the window (asks first if a result is unsaved)"),
                     ("F1", "this list"),
                 ] {
                     ui.label(k);
@@ -849,6 +908,7 @@ impl App {
                 }
                 Message::Loaded { path, raster, mask } => {
                     self.status = format!("opened {}", path.display());
+                    self.settings.remember(&path);
                     if self.save_field.is_empty() {
                         self.save_field = sibling(&path, "-repaired").display().to_string();
                     }

@@ -63,22 +63,30 @@ pub struct Stretch {
 }
 
 impl Stretch {
-    /// 8-bit shown as is, 16-bit scaled, signed and float stretched over their finite range.
+    /// 8-bit shown as is; 16-bit, signed and float data stretched from the 0.1st to the 99.9th
+    /// percentile of their finite samples (detector frames and elevation grids use a small part
+    /// of their range). Only the display is stretched, never the data.
     #[must_use]
     pub fn of(r: &Raster) -> Self {
-        match r.sample_format {
-            SampleFormat::U8 => Self { lo: 0.0, scale: 1.0 },
-            SampleFormat::U16 => Self { lo: 0.0, scale: 1.0 / 257.0 },
-            SampleFormat::I16 | SampleFormat::F32 => {
-                let colour = if r.layout.has_alpha() { r.channels() - 1 } else { r.channels() };
-                let (lo, hi) = r.planes[..colour]
-                    .iter()
-                    .flat_map(|p| p.iter())
-                    .filter(|v| v.is_finite())
-                    .fold((f32::MAX, f32::MIN), |(l, h), &v| (l.min(v), h.max(v)));
-                if lo < hi { Self { lo, scale: 255.0 / (hi - lo) } } else { Self { lo: lo.min(0.0), scale: 1.0 } }
-            }
+        if r.sample_format == SampleFormat::U8 {
+            return Self { lo: 0.0, scale: 1.0 };
         }
+        let colour = if r.layout.has_alpha() { r.channels() - 1 } else { r.channels() };
+        let n = r.width * r.height;
+        let step = (n * colour / 1_000_000).max(1);
+        let mut sample: Vec<f32> =
+            r.planes[..colour].iter().flat_map(|p| p.iter().step_by(step)).copied().filter(|v| v.is_finite()).collect();
+        if sample.is_empty() {
+            return Self { lo: 0.0, scale: 1.0 };
+        }
+        sample.sort_unstable_by(f32::total_cmp);
+        let at = |q: f64| {
+            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss, clippy::cast_precision_loss)]
+            let k = ((sample.len() - 1) as f64 * q).round() as usize;
+            sample[k]
+        };
+        let (lo, hi) = (at(0.001), at(0.999));
+        if lo < hi { Self { lo, scale: 255.0 / (hi - lo) } } else { Self { lo: lo - 1.0, scale: 127.0 } }
     }
 }
 

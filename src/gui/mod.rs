@@ -7,18 +7,30 @@
 mod app;
 mod canvas;
 mod history;
+mod settings;
 mod worker;
 
 use std::path::PathBuf;
 
 pub use app::{App, CAUTION, Command, Compare, Document, Tool};
 pub use canvas::View;
+pub use settings::Settings;
 
 struct Window(App);
 
 impl eframe::App for Window {
     fn ui(&mut self, ui: &mut egui::Ui, _frame: &mut eframe::Frame) {
+        let size = ui.ctx().input(|i| i.viewport().inner_rect).map(|r| [r.width(), r.height()]);
+        if size.is_some() {
+            self.0.settings.window_size = size;
+        }
         self.0.ui(ui);
+    }
+
+    fn on_exit(&mut self, _gl: Option<&eframe::glow::Context>) {
+        if let Err(e) = self.0.store_settings().save() {
+            eprintln!("reweave: warning: the settings could not be saved: {e}");
+        }
     }
 }
 
@@ -27,18 +39,21 @@ impl eframe::App for Window {
 /// # Errors
 /// When no window can be opened (no display, no OpenGL).
 pub fn run(file: Option<PathBuf>, mask: Option<PathBuf>) -> anyhow::Result<()> {
+    let settings = Settings::load();
+    let size = settings.window_size.unwrap_or([1280.0, 820.0]);
     let options = eframe::NativeOptions {
-        viewport: egui::ViewportBuilder::default().with_inner_size([1280.0, 820.0]).with_title("reweave"),
+        viewport: egui::ViewportBuilder::default().with_inner_size(size).with_title("reweave"),
         ..eframe::NativeOptions::default()
     };
     eframe::run_native(
         "reweave",
         options,
         Box::new(move |cc| {
-            let app = match file {
-                Some(f) => App::with_file(&cc.egui_ctx, f, mask),
-                None => App::default(),
-            };
+            let mut app = App::default();
+            app.apply_settings(settings);
+            if let Some(f) = file {
+                app.open(&cc.egui_ctx, f, mask);
+            }
             Ok(Box::new(Window(app)))
         }),
     )

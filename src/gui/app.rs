@@ -53,6 +53,8 @@ pub struct Document {
     pub result: Option<Vec<Vec<f32>>>,
     pub mask: Mask,
     pub holes: HoleStats,
+    /// Marked pixels (kept with `holes`, so no frame counts them).
+    pub marked: usize,
     pub stretch: Stretch,
     /// The no-data value the file declares, kept off by filled samples.
     pub nodata: Option<f64>,
@@ -61,11 +63,17 @@ pub struct Document {
 }
 
 impl Document {
-    fn new(path: PathBuf, original: Raster, mask: Option<Mask>) -> Self {
+    fn new(path: PathBuf, original: Raster, mask: Option<Mask>, stretch: Stretch) -> Self {
         let mask = mask.unwrap_or_else(|| Mask::new(original.width, original.height));
         let holes = mask.hole_stats();
-        let stretch = Stretch::of(&original);
-        Self { path, original, result: None, mask, holes, stretch, nodata: None, result_mask: None }
+        let marked = mask.count();
+        Self { path, original, result: None, mask, holes, marked, stretch, nodata: None, result_mask: None }
+    }
+
+    /// Recounts the mask's pixels and holes after an edit.
+    pub fn refresh(&mut self) {
+        self.holes = self.mask.hole_stats();
+        self.marked = self.mask.count();
     }
 
     /// The result as a raster in the input's format (the original where nothing was filled).
@@ -174,6 +182,8 @@ pub struct App {
     /// Settings kept between runs (recent files, last folder, window size…).
     pub settings: super::Settings,
     dialog: Option<std::sync::mpsc::Receiver<Option<PathBuf>>>,
+    /// Tiles of a just-loaded picture, made by the loader, waiting to be uploaded.
+    pending_tiles: Option<Vec<egui::ColorImage>>,
     live_refill: bool,
     /// A fill was asked for while another ran; run it when that one ends.
     refill_after: bool,
@@ -219,6 +229,7 @@ impl Default for App {
             polygon: Vec::new(),
             settings: super::Settings::default(),
             dialog: None,
+            pending_tiles: None,
             live_refill: false,
             refill_after: false,
             worker: None,
@@ -552,9 +563,7 @@ impl App {
                 }
             }
             (None, _) => {
-                if ui
-                    .add_enabled(self.doc.as_ref().is_some_and(|d| !d.mask.is_empty()), egui::Button::new("Fill"))
-                    .clicked()
+                if ui.add_enabled(self.doc.as_ref().is_some_and(|d| d.marked > 0), egui::Button::new("Fill")).clicked()
                 {
                     out.push(Command::Fill);
                 }
@@ -602,7 +611,7 @@ impl App {
                     ui.label(format!("({x}, {y}) = {}", values.join(", ")));
                     ui.separator();
                 }
-                ui.label(format!("mask {} px in {} holes", d.mask.count(), d.holes.holes));
+                ui.label(format!("mask {} px in {} holes", d.marked, d.holes.holes));
                 if let Some(r) = &self.last_fill {
                     ui.separator();
                     let worst = r.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max);
@@ -658,7 +667,9 @@ impl App {
             self.view.fit(rect, size);
         }
         // Textures, made on first use.
-        let textures = self.textures.get_or_insert_with(|| make_textures(&ctx, doc, self.overlay_colour));
+        let textures = self
+            .textures
+            .get_or_insert_with(|| make_textures(&ctx, doc, self.overlay_colour, self.pending_tiles.take()));
         if doc.result.is_some() && textures.after.is_none() {
             textures.after = Some(after_tiles(&ctx, doc));
         }
@@ -776,7 +787,7 @@ impl App {
             }
         } else if let Some(stroke) = self.stroke.take() {
             self.history.push(stroke.edit);
-            doc.holes = doc.mask.hole_stats();
+            doc.refresh();
             if self.live {
                 commands.push(Command::Fill);
             }
@@ -906,7 +917,8 @@ impl App {
                 Message::Progress { cycle, max_cycles, residual } => {
                     self.progress = Some((cycle, max_cycles, residual))
                 }
-                Message::Loaded { path, raster, mask } => {
+                Message::Loaded { path, raster, mask, nodata, missing, stretch, tiles } => {
+                    self.pending_tiles = Some(tiles);
                     self.status = format!("opened {}", path.display());
                     self.settings.remember(&path);
                     if self.save_field.is_empty() {
@@ -918,24 +930,17 @@ impl App {
                     if self.mask_field.is_empty() {
                         self.mask_field = sibling(&path, "-mask").with_extension("png").display().to_string();
                     }
-                    // No-data and NaN samples are damage too: mark them from the start.
-                    let nodata = raster.metadata.nodata.as_deref().and_then(raster::nodata::parse_nodata);
-                    let missing = raster::nodata::missing_samples(&raster, nodata);
-                    let mut doc = Document::new(path, *raster, mask);
-                    if !missing.is_empty() {
-                        for (m, &x) in doc.mask.bits_mut().iter_mut().zip(missing.bits()) {
-                            *m |= x;
-                        }
-                        doc.holes = doc.mask.hole_stats();
-                        self.status.push_str(&format!("; {} no-data or NaN pixels are marked", missing.count()));
+                    if missing > 0 {
+                        self.status.push_str(&format!("; {missing} no-data or NaN pixels are marked"));
                     }
+                    let mut doc = Document::new(path, *raster, mask, stretch);
                     doc.nodata = nodata;
                     self.doc = Some(doc);
-                    self.proposal = None;
                     self.textures = None;
                     self.history = History::default();
                     self.view.fit_pending = true;
                     self.last_fill = None;
+                    self.proposal = None;
                     finished = true;
                 }
                 Message::Filled { planes, report, mask } => {
@@ -1015,7 +1020,7 @@ impl App {
                 match raster::load_mask(&m, d.original.width, d.original.height) {
                     Ok(mask) => {
                         d.mask = mask;
-                        d.holes = d.mask.hole_stats();
+                        d.refresh();
                         self.textures = None;
                     }
                     Err(e) => self.status = e.to_string(),
@@ -1147,7 +1152,7 @@ impl App {
                         t.overlay.update_rect(x0, y0, x1, y1, &|i| canvas::overlay(mask, colour, i));
                     }
                 }
-                d.holes = d.mask.hole_stats();
+                d.refresh();
                 self.live_refill = self.live;
             }
             Command::ClearMask | Command::InvertMask => {
@@ -1158,7 +1163,7 @@ impl App {
                     *b = command == Command::InvertMask && !*b;
                 }
                 self.history.push(edit);
-                d.holes = d.mask.hole_stats();
+                d.refresh();
                 self.textures = None;
             }
             Command::Find(method) => {
@@ -1177,7 +1182,7 @@ impl App {
                     *m = x || (*m && !replace);
                 }
                 self.history.push(edit);
-                d.holes = d.mask.hole_stats();
+                d.refresh();
                 self.overlay_visible = true;
                 self.textures = None;
             }
@@ -1272,7 +1277,7 @@ impl App {
         self.history.push(edit);
         self.live_refill = self.live;
         if let Some(d) = &mut self.doc {
-            d.holes = d.mask.hole_stats();
+            d.refresh();
         }
         self.overlay_visible = true;
         self.textures = None;
@@ -1375,10 +1380,13 @@ fn changed_box(a: &Mask, b: Option<&Mask>) -> Option<(usize, usize, usize, usize
     bbox
 }
 
-fn make_textures(ctx: &egui::Context, d: &Document, colour: Color32) -> Textures {
+fn make_textures(ctx: &egui::Context, d: &Document, colour: Color32, ready: Option<Vec<egui::ColorImage>>) -> Textures {
     let (w, h) = (d.original.width, d.original.height);
     let (planes, layout, s) = (&d.original.planes, d.original.layout, d.stretch);
-    let before = Tiles::new(ctx, "before", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i));
+    let before = match ready {
+        Some(images) => Tiles::from_images(ctx, "before", w, h, IMAGE_TILE, images),
+        None => Tiles::new(ctx, "before", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i)),
+    };
     let overlay = Tiles::new(ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::overlay(&d.mask, colour, i));
     let after = d.result.as_ref().map(|_| after_tiles(ctx, d));
     Textures { before, after, difference: None, overlay, proposal: None }

@@ -10,7 +10,7 @@ use crate::raster::{Layout, Raster, SampleFormat};
 /// Side of an image texture tile.
 pub const IMAGE_TILE: usize = 1024;
 /// Side of a mask overlay tile (small, so a stroke re-uploads little).
-pub const OVERLAY_TILE: usize = 256;
+pub const OVERLAY_TILE: usize = 512;
 
 /// The view transform: `pos_in_screen = origin + pos_in_image · zoom`.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -118,19 +118,37 @@ pub struct Tiles {
 }
 
 impl Tiles {
-    /// Builds the tiles from a colour function of the pixel index.
-    pub fn new(ctx: &egui::Context, name: &str, w: usize, h: usize, side: usize, f: &dyn Fn(usize) -> Color32) -> Self {
-        let (tx, ty) = (w.div_ceil(side), h.div_ceil(side));
-        let mut handles = Vec::with_capacity(tx * ty);
-        for t in 0..tx * ty {
-            let img = tile_image(w, h, side, t, f);
-            handles.push(ctx.load_texture(format!("{name}-{t}"), img, TextureOptions::NEAREST));
-        }
+    /// Builds the tiles from a colour function of the pixel index (in parallel).
+    pub fn new(
+        ctx: &egui::Context,
+        name: &str,
+        w: usize,
+        h: usize,
+        side: usize,
+        f: &(dyn Fn(usize) -> Color32 + Sync),
+    ) -> Self {
+        Self::from_images(ctx, name, w, h, side, tile_images(w, h, side, f))
+    }
+
+    /// Uploads tiles made by [`tile_images`] (which may run on another thread).
+    pub fn from_images(
+        ctx: &egui::Context,
+        name: &str,
+        w: usize,
+        h: usize,
+        side: usize,
+        images: Vec<ColorImage>,
+    ) -> Self {
+        let handles = images
+            .into_iter()
+            .enumerate()
+            .map(|(t, img)| ctx.load_texture(format!("{name}-{t}"), img, TextureOptions::NEAREST))
+            .collect();
         Self { w, h, side, handles }
     }
 
     /// Re-uploads the tiles that hold any pixel of the rectangle `(x0, y0)–(x1, y1)` (exclusive).
-    pub fn update_rect(&mut self, x0: usize, y0: usize, x1: usize, y1: usize, f: &dyn Fn(usize) -> Color32) {
+    pub fn update_rect(&mut self, x0: usize, y0: usize, x1: usize, y1: usize, f: &(dyn Fn(usize) -> Color32 + Sync)) {
         let tx = self.w.div_ceil(self.side);
         let (cx0, cy0) = (x0 / self.side, y0 / self.side);
         let (cx1, cy1) = ((x1.max(x0 + 1) - 1) / self.side, (y1.max(y0 + 1) - 1) / self.side);
@@ -163,7 +181,14 @@ impl Tiles {
     }
 }
 
-fn tile_image(w: usize, h: usize, side: usize, t: usize, f: &dyn Fn(usize) -> Color32) -> ColorImage {
+/// The images of every tile of a `w × h` picture, made in parallel.
+pub fn tile_images(w: usize, h: usize, side: usize, f: &(dyn Fn(usize) -> Color32 + Sync)) -> Vec<ColorImage> {
+    use rayon::prelude::*;
+    let count = w.div_ceil(side) * h.div_ceil(side);
+    (0..count).into_par_iter().map(|t| tile_image(w, h, side, t, f)).collect()
+}
+
+fn tile_image(w: usize, h: usize, side: usize, t: usize, f: &(dyn Fn(usize) -> Color32 + Sync)) -> ColorImage {
     let tx = w.div_ceil(side);
     let (x0, y0) = ((t % tx) * side, (t / tx) * side);
     let (x1, y1) = ((x0 + side).min(w), (y0 + side).min(h));

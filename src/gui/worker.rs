@@ -12,10 +12,16 @@ use crate::raster::{self, Raster};
 
 /// What a worker reports.
 pub enum Message {
+    /// An image read, with its display stretch and the tiles of its picture made off the UI thread.
     Loaded {
         path: PathBuf,
         raster: Box<Raster>,
         mask: Option<Mask>,
+        /// The file's no-data value and how many pixels held it (or NaN); they are in `mask`.
+        nodata: Option<f64>,
+        missing: usize,
+        stretch: super::canvas::Stretch,
+        tiles: Vec<egui::ColorImage>,
     },
     Progress {
         cycle: usize,
@@ -81,7 +87,27 @@ impl Worker {
         Self::spawn("load", repaint, move |tx, _| {
             let msg = match raster::load(&path) {
                 Ok(r) => match mask_path.map(|m| raster::load_mask(&m, r.width, r.height)).transpose() {
-                    Ok(mask) => Message::Loaded { path, raster: Box::new(r), mask },
+                    Ok(mask) => {
+                        // No-data and NaN samples are damage too: they join the mask from the start.
+                        let nodata = r.metadata.nodata.as_deref().and_then(raster::nodata::parse_nodata);
+                        let missing = raster::nodata::missing_samples(&r, nodata);
+                        let mask = if missing.is_empty() {
+                            mask
+                        } else {
+                            let mut m = mask.unwrap_or_else(|| Mask::new(r.width, r.height));
+                            for (a, &b) in m.bits_mut().iter_mut().zip(missing.bits()) {
+                                *a |= b;
+                            }
+                            Some(m)
+                        };
+                        let missing = missing.count();
+                        let stretch = super::canvas::Stretch::of(&r);
+                        let (planes, layout) = (&r.planes, r.layout);
+                        let tiles = super::canvas::tile_images(r.width, r.height, super::canvas::IMAGE_TILE, &|i| {
+                            super::canvas::colour(planes, layout, stretch, i)
+                        });
+                        Message::Loaded { path, raster: Box::new(r), mask, nodata, missing, stretch, tiles }
+                    }
                     Err(e) => Message::Failed(e.to_string()),
                 },
                 Err(e) => Message::Failed(e.to_string()),

@@ -298,3 +298,33 @@ fn live_mode_refills_after_a_stroke_and_saving_over_a_file_asks_first() {
     settle(&mut h);
     assert!(raster::load(&out).is_ok(), "{}", h.state().status);
 }
+
+#[test]
+fn mask_saved_and_loaded_back_and_zoom_keys() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture(dir.path());
+    let mut h = harness();
+    h.state_mut().open_field = input.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(&mut h);
+    h.get_by_label("Invert").click();
+    h.run();
+    let all = h.state().doc.as_ref().unwrap().mask.count();
+    assert_eq!(all, 64 * 48);
+    let mask = dir.path().join("m.png");
+    h.state_mut().mask_field = mask.display().to_string();
+    h.run();
+    h.get_by_label("Save mask").click();
+    h.run();
+    h.get_by_label("Clear").click();
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0);
+    h.get_by_label("Load mask").click();
+    h.run();
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), all, "{}", h.state().status);
+    let zoom = h.state().view.zoom;
+    h.key_press(egui::Key::Plus);
+    h.run();
+    assert!((h.state().view.zoom / zoom - 1.25).abs() < 1e-3);
+}

@@ -111,6 +111,10 @@ pub enum Command {
     InvertMask,
     Fit,
     OneToOne,
+    /// Zoom about the canvas centre by a factor.
+    Zoom(f32),
+    /// Load a mask PNG of the image's size, replacing the current mask (undoable).
+    LoadMask(PathBuf),
     /// Look for damage with a detector; the result is shown for review.
     Find(crate::cli::DetectMethod),
     /// Add the proposal to the mask, or replace the mask with it, or drop it.
@@ -184,6 +188,9 @@ pub struct App {
     dialog: Option<std::sync::mpsc::Receiver<Option<PathBuf>>>,
     /// Tiles of a just-loaded picture, made by the loader, waiting to be uploaded.
     pending_tiles: Option<Vec<egui::ColorImage>>,
+    canvas_rect: Rect,
+    /// The mask or its colour changed as a whole: rebuild the overlay tiles (only those).
+    overlay_dirty: bool,
     live_refill: bool,
     /// A fill was asked for while another ran; run it when that one ends.
     refill_after: bool,
@@ -230,6 +237,8 @@ impl Default for App {
             settings: super::Settings::default(),
             dialog: None,
             pending_tiles: None,
+            canvas_rect: Rect::from_min_size(Pos2::ZERO, Vec2::new(800.0, 600.0)),
+            overlay_dirty: false,
             live_refill: false,
             refill_after: false,
             worker: None,
@@ -370,6 +379,12 @@ impl App {
                 if i.key_pressed(Key::Num1) {
                     out.push(Command::OneToOne);
                 }
+                if i.key_pressed(Key::Plus) || i.key_pressed(Key::Equals) {
+                    out.push(Command::Zoom(1.25));
+                }
+                if i.key_pressed(Key::Minus) {
+                    out.push(Command::Zoom(0.8));
+                }
                 if i.key_pressed(Key::OpenBracket) {
                     self.radius = (self.radius / 1.25).max(0.5);
                 }
@@ -448,6 +463,9 @@ impl App {
             if ui.add_enabled(self.doc.is_some(), egui::Button::new("Save mask")).clicked() {
                 out.push(Command::SaveMask(PathBuf::from(self.mask_field.trim())));
             }
+            if ui.add_enabled(self.doc.is_some(), egui::Button::new("Load mask")).clicked() {
+                out.push(Command::LoadMask(PathBuf::from(self.mask_field.trim())));
+            }
             let label = ui.label("Report to");
             ui.add(egui::TextEdit::singleline(&mut self.report_field).desired_width(140.0)).labelled_by(label.id);
             if ui.add_enabled(self.last_fill.is_some(), egui::Button::new("Save report")).clicked() {
@@ -501,14 +519,22 @@ impl App {
                 out.push(Command::InvertMask);
             }
         });
-        ui.checkbox(&mut self.overlay_visible, "Show mask (M)");
+        ui.horizontal(|ui| {
+            ui.checkbox(&mut self.overlay_visible, "Show mask (M)");
+            let before = self.overlay_colour;
+            let label = ui.label("Colour");
+            ui.color_edit_button_srgba(&mut self.overlay_colour).labelled_by(label.id);
+            if self.overlay_colour != before {
+                self.overlay_dirty = true;
+            }
+        });
         let mut alpha = f32::from(self.overlay_colour.a()) / 255.0;
         if ui.add(egui::Slider::new(&mut alpha, 0.1..=1.0).text("Opacity")).changed() {
             let [r, g, b, _] = self.overlay_colour.to_srgba_unmultiplied();
             #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
             let a = (alpha * 255.0).round() as u8;
             self.overlay_colour = Color32::from_rgba_unmultiplied(r, g, b, a);
-            self.textures = None;
+            self.overlay_dirty = true;
         }
         ui.separator();
         ui.heading("Detect");
@@ -636,6 +662,7 @@ impl App {
                     ("middle drag, Space + drag", "pan"),
                     ("wheel, pinch", "zoom about the cursor"),
                     ("F / 1", "fit / actual pixels"),
+                    ("+ / -", "zoom in / out"),
                     ("M", "show or hide the mask"),
                     ("B", "blink between before and after"),
                     ("Ctrl+Z", "undo"),
@@ -656,6 +683,7 @@ impl App {
     fn canvas_ui(&mut self, ui: &mut egui::Ui) -> Vec<Command> {
         let (response, painter) = ui.allocate_painter(ui.available_size(), Sense::click_and_drag());
         let rect = response.rect;
+        self.canvas_rect = rect;
         painter.rect_filled(rect, 0.0, Color32::from_gray(40));
         let Some(doc) = &mut self.doc else {
             return Vec::new();
@@ -670,6 +698,11 @@ impl App {
         let textures = self
             .textures
             .get_or_insert_with(|| make_textures(&ctx, doc, self.overlay_colour, self.pending_tiles.take()));
+        if std::mem::take(&mut self.overlay_dirty) {
+            let (mask, colour) = (&doc.mask, self.overlay_colour);
+            let (w, h) = (mask.width(), mask.height());
+            textures.overlay = Tiles::new(&ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::overlay(mask, colour, i));
+        }
         if doc.result.is_some() && textures.after.is_none() {
             textures.after = Some(after_tiles(&ctx, doc));
         }
@@ -1021,7 +1054,7 @@ impl App {
                     Ok(mask) => {
                         d.mask = mask;
                         d.refresh();
-                        self.textures = None;
+                        self.overlay_dirty = true;
                     }
                     Err(e) => self.status = e.to_string(),
                 }
@@ -1164,7 +1197,7 @@ impl App {
                 }
                 self.history.push(edit);
                 d.refresh();
-                self.textures = None;
+                self.overlay_dirty = true;
             }
             Command::Find(method) => {
                 let Some(d) = &self.doc else { return };
@@ -1184,7 +1217,7 @@ impl App {
                 self.history.push(edit);
                 d.refresh();
                 self.overlay_visible = true;
-                self.textures = None;
+                self.overlay_dirty = true;
             }
             Command::DiscardProposal => {
                 self.proposal = None;
@@ -1263,6 +1296,23 @@ impl App {
                 self.finish_mask_edit(edit);
             }
             Command::Fit => self.view.fit_pending = true,
+            Command::Zoom(factor) => {
+                let centre = self.canvas_rect.center();
+                self.view.zoom_about(centre, factor);
+            }
+            Command::LoadMask(path) => {
+                let Some(d) = &mut self.doc else { return };
+                match raster::load_mask(&path, d.original.width, d.original.height) {
+                    Ok(mask) => {
+                        let mut edit = Edit::default();
+                        edit.save_all(&d.mask);
+                        d.mask = mask;
+                        self.status = format!("loaded the mask {}", path.display());
+                        self.finish_mask_edit(edit);
+                    }
+                    Err(e) => self.status = e.to_string(),
+                }
+            }
             Command::OneToOne => {
                 let centre = self.view.screen_from_image(Pos2::ZERO);
                 self.view.zoom_about(centre, 1.0 / self.view.zoom);
@@ -1280,7 +1330,7 @@ impl App {
             d.refresh();
         }
         self.overlay_visible = true;
-        self.textures = None;
+        self.overlay_dirty = true;
     }
 }
 

@@ -903,7 +903,17 @@ impl App {
             after.paint(&painter, &self.view, rect, Color32::WHITE);
         }
         if self.overlay_visible {
-            textures.overlay.paint(&painter, &self.view, rect, Color32::WHITE);
+            if self.compare == Compare::SideBySide {
+                // The mask on both images.
+                let half = rect.width() / 2.0;
+                let left = Rect::from_min_size(rect.min, Vec2::new(half, rect.height()));
+                let right = Rect::from_min_max(Pos2::new(rect.left() + half, rect.top()), rect.max);
+                let right_view = View { origin: self.view.origin + Vec2::new(half, 0.0), ..self.view };
+                textures.overlay.paint(&painter, &self.view, left, Color32::WHITE);
+                textures.overlay.paint(&painter, &right_view, right, Color32::WHITE);
+            } else {
+                textures.overlay.paint(&painter, &self.view, rect, Color32::WHITE);
+            }
         }
         if let Some(p) = &self.proposal {
             let tiles = textures.proposal.get_or_insert_with(|| {

@@ -1391,7 +1391,9 @@ fn heat(t: f32) -> Color32 {
 fn difference_tiles(ctx: &egui::Context, d: &Document) -> (Tiles, f32) {
     let (w, h) = (d.original.width, d.original.height);
     let after = d.result.as_ref().unwrap_or(&d.original.planes);
+    use rayon::prelude::*;
     let diff: Vec<f32> = (0..w * h)
+        .into_par_iter()
         .map(|i| {
             after
                 .iter()
@@ -1401,7 +1403,7 @@ fn difference_tiles(ctx: &egui::Context, d: &Document) -> (Tiles, f32) {
                 .fold(0.0, f32::max)
         })
         .collect();
-    let max = diff.iter().copied().fold(0.0, f32::max);
+    let max = diff.par_iter().copied().reduce(|| 0.0, f32::max);
     let scale = if max > 0.0 { 1.0 / max } else { 0.0 };
     (Tiles::new(ctx, "difference", w, h, IMAGE_TILE, &|i| heat(diff[i] * scale)), max)
 }

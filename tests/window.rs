@@ -44,31 +44,40 @@ fn settle(h: &mut Harness<'_, App>) {
     panic!("background work did not finish");
 }
 
+/// Types `path` into the image field and opens it, waiting for the load.
+fn open(h: &mut Harness<'_, App>, path: &Path) {
+    h.state_mut().open_field = path.display().to_string();
+    h.run();
+    h.get_by_label("Open").click();
+    settle(h);
+}
+
+/// Drags with the primary button from `a` to `b` (image coordinates) in `steps` moves.
+fn drag(h: &mut Harness<'_, App>, a: Pos2, b: Pos2, steps: usize) {
+    let view = h.state().view;
+    let (a, b) = (view.screen_from_image(a), view.screen_from_image(b));
+    h.hover_at(a);
+    h.step();
+    h.drag_at(a);
+    h.step();
+    for k in 1..=steps {
+        h.hover_at(a + (b - a) * (k as f32 / steps as f32));
+        h.step();
+    }
+    h.drop_at(b);
+}
+
 #[test]
 fn open_paint_fill_undo_compare_save() {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(dir.path());
     let mut h = harness();
-    h.state_mut().open_field = input.display().to_string();
-    h.run();
-    h.get_by_label("Open").click();
-    settle(&mut h);
+    open(&mut h, &input);
     assert!(h.state().doc.is_some(), "opened: {}", h.state().status);
 
     // Paint a horizontal stroke across the middle of the image.
     h.state_mut().radius = 2.0;
-    let view = h.state().view;
-    let a = view.screen_from_image(Pos2::new(20.0, 24.0));
-    let b = view.screen_from_image(Pos2::new(44.0, 24.0));
-    h.hover_at(a);
-    h.step();
-    h.drag_at(a);
-    h.step();
-    for k in 1..=10 {
-        h.hover_at(a + (b - a) * (k as f32 / 10.0));
-        h.step();
-    }
-    h.drop_at(b);
+    drag(&mut h, Pos2::new(20.0, 24.0), Pos2::new(44.0, 24.0), 10);
     h.run();
     let painted = h.state().doc.as_ref().unwrap().mask.count();
     assert!(painted > 40, "the stroke marked {painted} pixels");
@@ -135,10 +144,7 @@ fn a_file_that_fails_says_why_in_the_status() {
     let bad = dir.path().join("notes.png");
     std::fs::write(&bad, "not an image").unwrap();
     let mut h = harness();
-    h.state_mut().open_field = bad.display().to_string();
-    h.run();
-    h.get_by_label("Open").click();
-    settle(&mut h);
+    open(&mut h, &bad);
     assert!(h.state().doc.is_none());
     assert!(h.state().status.contains("notes.png"), "{}", h.state().status);
 }
@@ -148,10 +154,7 @@ fn a_geotiff_with_a_void_opens_with_the_void_marked_and_saves_with_its_tags() {
     let dir = tempfile::tempdir().unwrap();
     let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-images/island-elevation.tif");
     let mut h = harness();
-    h.state_mut().open_field = input.display().to_string();
-    h.run();
-    h.get_by_label("Open").click();
-    settle(&mut h);
+    open(&mut h, &input);
     // The sample's void is 1258 pixels of -32768, its declared no-data (GDAL_NODATA).
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 1258, "{}", h.state().status);
     h.get_by_label("Fill").click();
@@ -170,10 +173,7 @@ fn a_geotiff_with_a_void_opens_with_the_void_marked_and_saves_with_its_tags() {
 fn found_damage_is_shown_for_review_then_added() {
     let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-images/starfield-frame.tif");
     let mut h = harness();
-    h.state_mut().open_field = input.display().to_string();
-    h.run();
-    h.get_by_label("Open").click();
-    settle(&mut h);
+    open(&mut h, &input);
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0);
     h.get_by_label("Find").click();
     settle(&mut h);
@@ -194,25 +194,12 @@ fn box_pick_grow_shrink_and_difference() {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(dir.path());
     let mut h = harness();
-    h.state_mut().open_field = input.display().to_string();
-    h.run();
-    h.get_by_label("Open").click();
-    settle(&mut h);
+    open(&mut h, &input);
 
     // Box: drag from the centre of pixel (10, 10) to that of (19, 15): pixels 10..20 × 10..16.
     h.get_by_label("Box").click();
     h.run();
-    let view = h.state().view;
-    let (a, b) = (view.screen_from_image(Pos2::new(10.5, 10.5)), view.screen_from_image(Pos2::new(19.5, 15.5)));
-    h.hover_at(a);
-    h.step();
-    h.drag_at(a);
-    h.step();
-    for k in 1..=5 {
-        h.hover_at(a + (b - a) * (k as f32 / 5.0));
-        h.step();
-    }
-    h.drop_at(b);
+    drag(&mut h, Pos2::new(10.5, 10.5), Pos2::new(19.5, 15.5), 5);
     h.run();
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60, "a 10×6 box");
 
@@ -252,24 +239,11 @@ fn live_mode_refills_after_a_stroke_and_saving_over_a_file_asks_first() {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(dir.path());
     let mut h = harness();
-    h.state_mut().open_field = input.display().to_string();
-    h.run();
-    h.get_by_label("Open").click();
-    settle(&mut h);
+    open(&mut h, &input);
     h.get_by_label("Live: re-fill after each edit").click();
     h.run();
     assert!(h.state().live);
-    let view = h.state().view;
-    let (a, b) = (view.screen_from_image(Pos2::new(22.0, 24.0)), view.screen_from_image(Pos2::new(41.0, 24.0)));
-    h.hover_at(a);
-    h.step();
-    h.drag_at(a);
-    h.step();
-    for k in 1..=6 {
-        h.hover_at(a + (b - a) * (k as f32 / 6.0));
-        h.step();
-    }
-    h.drop_at(b);
+    drag(&mut h, Pos2::new(22.0, 24.0), Pos2::new(41.0, 24.0), 6);
     h.step();
     settle(&mut h);
     assert!(h.state().doc.as_ref().unwrap().result.is_some(), "filled without pressing Fill");
@@ -304,10 +278,7 @@ fn mask_saved_and_loaded_back_and_zoom_keys() {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(dir.path());
     let mut h = harness();
-    h.state_mut().open_field = input.display().to_string();
-    h.run();
-    h.get_by_label("Open").click();
-    settle(&mut h);
+    open(&mut h, &input);
     h.get_by_label("Invert").click();
     h.run();
     let all = h.state().doc.as_ref().unwrap().mask.count();

@@ -299,3 +299,34 @@ fn mask_saved_and_loaded_back_and_zoom_keys() {
     h.run();
     assert!((h.state().view.zoom / zoom - 1.25).abs() < 1e-3);
 }
+
+#[test]
+fn holes_over_the_size_limit_are_left_and_reported() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-images/island-elevation.tif");
+    let mut h = harness();
+    open(&mut h, &input);
+    assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 1258, "the void is marked");
+    // Also mark a small box away from the void; then leave holes over 100 pixels.
+    h.get_by_label("Box").click();
+    h.run();
+    drag(&mut h, Pos2::new(20.5, 20.5), Pos2::new(24.5, 24.5), 4);
+    h.run();
+    h.state_mut().max_hole = Some(100);
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    let d = h.state().doc.as_ref().unwrap();
+    let result = d.result.as_ref().expect("the small hole was filled");
+    let w = d.original.width;
+    assert_eq!(result[0][175 + 110 * w], -32768.0, "the void (over the limit) is left as it was");
+    assert_ne!(result[0][22 + 22 * w], d.original.planes[0][22 + 22 * w], "the box was filled");
+    let report = dir.path().join("r.json");
+    h.state_mut().report_field = report.display().to_string();
+    h.run();
+    h.get_by_label("Save report").click();
+    h.run();
+    let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&report).unwrap()).unwrap();
+    assert_eq!(json["skipped_pixels"], 1258);
+    assert_eq!(json["unknowns"], 25);
+    assert_eq!(json["nodata_pixels"], 1258);
+}

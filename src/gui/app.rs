@@ -56,8 +56,12 @@ pub struct Document {
     /// Marked pixels (kept with `holes`, so no frame counts them).
     pub marked: usize,
     pub stretch: Stretch,
-    /// The no-data value the file declares, kept off by filled samples.
+    /// The no-data value the file declares, kept off by filled samples, and how many pixels held
+    /// it (or NaN) when the file was opened.
     pub nodata: Option<f64>,
+    pub nodata_pixels: usize,
+    /// Holes left unfilled by the last fill because they were larger than the limit.
+    pub skipped: Vec<crate::mask::Hole>,
     /// The mask the result was filled under (the mask may have been edited since).
     pub result_mask: Option<Mask>,
 }
@@ -67,7 +71,19 @@ impl Document {
         let mask = mask.unwrap_or_else(|| Mask::new(original.width, original.height));
         let holes = mask.hole_stats();
         let marked = mask.count();
-        Self { path, original, result: None, mask, holes, marked, stretch, nodata: None, result_mask: None }
+        Self {
+            path,
+            original,
+            result: None,
+            mask,
+            holes,
+            marked,
+            stretch,
+            nodata: None,
+            nodata_pixels: 0,
+            skipped: Vec::new(),
+            result_mask: None,
+        }
     }
 
     /// Recounts the mask's pixels and holes after an edit.
@@ -177,6 +193,8 @@ pub struct App {
     pub close_prompt: bool,
     /// Re-fill automatically after every mask edit (warm start from the last result).
     pub live: bool,
+    /// Leave holes larger than this many pixels unfilled (`None`: fill every hole).
+    pub max_hole: Option<usize>,
     pub report_field: String,
     /// A save waiting for the user to confirm replacing an existing file.
     pub pending_overwrite: Option<Command>,
@@ -230,6 +248,7 @@ impl Default for App {
             unsaved: false,
             close_prompt: false,
             live: false,
+            max_hole: None,
             report_field: String::new(),
             pending_overwrite: None,
             box_anchor: None,
@@ -596,6 +615,14 @@ impl App {
             }
         }
         ui.checkbox(&mut self.live, "Live: re-fill after each edit");
+        ui.horizontal(|ui| {
+            let mut limit = self.max_hole.is_some();
+            ui.checkbox(&mut limit, "Leave holes over");
+            let mut n = self.max_hole.unwrap_or(10_000);
+            let label = ui.label("px");
+            ui.add_enabled(limit, egui::DragValue::new(&mut n).range(1..=usize::MAX)).labelled_by(label.id);
+            self.max_hole = limit.then_some(n);
+        });
         ui.small(CAUTION);
         ui.separator();
         ui.heading("Compare");
@@ -978,6 +1005,7 @@ impl App {
                     }
                     let mut doc = Document::new(path, *raster, mask, stretch);
                     doc.nodata = nodata;
+                    doc.nodata_pixels = missing;
                     self.doc = Some(doc);
                     self.textures = None;
                     self.history = History::default();
@@ -1130,8 +1158,19 @@ impl App {
                     None => (d.original.planes.clone(), Start::FullMultigrid),
                 };
                 let params = FillParams { tolerance: self.tolerance, ..FillParams::default() };
-                self.status = "filling…".to_owned();
-                self.worker = Some(Worker::fill(planes, d.mask.clone(), params, start, repaint));
+                let mut fill_mask = d.mask.clone();
+                d.skipped = self.max_hole.map(|n| fill_mask.drop_holes_larger_than(n)).unwrap_or_default();
+                self.status = if d.skipped.is_empty() {
+                    "filling…".to_owned()
+                } else {
+                    format!("filling, leaving {} hole(s) over the size limit…", d.skipped.len())
+                };
+                if fill_mask.is_empty() {
+                    self.status = "every hole is over the size limit; nothing to fill".to_owned();
+                    d.result = (start == Start::Warm).then_some(planes);
+                    return;
+                }
+                self.worker = Some(Worker::fill(planes, fill_mask, params, start, repaint));
             }
             Command::Cancel => {
                 if let Some(w) = &self.worker {
@@ -1171,6 +1210,10 @@ impl App {
                     crate::report::Report::new(inputs, &d.original, filled, &filled.hole_stats(), fill, self.tolerance);
                 let saved = PathBuf::from(self.save_field.trim());
                 report.output = crate::report::FileRecord::of(&saved).ok().filter(|_| !self.unsaved);
+                report.nodata = d.nodata.map(|v| v.to_string());
+                report.nodata_pixels = d.nodata_pixels;
+                report.skipped_pixels = d.skipped.iter().map(|h| h.pixels).sum();
+                report.skipped_holes = d.skipped.iter().take(crate::report::HOLE_LIST_MAX).copied().collect();
                 let json = report.to_json();
                 self.status = match raster::write_atomic(&path, |w| {
                     use std::io::Write;

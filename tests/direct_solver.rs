@@ -1,6 +1,9 @@
 //! Agreement with an independent general-purpose sparse direct solver (faer's sparse Cholesky,
 //! `SparseColMat::sp_cholesky`) on the same 5-point system, for every mask family.
 
+// Source: faer 0.24, `SparseColMat::sp_cholesky` (a general-purpose sparse direct solver); the
+// 1e-4-of-range bound is the Core issue's.
+
 use faer::Mat;
 use faer::Side;
 use faer::prelude::Solve;

@@ -5,6 +5,8 @@
 //! in exact rational arithmetic) and (b) the same fractions re-derived here by exact Gaussian
 //! elimination over the rationals, independent of the solver under test.
 
+// Source: ORACLES.md §3 (computed check, exact rational arithmetic), re-derived below.
+
 use reweave::mask::Mask;
 
 use crate::common::fill_plane;

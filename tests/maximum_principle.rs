@@ -2,6 +2,9 @@
 //! principle: each unknown is the mean of its in-image neighbours; textbook, e.g. LeVeque, Finite
 //! Difference Methods for ODEs and PDEs, SIAM 2007, §3.4; ORACLES.md §3).
 
+// Source: discrete maximum principle, LeVeque, Finite Difference Methods for ODEs and PDEs,
+// SIAM 2007, §3.4 (textbook); the f32 rounding slack is half an ulp of the values (common practice).
+
 use reweave::fill::{FillParams, fill};
 use reweave::synth::{MaskFamily, Rng};
 

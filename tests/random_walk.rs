@@ -3,6 +3,9 @@
 //! Random Walk: A Modern Introduction, CUP 2010, ch. 6). A neighbour outside the image is not a
 //! choice for the walk, which is the natural boundary of the fill.
 
+// Source: Doyle & Snell, Random Walks and Electric Networks, MAA 1984, ch. 1 §1.2 (from memory for
+// the section); the 4-standard-error bound is common practice (normal tails, ORACLES.md §3).
+
 use reweave::mask::Mask;
 use reweave::synth::{Rng, paint_disk};
 

@@ -1,6 +1,10 @@
 //! Through `reweave fill`, every supported sample format and channel layout comes back in the same
 //! format and layout, with every sample outside the mask identical to the input, bit for bit.
 
+// Source: TIFF 6.0 §19 (SampleFormat) and W3C PNG 3rd ed. §7.1 (sample depths); that samples
+// outside the mask come back bit for bit is the Core issue's requirement (common practice for
+// lossless formats).
+
 use std::path::Path;
 use std::process::Command;
 

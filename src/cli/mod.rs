@@ -102,11 +102,7 @@ pub fn run(cli: Cli) -> ExitCode {
 
 /// Same file, whether or not both exist yet (compared after resolving what can be resolved).
 #[must_use]
-pub fn same_path(a: &std::path::Path, b: &std::path::Path) -> bool {
-    same_file(a, b)
-}
-
-fn same_file(a: &std::path::Path, b: &std::path::Path) -> bool {
+pub fn same_file(a: &std::path::Path, b: &std::path::Path) -> bool {
     let resolve = |p: &std::path::Path| -> PathBuf {
         if let Ok(c) = p.canonicalize() {
             return c;

@@ -1085,18 +1085,6 @@ impl App {
             if std::mem::take(&mut self.refill_after) && self.doc.is_some() {
                 self.live_refill = true;
             }
-            if let Some(m) = self.mask_after_load.take()
-                && let Some(d) = &mut self.doc
-            {
-                match raster::load_mask(&m, d.original.width, d.original.height) {
-                    Ok(mask) => {
-                        d.mask = mask;
-                        d.refresh();
-                        self.overlay_dirty = true;
-                    }
-                    Err(e) => self.status = e.to_string(),
-                }
-            }
             ctx.request_repaint();
         }
     }
@@ -1134,7 +1122,8 @@ impl App {
                 }
                 self.status = format!("opening {}…", path.display());
                 self.open_field = path.display().to_string();
-                self.worker = Some(Worker::load(path, None, repaint));
+                // A mask given with the file is read by the loader too, off the UI thread.
+                self.worker = Some(Worker::load(path, self.mask_after_load.take(), repaint));
             }
             Command::Fill => {
                 let Some(d) = &mut self.doc else { return };
@@ -1182,7 +1171,7 @@ impl App {
                 if self.worker.is_some() {
                     return;
                 }
-                if path.as_os_str().is_empty() || crate::cli::same_path(&path, &d.path) {
+                if path.as_os_str().is_empty() || crate::cli::same_file(&path, &d.path) {
                     self.status = "choose a file name for the result other than the input".to_owned();
                     return;
                 }

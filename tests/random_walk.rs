@@ -9,7 +9,7 @@
 use reweave::mask::Mask;
 use reweave::synth::{Rng, paint_disk};
 
-use crate::common::fill_plane;
+use crate::common::{STRUCTURES, fill_plane_with};
 
 /// Mean and standard error of the known value first reached by `walks` walks from `(x0, y0)`.
 fn walk_estimate(mask: &Mask, plane: &[f32], x0: usize, y0: usize, walks: usize, rng: &mut Rng) -> (f64, f64) {
@@ -52,14 +52,20 @@ fn check(mask: &Mask, points: &[(usize, usize)], seed: u64) {
     let (w, h) = (mask.width(), mask.height());
     let mut rng = Rng::new(seed);
     let rough: Vec<f64> = (0..w * h).map(|_| rng.uniform()).collect();
-    let (plane, _) = fill_plane(w, h, mask, |x, y| rough[y as usize * w + x as usize], 1e-10);
+    let fills: Vec<Vec<f32>> = STRUCTURES
+        .iter()
+        .map(|&s| fill_plane_with(s, w, h, mask, |x, y| rough[y as usize * w + x as usize], 1e-10).0)
+        .collect();
+    let plane = &fills[0];
     let mut rng = Rng::new(seed + 1);
     for &(x, y) in points {
         assert!(mask.get(x, y), "({x},{y}) must be in the hole");
-        let (mc, se) = walk_estimate(mask, &plane, x, y, 40_000, &mut rng);
-        let u = f64::from(plane[y * w + x]);
-        // |MC − u| ≤ 4 SE: a false alarm has probability about 6e-5 per point (normal tails).
-        assert!((mc - u).abs() <= 4.0 * se, "at ({x},{y}): walks give {mc} ± {se}, fill gives {u}");
+        let (mc, se) = walk_estimate(mask, plane, x, y, 40_000, &mut rng);
+        for (s, fill) in STRUCTURES.iter().zip(&fills) {
+            let u = f64::from(fill[y * w + x]);
+            // |MC − u| ≤ 4 SE: a false alarm has probability about 6e-5 per point (normal tails).
+            assert!((mc - u).abs() <= 4.0 * se, "at ({x},{y}), {s:?}: walks give {mc} ± {se}, fill gives {u}");
+        }
     }
 }
 

@@ -99,6 +99,7 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
                 crate::raster::save(&r, &dir.join(format!("{stem}.tif")))?;
             }
             let mut best: Option<(f64, f64, crate::fill::FillReport, usize, u64)> = None;
+            let mut storage = String::new();
             for _ in 0..args.repeat.max(1) {
                 let mut planes = originals.clone();
                 let base = current_rss().unwrap_or(0);
@@ -111,7 +112,10 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
                 let report = solver.solve(&mut views, &params, Start::FullMultigrid, &mut |_| true)?;
                 let solve = t1.elapsed().as_secs_f64();
                 let peak = peak_rss().unwrap_or(0).saturating_sub(base);
-                let hier = solver.hierarchy().map_or(0, crate::fill::Hierarchy::memory_bytes);
+                let hier = solver.memory_bytes();
+                let grids = solver.level_sizes().iter().filter(|(grid, _)| *grid).count();
+                let lists = solver.level_sizes().len() - grids;
+                storage = format!("{grids} grid, {lists} compact");
                 if best.as_ref().is_none_or(|b| setup + solve < b.0 + b.1) {
                     best = Some((setup, solve, report, hier, peak));
                 }
@@ -134,6 +138,8 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
                 "hierarchy_mb": round(hier as f64 / 1e6, 1),
                 "peak_extra_mb": round(peak as f64 / 1e6, 1),
                 "peak_over_image": round(peak as f64 / image_bytes, 2),
+                "storage": storage,
+                "history": report.channels[0].history.iter().map(|r| format!("{r:.1e}")).collect::<Vec<_>>(),
                 "threads": if args.threads == 0 { rayon::current_num_threads() } else { args.threads },
             });
             println!("{line}");

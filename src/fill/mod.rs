@@ -24,6 +24,7 @@
 //! ```
 
 mod dense;
+mod grid;
 mod hierarchy;
 mod kernels;
 mod solve;
@@ -160,11 +161,140 @@ pub enum FillError {
     Cancelled,
 }
 
+/// How a [`Solver`] stores its multigrid levels.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Structure {
+    /// Grids for the holes that fill much of their bounding box, index lists for the rest.
+    #[default]
+    Auto,
+    /// Index lists for every hole: memory and work follow the unknowns on any mask.
+    Compact,
+    /// One grid over the bounding box of all unknowns (falls back to index lists for a mask
+    /// that does not coarsen on a grid). Mostly for tests and benchmarks.
+    Grid,
+}
+
+/// A hole (or set of holes) this size or larger may get a grid.
+const GRID_MIN_UNKNOWNS: usize = 4096;
+/// ... when its unknowns are at least this share of its bounding box (with margin).
+const GRID_MIN_DENSITY: f64 = 0.3;
+
+/// One independently solved part of a mask.
+#[derive(Debug)]
+enum Part {
+    Compact(Hierarchy),
+    Grid(grid::Grid),
+}
+
+impl Part {
+    fn unknowns(&self) -> usize {
+        match self {
+            Self::Compact(h) => h.unknowns(),
+            Self::Grid(g) => g.unknowns(),
+        }
+    }
+}
+
+/// The solution of one channel group of one part, held until every part has succeeded.
+pub(crate) struct GroupResult {
+    /// The part's iterate, `C` channels interleaved (over the unknowns of a compact part, over the
+    /// box of a grid part).
+    pub values: Vec<f64>,
+    pub reports: Vec<ChannelReport>,
+    /// Squared norms of the final residual and of the right-hand side, per channel.
+    pub r_sq: Vec<f64>,
+    pub b_sq: Vec<f64>,
+}
+
+/// The bounding box of `(x, y)` pixels, grown by one pixel within the image.
+fn margin_box(
+    (x_min, y_min, x_max, y_max): (usize, usize, usize, usize),
+    width: usize,
+    height: usize,
+) -> (usize, usize, usize, usize) {
+    let (x0, y0) = (x_min.saturating_sub(1), y_min.saturating_sub(1));
+    let (x1, y1) = ((x_max + 1).min(width - 1), (y_max + 1).min(height - 1));
+    (x0, y0, x1 - x0 + 1, y1 - y0 + 1)
+}
+
+#[allow(clippy::cast_precision_loss)] // pixel counts are far below 2^52
+fn dense_enough(unknowns: usize, (_, _, w, h): (usize, usize, usize, usize)) -> bool {
+    unknowns >= GRID_MIN_UNKNOWNS && unknowns as f64 >= GRID_MIN_DENSITY * (w * h) as f64
+}
+
+/// Splits `mask` into parts: grids where the unknowns are dense in their box, index lists for the
+/// rest.
+fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
+    let (width, height) = (mask.width(), mask.height());
+    let bits = mask.bits();
+    let mut count = 0usize;
+    let mut bbox = (usize::MAX, usize::MAX, 0, 0);
+    for (p, _) in bits.iter().enumerate().filter(|(_, b)| **b) {
+        let (x, y) = (p % width, p / width);
+        count += 1;
+        bbox = (bbox.0.min(x), bbox.1.min(y), bbox.2.max(x), bbox.3.max(y));
+    }
+    if count == 0 {
+        return Vec::new();
+    }
+    let whole = margin_box(bbox, width, height);
+    let compact = |m: &Mask| Hierarchy::build(m).map(Part::Compact);
+    let one_grid = || grid::Grid::build(whole, (width, height), |x, y| bits[y * width + x]).map(Part::Grid);
+    match structure {
+        Structure::Compact => return compact(mask).into_iter().collect(),
+        Structure::Grid => return one_grid().or_else(|| compact(mask)).into_iter().collect(),
+        Structure::Auto => {}
+    }
+    if dense_enough(count, whole)
+        && let Some(part) = one_grid()
+    {
+        return vec![part];
+    }
+    // Hole by hole: each dense, large hole gets its own grid (holes never touch, so their boxes
+    // may overlap); everything else shares one compact hierarchy.
+    let (labels, sizes) = mask.label_holes();
+    let mut boxes = vec![(usize::MAX, usize::MAX, 0, 0); sizes.len()];
+    for (p, &l) in labels.iter().enumerate().filter(|(_, l)| **l != 0) {
+        let (x, y) = (p % width, p / width);
+        let b = &mut boxes[l as usize - 1];
+        *b = (b.0.min(x), b.1.min(y), b.2.max(x), b.3.max(y));
+    }
+    let mut parts = Vec::new();
+    let mut rest = mask.clone();
+    for (k, (&size, &b)) in sizes.iter().zip(&boxes).enumerate() {
+        let bx = margin_box(b, width, height);
+        if !dense_enough(size, bx) {
+            continue;
+        }
+        let label = u32::try_from(k + 1).unwrap_or(u32::MAX);
+        let Some(g) = grid::Grid::build(bx, (width, height), |x, y| labels[y * width + x] == label) else {
+            continue;
+        };
+        parts.push(Part::Grid(g));
+        let (x0, y0, w, h) = bx;
+        for y in y0..y0 + h {
+            for x in x0..x0 + w {
+                if labels[y * width + x] == label {
+                    rest.set(x, y, false);
+                }
+            }
+        }
+    }
+    drop(labels);
+    if parts.is_empty() {
+        return compact(mask).into_iter().collect();
+    }
+    if !rest.is_empty() {
+        parts.extend(compact(&rest));
+    }
+    parts
+}
+
 /// A mask's solver: the multigrid hierarchy, built once and reused for any number of images of
 /// that size (a bad-pixel map applied to many frames) or re-solves after an edit.
 #[derive(Debug)]
 pub struct Solver {
-    hierarchy: Option<Hierarchy>,
+    parts: Vec<Part>,
     width: usize,
     height: usize,
     setup_seconds: f64,
@@ -176,20 +306,66 @@ impl Solver {
     /// # Errors
     /// [`FillError::NoKnownPixels`] when every pixel is masked.
     pub fn new(mask: &Mask) -> Result<Self, FillError> {
+        Self::with_structure(mask, Structure::Auto)
+    }
+
+    /// Builds the hierarchy of `mask` with the given storage (results agree to the tolerance
+    /// whichever is used).
+    ///
+    /// # Errors
+    /// [`FillError::NoKnownPixels`] when every pixel is masked.
+    pub fn with_structure(mask: &Mask, structure: Structure) -> Result<Self, FillError> {
         let t0 = Instant::now();
         let (width, height) = (mask.width(), mask.height());
         let count = mask.count();
         if count > 0 && count == width * height {
             return Err(FillError::NoKnownPixels);
         }
-        let hierarchy = Hierarchy::build(mask);
-        Ok(Self { hierarchy, width, height, setup_seconds: t0.elapsed().as_secs_f64() })
+        let parts = plan(mask, structure);
+        Ok(Self { parts, width, height, setup_seconds: t0.elapsed().as_secs_f64() })
     }
 
-    /// The hierarchy, or `None` for an empty mask.
+    /// Number of unknowns (masked pixels).
     #[must_use]
-    pub fn hierarchy(&self) -> Option<&Hierarchy> {
-        self.hierarchy.as_ref()
+    pub fn unknowns(&self) -> usize {
+        self.parts.iter().map(Part::unknowns).sum()
+    }
+
+    /// Multigrid levels of the deepest part (0 for an empty mask).
+    #[must_use]
+    pub fn depth(&self) -> usize {
+        self.parts
+            .iter()
+            .map(|p| match p {
+                Part::Compact(h) => h.depth(),
+                Part::Grid(g) => g.depth(),
+            })
+            .max()
+            .unwrap_or(0)
+    }
+
+    /// Points per level of each part, finest first, and whether the part is a grid.
+    #[must_use]
+    pub fn level_sizes(&self) -> Vec<(bool, Vec<usize>)> {
+        self.parts
+            .iter()
+            .map(|p| match p {
+                Part::Compact(h) => (false, h.level_sizes()),
+                Part::Grid(g) => (true, g.level_sizes()),
+            })
+            .collect()
+    }
+
+    /// Bytes held by the hierarchy (not counting the per-image workspace).
+    #[must_use]
+    pub fn memory_bytes(&self) -> usize {
+        self.parts
+            .iter()
+            .map(|p| match p {
+                Part::Compact(h) => h.memory_bytes(),
+                Part::Grid(g) => g.memory_bytes(),
+            })
+            .sum()
     }
 
     /// Seconds spent building the hierarchy.
@@ -220,19 +396,17 @@ impl Solver {
         let t0 = Instant::now();
         let mut report = FillReport {
             method: params.method,
-            unknowns: 0,
-            levels: 0,
+            unknowns: self.unknowns(),
+            levels: self.depth(),
             channels: vec![ChannelReport::default(); planes.len()],
             setup_seconds: self.setup_seconds,
             solve_seconds: 0.0,
         };
-        let Some(h) = &self.hierarchy else {
+        if self.parts.is_empty() {
             return Ok(report);
-        };
-        report.unknowns = h.unknowns();
-        report.levels = h.depth();
-        let mut run = || solve::solve_planes(h, planes, params, start, progress);
-        let channels = if params.threads == 0 {
+        }
+        let mut run = || self.solve_parts(planes, params, start, progress);
+        report.channels = if params.threads == 0 {
             run()?
         } else {
             match rayon::ThreadPoolBuilder::new().num_threads(params.threads).build() {
@@ -240,9 +414,65 @@ impl Solver {
                 Err(_) => run()?,
             }
         };
-        report.channels = channels;
         report.solve_seconds = t0.elapsed().as_secs_f64();
         Ok(report)
+    }
+
+    /// Solves every part, up to four channels per pass, and writes the planes only when all
+    /// succeeded (so an error or a cancel leaves them unchanged).
+    fn solve_parts(
+        &self,
+        planes: &mut [&mut [f32]],
+        params: &FillParams,
+        start: Start,
+        progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+    ) -> Result<Vec<ChannelReport>, FillError> {
+        let channels = planes.len();
+        let mut pending = Vec::new();
+        let mut r_sq = vec![0f64; channels];
+        let mut b_sq = vec![0f64; channels];
+        let mut reports = vec![ChannelReport::default(); channels];
+        let largest = (0..self.parts.len()).max_by_key(|&k| self.parts[k].unknowns()).unwrap_or(0);
+        for (k, part) in self.parts.iter().enumerate() {
+            for first in (0..channels).step_by(4) {
+                let group = &planes[first..channels.min(first + 4)];
+                let result = match part {
+                    Part::Compact(h) => match group.len() {
+                        1 => solve::solve_group::<1>(h, group, params, start, progress)?,
+                        2 => solve::solve_group::<2>(h, group, params, start, progress)?,
+                        3 => solve::solve_group::<3>(h, group, params, start, progress)?,
+                        _ => solve::solve_group::<4>(h, group, params, start, progress)?,
+                    },
+                    Part::Grid(g) => match group.len() {
+                        1 => grid::solve_group::<1>(g, group, params, start, progress)?,
+                        2 => grid::solve_group::<2>(g, group, params, start, progress)?,
+                        3 => grid::solve_group::<3>(g, group, params, start, progress)?,
+                        _ => grid::solve_group::<4>(g, group, params, start, progress)?,
+                    },
+                };
+                for (c, rep) in result.reports.iter().enumerate() {
+                    r_sq[first + c] += result.r_sq[c];
+                    b_sq[first + c] += result.b_sq[c];
+                    let out = &mut reports[first + c];
+                    out.cycles = out.cycles.max(rep.cycles);
+                    if k == largest {
+                        out.history.clone_from(&rep.history);
+                    }
+                }
+                pending.push((k, first, group.len(), result.values));
+            }
+        }
+        for (c, out) in reports.iter_mut().enumerate() {
+            let bnorm = if b_sq[c] > 0.0 { b_sq[c].sqrt() } else { 1.0 };
+            out.relative_residual = r_sq[c].sqrt() / bnorm;
+        }
+        for (k, first, count, values) in pending {
+            match &self.parts[k] {
+                Part::Compact(h) => solve::write_back(h, planes, first, count, &values),
+                Part::Grid(g) => grid::write_back(g, planes, first, count, &values),
+            }
+        }
+        Ok(reports)
     }
 }
 

@@ -11,7 +11,7 @@
 
 use super::hierarchy::{Coarsest, Hierarchy, K_FINE, Level};
 use super::kernels;
-use super::{ChannelReport, Cycle, FillError, FillParams, Progress, Start};
+use super::{ChannelReport, Cycle, FillError, FillParams, GroupResult, Progress, Start};
 
 /// Per-level vectors for `C` channels: solution (or correction), right-hand side and residual,
 /// each `(n + 1) · C` long (the last point is the ghost).
@@ -152,52 +152,14 @@ impl<'a, const C: usize> Cycler<'a, C> {
     }
 }
 
-/// Solves for every plane, up to four channels per pass.
-pub(super) fn solve_planes(
-    h: &Hierarchy,
-    planes: &mut [&mut [f32]],
-    params: &FillParams,
-    start: Start,
-    progress: &mut (dyn FnMut(&Progress) -> bool + Send),
-) -> Result<Vec<ChannelReport>, FillError> {
-    // Solve everything first and write back only when all groups succeeded, so an error or a
-    // cancel leaves the planes unchanged.
-    let mut solutions = Vec::new();
-    let mut reports = Vec::new();
-    let groups = planes.len().div_ceil(4);
-    for g in 0..groups {
-        let group = &planes[g * 4..planes.len().min(g * 4 + 4)];
-        let (u, rep) = match group.len() {
-            1 => solve_group::<1>(h, group, params, start, progress)?,
-            2 => solve_group::<2>(h, group, params, start, progress)?,
-            3 => solve_group::<3>(h, group, params, start, progress)?,
-            _ => solve_group::<4>(h, group, params, start, progress)?,
-        };
-        solutions.push((g * 4, group.len(), u));
-        reports.extend(rep);
-    }
-    let lv0 = &h.levels[0];
-    for (first, count, u) in solutions {
-        for c in 0..count {
-            let plane = &mut planes[first + c];
-            for (i, &p) in lv0.pos.iter().enumerate() {
-                #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
-                {
-                    plane[p as usize] = u[i * count + c] as f32;
-                }
-            }
-        }
-    }
-    Ok(reports)
-}
-
-fn solve_group<const C: usize>(
+/// Solves one group of `C` planes over the hierarchy's unknowns.
+pub(super) fn solve_group<const C: usize>(
     h: &Hierarchy,
     planes: &[&mut [f32]],
     params: &FillParams,
     start: Start,
     progress: &mut (dyn FnMut(&Progress) -> bool + Send),
-) -> Result<(Vec<f64>, Vec<ChannelReport>), FillError> {
+) -> Result<GroupResult, FillError> {
     let mut cy = Cycler::<C>::new(h, params);
     let lv0 = &h.levels[0];
     let (w, hh) = (h.width, h.height);
@@ -228,7 +190,8 @@ fn solve_group<const C: usize>(
             }
         }
     }
-    let bnorm = kernels::norm_sq::<C>(&cy.work[0].b, lv0.n).map(|s| if s > 0.0 { s.sqrt() } else { 1.0 });
+    let b_sq = kernels::norm_sq::<C>(&cy.work[0].b, lv0.n);
+    let bnorm = b_sq.map(|s| if s > 0.0 { s.sqrt() } else { 1.0 });
 
     match start {
         Start::FullMultigrid => cy.full_multigrid(),
@@ -245,7 +208,7 @@ fn solve_group<const C: usize>(
     let mut cycles = usize::from(start == Start::FullMultigrid);
     let mut reports: Vec<ChannelReport> = (0..C).map(|_| ChannelReport::default()).collect();
     let mut done = [false; C];
-    loop {
+    let r_sq = loop {
         let LevelWork { u, b, r } = &mut cy.work[0];
         let sq = residual::<C>(lv0, u, b, r, &mut cy.partial);
         let mut worst = 0f64;
@@ -260,7 +223,7 @@ fn solve_group<const C: usize>(
             worst = worst.max(rel);
         }
         if done.iter().all(|&d| d) {
-            break;
+            break sq;
         }
         if !worst.is_finite() || cycles >= params.max_cycles {
             return Err(FillError::NoConvergence { residual: worst, cycles });
@@ -275,8 +238,20 @@ fn solve_group<const C: usize>(
         }
         cy.cycle(0, params.cycle);
         cycles += 1;
+    };
+    let mut values = std::mem::take(&mut cy.work[0].u);
+    values.truncate(lv0.n * C);
+    Ok(GroupResult { values, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec() })
+}
+
+/// Writes a group's values into the planes.
+pub(super) fn write_back(h: &Hierarchy, planes: &mut [&mut [f32]], first: usize, count: usize, values: &[f64]) {
+    for (i, &p) in h.levels[0].pos.iter().enumerate() {
+        for c in 0..count {
+            #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
+            {
+                planes[first + c][p as usize] = values[i * count + c] as f32;
+            }
+        }
     }
-    let mut u = std::mem::take(&mut cy.work[0].u);
-    u.truncate(lv0.n * C);
-    Ok((u, reports))
 }

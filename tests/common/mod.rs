@@ -2,11 +2,27 @@
 
 #![allow(dead_code)] // not every test module uses every helper
 
-use reweave::fill::{FillParams, FillReport, Solver, Start};
+use reweave::fill::{FillParams, FillReport, Solver, Start, Structure};
 use reweave::mask::Mask;
 
-/// Fills one plane whose known pixels hold `f(x, y)`; masked pixels start as `start_value`.
+/// Both ways the solver can store its levels; the oracle tests check each.
+pub const STRUCTURES: [Structure; 2] = [Structure::Compact, Structure::Grid];
+
+/// Fills one plane whose known pixels hold `f(x, y)` (masked pixels start at a junk value) with
+/// the solver's automatic choice of storage.
 pub fn fill_plane(
+    w: usize,
+    h: usize,
+    mask: &Mask,
+    f: impl Fn(f64, f64) -> f64,
+    tolerance: f64,
+) -> (Vec<f32>, FillReport) {
+    fill_plane_with(Structure::Auto, w, h, mask, f, tolerance)
+}
+
+/// [`fill_plane`] with the given storage.
+pub fn fill_plane_with(
+    structure: Structure,
     w: usize,
     h: usize,
     mask: &Mask,
@@ -16,7 +32,7 @@ pub fn fill_plane(
     let mut plane: Vec<f32> =
         (0..w * h).map(|i| if mask.bits()[i] { 12345.0 } else { f((i % w) as f64, (i / w) as f64) as f32 }).collect();
     let params = FillParams { tolerance, ..FillParams::default() };
-    let solver = Solver::new(mask).expect("mask leaves known pixels");
+    let solver = Solver::with_structure(mask, structure).expect("mask leaves known pixels");
     let report =
         solver.solve(&mut [&mut plane[..]], &params, Start::FullMultigrid, &mut |_| true).expect("fill converges");
     (plane, report)

@@ -1,0 +1,1396 @@
+//! Structured multigrid for dense holes: the same discretisation, coarsening rule, interpolation
+//! and Galerkin operators as the compact hierarchy ([`super::hierarchy`]), stored on rectangular
+//! grids over the bounding box of the unknowns.
+//!
+//! The compact hierarchy keeps index lists per point, which lets cost follow the unknowns on
+//! sparse masks (scratches, dead pixels) but costs 16–36 bytes of indices per point and pass. When
+//! the unknowns fill a good share of their bounding box (large holes, a frame, random dropout) a
+//! grid is cheaper by far:
+//!
+//! - level 0 is the `f64` iterate over the box (known pixels hold their values, so the 5-point
+//!   stencil needs no right-hand side) and one bit per pixel saying which pixels are unknown;
+//! - coarse levels hold `f32` corrections and right-hand sides on padded grids, and one stencil id
+//!   per point: 0 for no point, 1 for the level's interior stencil (the Galerkin operator far
+//!   from any known pixel, which is the same everywhere), or an index into a table of the stencils
+//!   computed near known pixels and the image edge;
+//! - interpolation and restriction weights are computed on the fly: bilinear where every parent is
+//!   an interior point, operator-dependent (collapsed stencils) elsewhere;
+//! - the level-0 residual is computed row by row inside the restriction and never stored, and the
+//!   red-black sweep runs as one wavefront per sweep (the black cells of row `y − 1` right after the
+//!   red cells of row `y`), so one sweep reads and writes the iterate once.
+//!
+//! Gauss-Seidel within one colour is order-independent and partial sums are added in a fixed
+//! order, so results do not depend on the number of threads.
+
+#![allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
+// Grid coordinates are far below 2^31 (images are limited on load), so casts between `usize`
+// and `isize` are exact, and `f64 → f32` is the storage precision of the coarse levels.
+
+use rayon::prelude::*;
+
+use super::dense::Cholesky;
+use super::{ChannelReport, Cycle, FillError, FillParams, GroupResult, Progress, Start};
+
+/// Stop coarsening once a level has at most this many points; it is then solved directly.
+const COARSEST_MAX: usize = 256;
+/// Largest coarsest level that is factored densely; above it, the coarsest level is relaxed.
+const DENSE_MAX: usize = 1500;
+/// A coarse level must have at most this share of the finer level's points to be worth making.
+const MIN_REDUCTION: f64 = 0.7;
+/// Rows per parallel task for the passes over coarse levels and the norms.
+const ROWS: usize = 16;
+/// Stencil id of "no point here".
+const NONE: u32 = 0;
+/// Stencil id of the level's interior stencil.
+const INTERIOR: u32 = 1;
+
+/// The interpolation column of an interior point: bilinear.
+const BILINEAR: [f32; 9] = [0.25, 0.5, 0.25, 0.5, 1.0, 0.5, 0.25, 0.5, 0.25];
+
+/// The stencil slot of offset `(dx, dy)`: row-major over the 3×3 neighbourhood, centre 4.
+const fn slot(dx: isize, dy: isize) -> usize {
+    ((dy + 1) * 3 + (dx + 1)) as usize
+}
+
+/// A raw pointer shared by tasks that write disjoint elements (see each use).
+#[derive(Clone, Copy)]
+struct Shared<T>(*mut T);
+// SAFETY: every use writes elements no other task reads or writes during that pass.
+unsafe impl<T> Send for Shared<T> {}
+// SAFETY: as above.
+unsafe impl<T> Sync for Shared<T> {}
+impl<T> Shared<T> {
+    fn get(self) -> *mut T {
+        self.0
+    }
+}
+
+/// Which pixels of the box are unknowns: one bit per pixel, rows padded to whole words.
+#[derive(Debug)]
+pub(crate) struct Members {
+    w: usize,
+    h: usize,
+    words: usize,
+    bits: Vec<u64>,
+}
+
+impl Members {
+    fn new(w: usize, h: usize) -> Self {
+        let words = w.div_ceil(64);
+        Self { w, h, words, bits: vec![0; words * h] }
+    }
+
+    fn get(&self, x: isize, y: isize) -> bool {
+        if x < 0 || y < 0 || x >= self.w as isize || y >= self.h as isize {
+            return false;
+        }
+        let (x, y) = (x as usize, y as usize);
+        self.bits[y * self.words + x / 64] >> (x % 64) & 1 == 1
+    }
+
+    /// Like [`Members::for_row`], but in spans: `span(first, end)` stands for the cells `first,
+    /// first + step, … < end` (step 2 for one colour, else 1). A word whose cells are all members
+    /// is one span; other members come one by one as `span(x, x + 1)`.
+    #[inline]
+    fn for_row_spans(&self, y: usize, colour: Option<usize>, mut span: impl FnMut(usize, usize)) {
+        const EVEN: u64 = 0x5555_5555_5555_5555;
+        let pattern = match colour {
+            Some(c) if (c + y).is_multiple_of(2) => EVEN,
+            Some(_) => !EVEN,
+            None => !0,
+        };
+        for (wi, &word) in self.bits[y * self.words..(y + 1) * self.words].iter().enumerate() {
+            let mut m = word & pattern;
+            if m == pattern {
+                span(wi * 64 + pattern.trailing_zeros() as usize, wi * 64 + 64);
+                continue;
+            }
+            while m != 0 {
+                let x = wi * 64 + m.trailing_zeros() as usize;
+                span(x, x + 1);
+                m &= m - 1;
+            }
+        }
+    }
+
+    /// Calls `f(x)` for every member of row `y`, of one colour (`(x + y) % 2 == colour`) or all.
+    #[inline]
+    fn for_row(&self, y: usize, colour: Option<usize>, mut f: impl FnMut(usize)) {
+        const EVEN: u64 = 0x5555_5555_5555_5555;
+        let pattern = match colour {
+            Some(c) if (c + y).is_multiple_of(2) => EVEN,
+            Some(_) => !EVEN,
+            None => !0,
+        };
+        for (wi, &word) in self.bits[y * self.words..(y + 1) * self.words].iter().enumerate() {
+            let mut m = word & pattern;
+            while m != 0 {
+                f(wi * 64 + m.trailing_zeros() as usize);
+                m &= m - 1;
+            }
+        }
+    }
+}
+
+/// One coarse level: a padded grid (one ring of absent points) of stencil ids.
+#[derive(Debug)]
+pub(crate) struct Coarse {
+    w: usize,
+    h: usize,
+    /// Padded row length, `w + 2`.
+    pw: usize,
+    /// Stencil id per padded point: [`NONE`], [`INTERIOR`] or an index into `table`.
+    id: Vec<u32>,
+    /// Stencils by id (9 entries, row-major 3×3, centre = diagonal); `table[0]` is all zero.
+    table: Vec<[f32; 9]>,
+    /// Interpolation columns by id: the weight of the point in the rows of the 3×3 fine points
+    /// around it (bilinear for the interior id).
+    pcol: Vec<[f32; 9]>,
+    /// Number of points.
+    n: usize,
+}
+
+impl Coarse {
+    fn at(&self, x: usize, y: usize) -> usize {
+        (y + 1) * self.pw + x + 1
+    }
+
+    fn padded_len(&self) -> usize {
+        self.pw * (self.h + 2)
+    }
+
+    /// Offsets of the 9 stencil slots in the padded grid.
+    fn offsets(&self) -> [isize; 9] {
+        let pw = self.pw as isize;
+        [-pw - 1, -pw, -pw + 1, -1, 0, 1, pw - 1, pw, pw + 1]
+    }
+}
+
+/// How the coarsest level is solved.
+#[derive(Debug)]
+enum Coarsest {
+    /// Cholesky factor of the level's operator over its points (padded indices).
+    Dense { points: Vec<usize>, chol: Cholesky },
+    /// Symmetric Gauss-Seidel sweeps.
+    Relax(usize),
+}
+
+/// The structured hierarchy of one part of a mask.
+#[derive(Debug)]
+pub(crate) struct Grid {
+    /// The box in image coordinates (it includes a one-pixel margin where the image allows).
+    x0: usize,
+    y0: usize,
+    w: usize,
+    h: usize,
+    img_w: usize,
+    img_h: usize,
+    members: Members,
+    n: usize,
+    levels: Vec<Coarse>,
+    coarsest: Coarsest,
+}
+
+/// The view of a fine level that building the next coarser one needs.
+trait FineView: Sync {
+    fn dims(&self) -> (usize, usize);
+    /// Whether a point exists at `(x, y)` (false outside the grid).
+    fn active(&self, x: isize, y: isize) -> bool;
+    /// The operator row of the point at `(x, y)`; couplings to absent points are zero.
+    fn stencil(&self, x: usize, y: usize) -> [f64; 9];
+    /// Whether the point has the level's interior stencil (and so every neighbour present).
+    fn interior(&self, x: usize, y: usize) -> bool;
+}
+
+/// Level 0 seen through its membership bits and the image edge.
+struct Level0<'a> {
+    g: &'a Grid,
+}
+
+impl FineView for Level0<'_> {
+    fn dims(&self) -> (usize, usize) {
+        (self.g.w, self.g.h)
+    }
+    fn active(&self, x: isize, y: isize) -> bool {
+        self.g.members.get(x, y)
+    }
+    fn stencil(&self, x: usize, y: usize) -> [f64; 9] {
+        let g = self.g;
+        let (xi, yi) = (x as isize, y as isize);
+        let (gx, gy) = (g.x0 + x, g.y0 + y);
+        let mut s = [0f64; 9];
+        let mut deg = 0.0;
+        for (dx, dy, inside) in [(-1, 0, gx > 0), (1, 0, gx + 1 < g.img_w), (0, -1, gy > 0), (0, 1, gy + 1 < g.img_h)] {
+            if inside {
+                deg += 1.0;
+                if g.members.get(xi + dx, yi + dy) {
+                    s[slot(dx, dy)] = -1.0;
+                }
+            }
+        }
+        s[4] = deg;
+        s
+    }
+    fn interior(&self, x: usize, y: usize) -> bool {
+        let (xi, yi) = (x as isize, y as isize);
+        let m = &self.g.members;
+        m.get(xi, yi) && m.get(xi - 1, yi) && m.get(xi + 1, yi) && m.get(xi, yi - 1) && m.get(xi, yi + 1)
+    }
+}
+
+impl FineView for Coarse {
+    fn dims(&self) -> (usize, usize) {
+        (self.w, self.h)
+    }
+    fn active(&self, x: isize, y: isize) -> bool {
+        x >= 0
+            && y >= 0
+            && (x as usize) < self.w
+            && (y as usize) < self.h
+            && self.id[self.at(x as usize, y as usize)] != NONE
+    }
+    fn stencil(&self, x: usize, y: usize) -> [f64; 9] {
+        self.table[self.id[self.at(x, y)] as usize].map(f64::from)
+    }
+    fn interior(&self, x: usize, y: usize) -> bool {
+        self.id[self.at(x, y)] == INTERIOR
+    }
+}
+
+/// An unbounded level where every point has the same stencil.
+struct Uniform([f64; 9]);
+
+impl FineView for Uniform {
+    fn dims(&self) -> (usize, usize) {
+        (64, 64)
+    }
+    fn active(&self, x: isize, y: isize) -> bool {
+        (0..64).contains(&x) && (0..64).contains(&y)
+    }
+    fn stencil(&self, _: usize, _: usize) -> [f64; 9] {
+        self.0
+    }
+    fn interior(&self, _: usize, _: usize) -> bool {
+        true
+    }
+}
+
+/// One row of the interpolation: up to four coarse parents (coarse coordinates) and weights.
+#[derive(Clone, Copy, Default)]
+struct PRow {
+    n: usize,
+    at: [(isize, isize); 4],
+    w: [f64; 4],
+}
+
+impl PRow {
+    fn push(&mut self, at: (isize, isize), w: f64) {
+        self.at[self.n] = at;
+        self.w[self.n] = if w.is_finite() { w.clamp(0.0, 1.0) } else { 0.0 };
+        self.n += 1;
+    }
+
+    fn weight_of(&self, c: (isize, isize)) -> f64 {
+        (0..self.n).find(|&k| self.at[k] == c).map_or(0.0, |k| self.w[k])
+    }
+}
+
+/// The interpolation row of the fine point `(x, y)`, which must be present: operator-dependent
+/// weights exactly as in [`super::hierarchy`] (see `coarsen` there).
+fn prow<F: FineView>(f: &F, x: usize, y: usize) -> PRow {
+    let (xi, yi) = (x as isize, y as isize);
+    let mut r = PRow::default();
+    match (x % 2, y % 2) {
+        (0, 0) => r.push((xi / 2, yi / 2), 1.0),
+        (1, 0) => {
+            let s = f.stencil(x, y);
+            let den = s[4] + s[1] + s[7];
+            if den > 0.0 {
+                if f.active(xi - 1, yi) {
+                    r.push(((xi - 1) / 2, yi / 2), -(s[0] + s[3] + s[6]) / den);
+                }
+                if f.active(xi + 1, yi) {
+                    r.push(((xi + 1) / 2, yi / 2), -(s[2] + s[5] + s[8]) / den);
+                }
+            }
+        }
+        (0, 1) => {
+            let s = f.stencil(x, y);
+            let den = s[4] + s[3] + s[5];
+            if den > 0.0 {
+                if f.active(xi, yi - 1) {
+                    r.push((xi / 2, (yi - 1) / 2), -(s[0] + s[1] + s[2]) / den);
+                }
+                if f.active(xi, yi + 1) {
+                    r.push((xi / 2, (yi + 1) / 2), -(s[6] + s[7] + s[8]) / den);
+                }
+            }
+        }
+        _ => {
+            let s = f.stencil(x, y);
+            let d = s[4];
+            let corners = [(xi - 1, yi - 1), (xi + 1, yi - 1), (xi - 1, yi + 1), (xi + 1, yi + 1)];
+            let coarse = corners.map(|(cx, cy)| (cx / 2, cy / 2));
+            let mut acc = [0f64; 4];
+            for dy in -1isize..=1 {
+                for dx in -1isize..=1 {
+                    let a = s[slot(dx, dy)];
+                    if a == 0.0 || (dx, dy) == (0, 0) {
+                        continue;
+                    }
+                    let share = -a / d;
+                    if dx != 0 && dy != 0 {
+                        acc[usize::from(dx > 0) + 2 * usize::from(dy > 0)] += share;
+                    } else if f.active(xi + dx, yi + dy) {
+                        let pg = prow(f, (xi + dx) as usize, (yi + dy) as usize);
+                        for k in 0..pg.n {
+                            if let Some(c) = coarse.iter().position(|&c| c == pg.at[k]) {
+                                acc[c] += share * pg.w[k];
+                            }
+                        }
+                    }
+                }
+            }
+            if d > 0.0 {
+                for c in 0..4 {
+                    if f.active(corners[c].0, corners[c].1) {
+                        r.push(coarse[c], acc[c]);
+                    }
+                }
+            }
+        }
+    }
+    r
+}
+
+/// The Galerkin row `(Pᵀ·A·P)` of the coarse point `(cx, cy)` as a 3×3 stencil, and its
+/// interpolation column: the weights of `(cx, cy)` in the rows of the fine points around
+/// `(2cx, 2cy)`, in the same 3×3 layout.
+fn galerkin<F: FineView>(f: &F, cx: usize, cy: usize) -> ([f64; 9], [f64; 9]) {
+    let (wf, hf) = f.dims();
+    let (fx0, fy0) = (2 * cx as isize, 2 * cy as isize);
+    // Interpolation rows of the fine points within two of (2cx, 2cy).
+    let mut rows = [[None::<PRow>; 5]; 5];
+    for (oy, row) in rows.iter_mut().enumerate() {
+        for (ox, r) in row.iter_mut().enumerate() {
+            let (x, y) = (fx0 + ox as isize - 2, fy0 + oy as isize - 2);
+            if f.active(x, y) {
+                *r = Some(prow(f, x as usize, y as usize));
+            }
+        }
+    }
+    let me = (cx as isize, cy as isize);
+    let mut acc = [0f64; 9];
+    let mut column = [0f64; 9];
+    for fy in -1isize..=1 {
+        for fx in -1isize..=1 {
+            let Some(pr) = rows[(fy + 2) as usize][(fx + 2) as usize] else { continue };
+            let pf = pr.weight_of(me);
+            column[slot(fx, fy)] = pf;
+            if pf == 0.0 {
+                continue;
+            }
+            let (x, y) = (fx0 + fx, fy0 + fy);
+            debug_assert!((x as usize) < wf && (y as usize) < hf);
+            let s = f.stencil(x as usize, y as usize);
+            for dy in -1isize..=1 {
+                for dx in -1isize..=1 {
+                    let a = s[slot(dx, dy)];
+                    if a == 0.0 {
+                        continue;
+                    }
+                    let Some(pg) = rows[(fy + dy + 2) as usize][(fx + dx + 2) as usize] else { continue };
+                    for k in 0..pg.n {
+                        let (ox, oy) = (pg.at[k].0 - me.0, pg.at[k].1 - me.1);
+                        if ox.abs() <= 1 && oy.abs() <= 1 {
+                            acc[slot(ox, oy)] += pf * a * pg.w[k];
+                        }
+                    }
+                }
+            }
+        }
+    }
+    (acc, column)
+}
+
+/// The next coarser level of `f`, whose interior stencil is `interior`.
+fn coarsen<F: FineView>(f: &F, interior: [f32; 9]) -> Coarse {
+    let (wf, hf) = f.dims();
+    let (wc, hc) = (wf.div_ceil(2), hf.div_ceil(2));
+    let pw = wc + 2;
+    // A coarse point has the interior stencil when every fine point within three of it (in both
+    // directions) is an interior point: first erode each fine row horizontally ...
+    let eroded: Vec<Vec<bool>> = (0..hf)
+        .into_par_iter()
+        .map(|y| {
+            let inner: Vec<bool> = (0..wf).map(|x| f.interior(x, y)).collect();
+            let mut out = vec![false; wf];
+            let mut run = 0usize;
+            // run = number of consecutive interior points ending at x.
+            let mut runs = vec![0usize; wf];
+            for x in 0..wf {
+                run = if inner[x] { run + 1 } else { 0 };
+                runs[x] = run;
+            }
+            for (x, o) in out.iter_mut().enumerate() {
+                *o = x >= 3 && x + 3 < wf && runs[x + 3] >= 7;
+            }
+            out
+        })
+        .collect();
+    // ... then check the seven rows around each coarse row.
+    type Row = (Vec<u32>, Vec<([f32; 9], [f32; 9])>);
+    let rows: Vec<Row> = (0..hc)
+        .into_par_iter()
+        .map(|cy| {
+            let mut ids = vec![NONE; wc];
+            let mut local = Vec::new();
+            for (cx, id) in ids.iter_mut().enumerate() {
+                if !f.active(2 * cx as isize, 2 * cy as isize) {
+                    continue;
+                }
+                let fy = 2 * cy as isize;
+                let inner = (fy - 3..=fy + 3).all(|y| y >= 0 && (y as usize) < hf && eroded[y as usize][2 * cx]);
+                if inner {
+                    *id = INTERIOR;
+                } else {
+                    let (s, p) = galerkin(f, cx, cy);
+                    *id = 2 + local.len() as u32;
+                    local.push((s.map(|v| v as f32), p.map(|v| v as f32)));
+                }
+            }
+            (ids, local)
+        })
+        .collect();
+    drop(eroded);
+    let mut id = vec![NONE; pw * (hc + 2)];
+    let mut table = vec![[0f32; 9], interior];
+    let mut pcol = vec![[0f32; 9], BILINEAR];
+    let mut n = 0;
+    for (cy, (ids, local)) in rows.into_iter().enumerate() {
+        let base = table.len() as u32 - 2;
+        for (cx, &v) in ids.iter().enumerate() {
+            if v != NONE {
+                n += 1;
+                id[(cy + 1) * pw + cx + 1] = if v == INTERIOR { INTERIOR } else { v + base };
+            }
+        }
+        for (st, col) in local {
+            table.push(st);
+            pcol.push(col);
+        }
+    }
+    Coarse { w: wc, h: hc, pw, id, table, pcol, n }
+}
+
+impl Grid {
+    /// Builds the hierarchy over the box `(x0, y0, w, h)` of a `img_w × img_h` image, whose
+    /// unknowns are the pixels where `member(x, y)` (image coordinates) holds. The box must contain
+    /// a one-pixel margin around the unknowns wherever the image allows. Returns `None` if the
+    /// unknowns do not coarsen (the compact hierarchy then takes them).
+    pub(crate) fn build(
+        (x0, y0, w, h): (usize, usize, usize, usize),
+        (img_w, img_h): (usize, usize),
+        member: impl Fn(usize, usize) -> bool + Sync,
+    ) -> Option<Self> {
+        let mut members = Members::new(w, h);
+        let words = members.words;
+        let counts: Vec<usize> = members
+            .bits
+            .par_chunks_mut(words)
+            .enumerate()
+            .map(|(y, row)| {
+                let mut count = 0;
+                for x in 0..w {
+                    if member(x0 + x, y0 + y) {
+                        row[x / 64] |= 1 << (x % 64);
+                        count += 1;
+                    }
+                }
+                count
+            })
+            .collect();
+        let n = counts.iter().sum();
+        let mut g = Self { x0, y0, w, h, img_w, img_h, members, n, levels: Vec::new(), coarsest: Coarsest::Relax(8) };
+        let mut interior = [0.0, -1.0, 0.0, -1.0, 4.0, -1.0, 0.0, -1.0, 0.0];
+        let mut fine_n = n;
+        loop {
+            let next_interior = galerkin(&Uniform(interior), 16, 16).0;
+            let next_f32 = next_interior.map(|v| v as f32);
+            let coarse = match g.levels.last() {
+                None => coarsen(&Level0 { g: &g }, next_f32),
+                Some(last) => coarsen(last, next_f32),
+            };
+            if coarse.n == 0 || coarse.n as f64 > MIN_REDUCTION * fine_n as f64 {
+                break;
+            }
+            interior = next_f32.map(f64::from);
+            fine_n = coarse.n;
+            let (cw, ch) = (coarse.w, coarse.h);
+            g.levels.push(coarse);
+            if fine_n <= COARSEST_MAX || (cw <= 2 && ch <= 2) {
+                break;
+            }
+        }
+        let last = g.levels.last()?;
+        g.coarsest =
+            if last.n <= DENSE_MAX { dense_coarsest(last).unwrap_or(Coarsest::Relax(8)) } else { Coarsest::Relax(8) };
+        Some(g)
+    }
+
+    /// Number of unknowns.
+    pub(crate) fn unknowns(&self) -> usize {
+        self.n
+    }
+
+    /// Multigrid levels, the finest included.
+    pub(crate) fn depth(&self) -> usize {
+        self.levels.len() + 1
+    }
+
+    /// Points per level, finest first.
+    pub(crate) fn level_sizes(&self) -> Vec<usize> {
+        std::iter::once(self.n).chain(self.levels.iter().map(|l| l.n)).collect()
+    }
+
+    /// Bytes held by the hierarchy (not counting the per-image workspace).
+    pub(crate) fn memory_bytes(&self) -> usize {
+        let mut total = self.members.bits.len() * 8;
+        for l in &self.levels {
+            total += l.id.len() * 4 + l.table.len() * 72;
+        }
+        if let Coarsest::Dense { points, .. } = &self.coarsest {
+            total += points.len() * (8 + points.len() * 8);
+        }
+        total
+    }
+
+    /// Calls `f(box index, image index)` for every unknown.
+    fn for_each_member(&self, mut f: impl FnMut(usize, usize)) {
+        for y in 0..self.h {
+            self.members.for_row(y, None, |x| f(y * self.w + x, (self.y0 + y) * self.img_w + self.x0 + x));
+        }
+    }
+}
+
+fn dense_coarsest(level: &Coarse) -> Option<Coarsest> {
+    let mut points = Vec::with_capacity(level.n);
+    let mut index = vec![usize::MAX; level.padded_len()];
+    for y in 0..level.h {
+        for x in 0..level.w {
+            let i = level.at(x, y);
+            if level.id[i] != NONE {
+                index[i] = points.len();
+                points.push(i);
+            }
+        }
+    }
+    let n = points.len();
+    let off = level.offsets();
+    let mut a = vec![0f64; n * n];
+    for (r, &i) in points.iter().enumerate() {
+        let s = &level.table[level.id[i] as usize];
+        for k in 0..9 {
+            let j = (i as isize + off[k]) as usize;
+            if index[j] != usize::MAX {
+                a[r * n + index[j]] += f64::from(s[k]);
+            }
+        }
+    }
+    for i in 0..n {
+        for j in 0..i {
+            let s = 0.5 * (a[i * n + j] + a[j * n + i]);
+            a[i * n + j] = s;
+            a[j * n + i] = s;
+        }
+    }
+    Cholesky::factor(n, a).map(|chol| Coarsest::Dense { points, chol })
+}
+
+/// Per-image vectors for `C` interleaved channels.
+struct Work<const C: usize> {
+    /// Level 0: the iterate over the box (known pixels hold their values).
+    u: Vec<f64>,
+    /// Coarse levels: corrections and right-hand sides, padded.
+    e: Vec<Vec<f32>>,
+    rhs: Vec<Vec<f32>>,
+    coarse_x: Vec<f64>,
+    /// Per level: three fine residual rows for each task of [`Cycler::descend`].
+    scratch: Vec<Vec<f64>>,
+    /// Partial sums of the residual norm, one per task of `ROWS` rows.
+    partial: Vec<[f64; C]>,
+}
+
+struct Cycler<'a, const C: usize> {
+    g: &'a Grid,
+    params: &'a FillParams,
+    work: Work<C>,
+    /// Rows per band of the level-0 wavefront sweep.
+    band: usize,
+}
+
+// ---------------------------------------------------------------------------------------------
+// Level 0 kernels.
+
+impl<const C: usize> Cycler<'_, C> {
+    /// Updates the unknowns of one colour in row `y` of level 0.
+    ///
+    /// # Safety
+    /// `u` points at the level-0 iterate; no other task writes row `y`'s cells of this colour or
+    /// reads them, and no task writes the other colour's cells in rows `y − 1..=y + 1`.
+    unsafe fn relax_row0(&self, u: Shared<f64>, y: usize, colour: usize) {
+        let g = self.g;
+        let (w, h) = (g.w, g.h);
+        let u = u.get();
+        let inner_row = y > 0 && y + 1 < h;
+        let update = |x: usize| {
+            let i = y * w + x;
+            if inner_row && x > 0 && x + 1 < w {
+                for c in 0..C {
+                    // SAFETY: (x, y) is strictly inside the box, so all four neighbours are in it.
+                    unsafe {
+                        let s = *u.add((i - 1) * C + c)
+                            + *u.add((i + 1) * C + c)
+                            + *u.add((i - w) * C + c)
+                            + *u.add((i + w) * C + c);
+                        *u.add(i * C + c) = 0.25 * s;
+                    }
+                }
+            } else {
+                // On the box edge, which for an unknown is the image edge: natural boundary.
+                debug_assert!(x > 0 || g.x0 == 0);
+                debug_assert!(y > 0 || g.y0 == 0);
+                let nb = [
+                    (x > 0).then(|| i - 1),
+                    (x + 1 < w).then(|| i + 1),
+                    (y > 0).then(|| i - w),
+                    (y + 1 < h).then(|| i + w),
+                ];
+                let mut s = [0f64; C];
+                let mut deg = 0.0;
+                for j in nb.into_iter().flatten() {
+                    deg += 1.0;
+                    for (c, sc) in s.iter_mut().enumerate() {
+                        // SAFETY: j is inside the box.
+                        *sc += unsafe { *u.add(j * C + c) };
+                    }
+                }
+                for (c, sc) in s.iter().enumerate() {
+                    // SAFETY: i is this task's cell.
+                    unsafe { *u.add(i * C + c) = sc / deg };
+                }
+            }
+        };
+        g.members.for_row_spans(y, Some(colour), |first, end| {
+            if inner_row && first > 0 && end < w {
+                // SAFETY: every cell of the run is strictly inside the box.
+                unsafe {
+                    let row = u.add(y * w * C);
+                    let wc = w * C;
+                    let mut x = first;
+                    while x < end {
+                        let p = row.add(x * C);
+                        for c in 0..C {
+                            let s = *p.sub(C).add(c) + *p.add(c + C) + *p.sub(wc).add(c) + *p.add(wc + c);
+                            *p.add(c) = 0.25 * s;
+                        }
+                        x += 2;
+                    }
+                }
+            } else {
+                (first..end.min(w)).step_by(2).for_each(update);
+            }
+        });
+    }
+
+    /// One red-black sweep of level 0 (`reverse`: black first), as a wavefront.
+    fn sweep0(&mut self, reverse: bool) {
+        let (first, second) = if reverse { (1, 0) } else { (0, 1) };
+        let u = Shared(self.work.u.as_mut_ptr());
+        let this = &*self;
+        wavefront(this.g.h, this.band, |y, phase| {
+            // SAFETY: `wavefront` runs the second colour of a row only after the first colour of
+            // its neighbour rows, never two tasks on neighbouring rows of one colour, and
+            // red-black cells of one colour are never neighbours.
+            unsafe { this.relax_row0(u, y, if phase == 0 { first } else { second }) };
+        });
+    }
+
+    /// The residual `b − A·u` of level 0 at the unknown `(x, y)`.
+    #[inline]
+    fn res0(&self, x: usize, y: usize) -> [f64; C] {
+        let (w, h) = (self.g.w, self.g.h);
+        let u = &self.work.u;
+        let i = y * w + x;
+        let mut out = [0f64; C];
+        if y > 0 && y + 1 < h && x > 0 && x + 1 < w {
+            for (c, o) in out.iter_mut().enumerate() {
+                *o = u[(i - 1) * C + c] + u[(i + 1) * C + c] + u[(i - w) * C + c] + u[(i + w) * C + c]
+                    - 4.0 * u[i * C + c];
+            }
+        } else {
+            let nb = [
+                (x > 0).then(|| i - 1),
+                (x + 1 < w).then(|| i + 1),
+                (y > 0).then(|| i - w),
+                (y + 1 < h).then(|| i + w),
+            ];
+            let mut deg = 0.0;
+            for j in nb.into_iter().flatten() {
+                deg += 1.0;
+                for (c, o) in out.iter_mut().enumerate() {
+                    *o += u[j * C + c];
+                }
+            }
+            for (c, o) in out.iter_mut().enumerate() {
+                *o -= deg * u[i * C + c];
+            }
+        }
+        out
+    }
+
+    /// Calls `f(first, r)` with the level-0 residuals `r` of the unknowns `first, first + 1, …`
+    /// of row `y` (`C` per point), in spans of at most 64 points.
+    #[inline]
+    fn residual_spans0(&self, y: usize, mut f: impl FnMut(usize, &[f64])) {
+        let (w, h) = (self.g.w, self.g.h);
+        let u = &self.work.u;
+        let inner_row = y > 0 && y + 1 < h;
+        let mut buf = [0f64; 64 * 4];
+        self.g.members.for_row_spans(y, None, |first, end| {
+            let n = end - first;
+            let out = &mut buf[..n * C];
+            if inner_row && first > 0 && end < w {
+                let wc = w * C;
+                let mid = &u[y * wc + (first - 1) * C..y * wc + (end + 1) * C];
+                let up = &u[(y - 1) * wc + first * C..(y - 1) * wc + end * C];
+                let down = &u[(y + 1) * wc + first * C..(y + 1) * wc + end * C];
+                for (k, o) in out.iter_mut().enumerate() {
+                    *o = mid[k] + mid[k + 2 * C] + up[k] + down[k] - 4.0 * mid[k + C];
+                }
+            } else {
+                for (k, x) in (first..end).enumerate() {
+                    out[k * C..k * C + C].copy_from_slice(&self.res0(x, y));
+                }
+            }
+            f(first, out);
+        });
+    }
+
+    /// The residual of level 0 along row `y` (zero off the unknowns), into `out` (`w · C` long).
+    fn residual_row0(&self, y: usize, out: &mut [f64]) {
+        out.fill(0.0);
+        self.residual_spans0(y, |first, r| out[first * C..first * C + r.len()].copy_from_slice(r));
+    }
+
+    /// `‖b − A·u‖²` per channel on level 0, summed in a fixed order.
+    fn residual_norm0(&mut self) -> [f64; C] {
+        let mut partial = std::mem::take(&mut self.work.partial);
+        let h = self.g.h;
+        let this = &*self;
+        partial.par_iter_mut().enumerate().for_each(|(t, s)| {
+            *s = [0f64; C];
+            for y in t * ROWS..((t + 1) * ROWS).min(h) {
+                this.residual_spans0(y, |_, r| {
+                    for p in r.chunks_exact(C) {
+                        for c in 0..C {
+                            s[c] += p[c] * p[c];
+                        }
+                    }
+                });
+            }
+        });
+        let total = sum(&partial);
+        self.work.partial = partial;
+        total
+    }
+
+    /// Restricts the residual of level `l` to the right-hand side of level `l + 1`, zeroing its
+    /// correction.
+    fn descend(&mut self, l: usize) {
+        let coarse = &self.g.levels[l];
+        let mut rhs = std::mem::take(&mut self.work.rhs[l]);
+        let mut scratch = std::mem::take(&mut self.work.scratch[l]);
+        {
+            let this = &*self;
+            let cw = coarse.pw * C;
+            let (fw, fh) = this.fine_dims(l);
+            // Coarse rows in tasks of ROWS; each task keeps the three fine residual rows it needs.
+            rhs.par_chunks_mut(cw * ROWS).zip(scratch.par_chunks_mut(3 * fw * C)).enumerate().for_each(
+                |(t, (chunk, buf))| {
+                    let (r0, rest) = buf.split_at_mut(fw * C);
+                    let (r1, r2) = rest.split_at_mut(fw * C);
+                    let mut rows = [r0, r1, r2];
+                    let mut have = [usize::MAX; 3];
+                    for (k, out) in chunk.chunks_mut(cw).enumerate() {
+                        out.fill(0.0);
+                        let py = t * ROWS + k;
+                        if py == 0 || py > coarse.h {
+                            continue;
+                        }
+                        let cy = py - 1;
+                        for (r, fy) in (2 * cy as isize - 1..=2 * cy as isize + 1).enumerate() {
+                            if fy < 0 || fy as usize >= fh {
+                                have[r] = usize::MAX;
+                                continue;
+                            }
+                            let fy = fy as usize;
+                            if have[r] == fy {
+                                continue;
+                            }
+                            // Reuse the row computed as the bottom row of the previous coarse row.
+                            if r == 0 && have[2] == fy {
+                                rows.swap(0, 2);
+                                have.swap(0, 2);
+                                continue;
+                            }
+                            this.residual_row(l, fy, rows[r]);
+                            have[r] = fy;
+                        }
+                        this.restrict_row(l, cy, &rows, &have, out);
+                    }
+                },
+            );
+        }
+        self.work.rhs[l] = rhs;
+        self.work.scratch[l] = scratch;
+        self.work.e[l].fill(0.0);
+    }
+
+    fn fine_dims(&self, l: usize) -> (usize, usize) {
+        if l == 0 { (self.g.w, self.g.h) } else { (self.g.levels[l - 1].w, self.g.levels[l - 1].h) }
+    }
+
+    /// The residual of level `l` along row `y`, unpadded, into `out`.
+    fn residual_row(&self, l: usize, y: usize, out: &mut [f64]) {
+        if l == 0 {
+            self.residual_row0(y, out);
+            return;
+        }
+        let lv = &self.g.levels[l - 1];
+        let (e, rhs) = (&self.work.e[l - 1], &self.work.rhs[l - 1]);
+        let off = lv.offsets();
+        for x in 0..lv.w {
+            let i = lv.at(x, y);
+            let id = lv.id[i] as usize;
+            if id == 0 {
+                out[x * C..x * C + C].fill(0.0);
+                continue;
+            }
+            let s = &lv.table[id];
+            for c in 0..C {
+                let mut r = f64::from(rhs[i * C + c]);
+                for k in 0..9 {
+                    r -= f64::from(s[k]) * f64::from(e[(i as isize + off[k]) as usize * C + c]);
+                }
+                out[x * C + c] = r;
+            }
+        }
+    }
+
+    /// One row of `Pᵀ·r`: the right-hand side of coarse row `cy` of level `l + 1` from the fine
+    /// residual rows `2cy − 1`, `2cy`, `2cy + 1` (`have[k]` is the row held in `rows[k]`).
+    fn restrict_row(&self, l: usize, cy: usize, rows: &[&mut [f64]; 3], have: &[usize; 3], out: &mut [f32]) {
+        let coarse = &self.g.levels[l];
+        let (fw, _) = self.fine_dims(l);
+        for cx in 0..coarse.w {
+            let pi = coarse.at(cx, cy);
+            let id = coarse.id[pi];
+            if id == NONE {
+                continue;
+            }
+            let mut acc = [0f64; C];
+            if id == INTERIOR {
+                // Full weighting; an interior point has all nine fine neighbours.
+                let x = 2 * cx * C;
+                let (a, b, d) = (&rows[0][x - C..x + 2 * C], &rows[1][x - C..x + 2 * C], &rows[2][x - C..x + 2 * C]);
+                for c in 0..C {
+                    acc[c] = 0.25 * (a[c] + a[2 * C + c] + d[c] + d[2 * C + c])
+                        + 0.5 * (a[C + c] + d[C + c] + b[c] + b[2 * C + c])
+                        + b[C + c];
+                }
+            } else {
+                let col = &coarse.pcol[id as usize];
+                for r in 0..3 {
+                    if have[r] == usize::MAX {
+                        continue;
+                    }
+                    for fx in (2 * cx).saturating_sub(1)..(2 * cx + 2).min(fw) {
+                        let wgt = f64::from(col[r * 3 + fx + 1 - 2 * cx]);
+                        if wgt != 0.0 {
+                            for c in 0..C {
+                                acc[c] += wgt * rows[r][fx * C + c];
+                            }
+                        }
+                    }
+                }
+            }
+            for c in 0..C {
+                out[(cx + 1) * C + c] = acc[c] as f32;
+            }
+        }
+    }
+
+    /// The interpolated correction of coarse level `l + 1` at the point `(x, y)` of level `l`:
+    /// bilinear when every parent is an interior point, from [`prow`] otherwise.
+    #[inline]
+    fn interpolate(&self, l: usize, ec: &[f32], x: usize, y: usize) -> [f64; C] {
+        let coarse = &self.g.levels[l];
+        let (id, pw) = (&coarse.id, coarse.pw);
+        // Padded indices of the parents (x/2, y/2), one right, one down; the padding keeps them
+        // in bounds at the grid's last row and column.
+        let i = coarse.at(x / 2, y / 2);
+        let e = |k: usize, c: usize| f64::from(ec[k * C + c]);
+        let mut out = [0f64; C];
+        let fast = match (x % 2, y % 2) {
+            (0, 0) => {
+                for (c, o) in out.iter_mut().enumerate() {
+                    *o = e(i, c);
+                }
+                true
+            }
+            (1, 0) if id[i] == INTERIOR && id[i + 1] == INTERIOR => {
+                for (c, o) in out.iter_mut().enumerate() {
+                    *o = 0.5 * (e(i, c) + e(i + 1, c));
+                }
+                true
+            }
+            (0, 1) if id[i] == INTERIOR && id[i + pw] == INTERIOR => {
+                for (c, o) in out.iter_mut().enumerate() {
+                    *o = 0.5 * (e(i, c) + e(i + pw, c));
+                }
+                true
+            }
+            (1, 1)
+                if id[i] == INTERIOR
+                    && id[i + 1] == INTERIOR
+                    && id[i + pw] == INTERIOR
+                    && id[i + pw + 1] == INTERIOR =>
+            {
+                for (c, o) in out.iter_mut().enumerate() {
+                    *o = 0.25 * (e(i, c) + e(i + 1, c) + e(i + pw, c) + e(i + pw + 1, c));
+                }
+                true
+            }
+            _ => false,
+        };
+        if !fast {
+            // Each parent's column holds its weight here, at the slot of this point's offset
+            // from the parent: (x, y) − 2·parent.
+            let (ox, oy) = (x % 2, y % 2);
+            for (dy, dx) in [(0, 0), (0, 1), (1, 0), (1, 1)] {
+                if (dx == 1 && ox == 0) || (dy == 1 && oy == 0) {
+                    continue;
+                }
+                let j = i + dy * pw + dx;
+                let k = (1 + oy - 2 * dy) * 3 + (1 + ox - 2 * dx);
+                let wgt = f64::from(coarse.pcol[id[j] as usize][k]);
+                if wgt != 0.0 {
+                    for (c, o) in out.iter_mut().enumerate() {
+                        *o += wgt * e(j, c);
+                    }
+                }
+            }
+        }
+        out
+    }
+
+    /// Adds the interpolated correction of level `l + 1` to level `l`.
+    fn ascend(&mut self, l: usize) {
+        let ec = std::mem::take(&mut self.work.e[l]);
+        let (fw, fh) = self.fine_dims(l);
+        if l == 0 {
+            let w = fw;
+            let mut u = std::mem::take(&mut self.work.u);
+            let this = &*self;
+            let coarse = &this.g.levels[0];
+            let (id, pw) = (&coarse.id[..], coarse.pw);
+            u.par_chunks_mut(w * C * ROWS).enumerate().for_each(|(t, rows)| {
+                for (k, row) in rows.chunks_mut(w * C).enumerate() {
+                    let y = t * ROWS + k;
+                    let base = coarse.at(0, y / 2);
+                    let odd_row = y % 2 == 1;
+                    // Bilinear interpolation where the parents are interior points, read along
+                    // the row; `interpolate` elsewhere. The padded coarse grid keeps `i + pw + 1`
+                    // in bounds for every fine point.
+                    let mut one = |x: usize| {
+                        let i = base + x / 2;
+                        let e = |k: usize, c: usize| f64::from(ec[k * C + c]);
+                        let fast = match (x % 2 == 1, odd_row) {
+                            (false, false) => {
+                                for c in 0..C {
+                                    row[x * C + c] += e(i, c);
+                                }
+                                true
+                            }
+                            (true, false) if id[i] == INTERIOR && id[i + 1] == INTERIOR => {
+                                for c in 0..C {
+                                    row[x * C + c] += 0.5 * (e(i, c) + e(i + 1, c));
+                                }
+                                true
+                            }
+                            (false, true) if id[i] == INTERIOR && id[i + pw] == INTERIOR => {
+                                for c in 0..C {
+                                    row[x * C + c] += 0.5 * (e(i, c) + e(i + pw, c));
+                                }
+                                true
+                            }
+                            (true, true)
+                                if id[i] == INTERIOR
+                                    && id[i + 1] == INTERIOR
+                                    && id[i + pw] == INTERIOR
+                                    && id[i + pw + 1] == INTERIOR =>
+                            {
+                                for c in 0..C {
+                                    row[x * C + c] += 0.25 * (e(i, c) + e(i + 1, c) + e(i + pw, c) + e(i + pw + 1, c));
+                                }
+                                true
+                            }
+                            _ => false,
+                        };
+                        if !fast {
+                            let v = this.interpolate(0, &ec, x, y);
+                            for c in 0..C {
+                                row[x * C + c] += v[c];
+                            }
+                        }
+                    };
+                    this.g.members.for_row_spans(y, None, |first, end| (first..end).for_each(&mut one));
+                }
+            });
+            self.work.u = u;
+        } else {
+            let mut ef = std::mem::take(&mut self.work.e[l - 1]);
+            let this = &*self;
+            let fine = &this.g.levels[l - 1];
+            let pw = fine.pw;
+            // Padded rows 1..=fh hold the fine grid.
+            ef[pw * C..(fh + 1) * pw * C].par_chunks_mut(pw * C * ROWS).enumerate().for_each(|(t, rows)| {
+                for (k, row) in rows.chunks_mut(pw * C).enumerate() {
+                    let y = t * ROWS + k;
+                    for x in 0..fw {
+                        if fine.id[fine.at(x, y)] == NONE {
+                            continue;
+                        }
+                        let v = this.interpolate(l, &ec, x, y);
+                        for c in 0..C {
+                            let p = &mut row[(x + 1) * C + c];
+                            *p = (f64::from(*p) + v[c]) as f32;
+                        }
+                    }
+                }
+            });
+            self.work.e[l - 1] = ef;
+        }
+        self.work.e[l] = ec;
+    }
+
+    // -----------------------------------------------------------------------------------------
+    // Coarse levels.
+
+    /// One 4-colour Gauss-Seidel sweep of coarse level `l` (index into `levels`): colours
+    /// (even x, even y), (odd, even), (even, odd), (odd, odd), or the reverse. Rows of one parity
+    /// never couple to each other, so each row takes its two colours in turn, and the rows run as
+    /// a wavefront (even rows first, or odd rows first in reverse).
+    fn sweep_coarse(&mut self, l: usize, reverse: bool) {
+        let e = Shared(self.work.e[l].as_mut_ptr());
+        let this = &*self;
+        let lv = &this.g.levels[l];
+        let first_parity = usize::from(reverse);
+        wavefront(lv.h, this.band.div_ceil(2 << l).max(8), |y, phase| {
+            let parity = if phase == 0 { first_parity } else { 1 - first_parity };
+            if y % 2 == parity {
+                // SAFETY: a row's points couple to their own row and the two rows of the other
+                // parity; `wavefront` never runs a row while a neighbour row of the other phase
+                // is being written, and rows of one parity never touch.
+                unsafe { this.relax_coarse_row(l, e, y, usize::from(reverse)) };
+            }
+        });
+    }
+
+    /// Gauss-Seidel on row `y` of coarse level `l`: the points with `x % 2 == x_first`, then the
+    /// others.
+    ///
+    /// # Safety
+    /// No other task writes row `y` or its neighbour rows, or reads row `y`, meanwhile.
+    unsafe fn relax_coarse_row(&self, l: usize, e: Shared<f32>, y: usize, x_first: usize) {
+        let lv = &self.g.levels[l];
+        let rhs = &self.work.rhs[l];
+        let off = lv.offsets().map(|o| o * C as isize);
+        let interior = lv.table[INTERIOR as usize];
+        let inv_interior = 1.0 / interior[4];
+        let e = e.get();
+        for start in [x_first, 1 - x_first] {
+            for x in (start..lv.w).step_by(2) {
+                let i = lv.at(x, y);
+                let id = lv.id[i];
+                if id == NONE {
+                    continue;
+                }
+                let (s, inv) = if id == INTERIOR {
+                    (&interior, inv_interior)
+                } else {
+                    let s = &lv.table[id as usize];
+                    (s, 1.0 / s[4])
+                };
+                for c in 0..C {
+                    // SAFETY: the padded ring keeps every neighbour index in bounds; see the
+                    // function's contract for the exclusivity.
+                    unsafe {
+                        let p = e.add(i * C + c);
+                        let mut r = rhs[i * C + c];
+                        for k in [0, 1, 2, 3, 5, 6, 7, 8] {
+                            r -= s[k] * *p.offset(off[k]);
+                        }
+                        *p = r * inv;
+                    }
+                }
+            }
+        }
+    }
+
+    fn smooth(&mut self, l: usize, sweeps: usize, reverse: bool) {
+        for _ in 0..sweeps {
+            if l == 0 {
+                self.sweep0(reverse);
+            } else {
+                self.sweep_coarse(l - 1, reverse);
+            }
+        }
+    }
+
+    fn coarsest(&mut self, l: usize) {
+        match &self.g.coarsest {
+            Coarsest::Dense { points, chol } => {
+                let (e, rhs) = (&mut self.work.e[l - 1], &self.work.rhs[l - 1]);
+                let x = &mut self.work.coarse_x;
+                for c in 0..C {
+                    for (k, &i) in points.iter().enumerate() {
+                        x[k] = f64::from(rhs[i * C + c]);
+                    }
+                    chol.solve_in_place(x);
+                    for (k, &i) in points.iter().enumerate() {
+                        e[i * C + c] = x[k] as f32;
+                    }
+                }
+            }
+            Coarsest::Relax(sweeps) => {
+                let sweeps = *sweeps;
+                self.smooth(l, sweeps, false);
+                self.smooth(l, sweeps, true);
+            }
+        }
+    }
+
+    fn cycle(&mut self, l: usize, kind: Cycle) {
+        if l == self.g.levels.len() {
+            self.coarsest(l);
+            return;
+        }
+        self.smooth(l, self.params.pre_smooth, false);
+        self.descend(l);
+        match kind {
+            Cycle::V => self.cycle(l + 1, Cycle::V),
+            Cycle::W => {
+                self.cycle(l + 1, Cycle::W);
+                self.cycle(l + 1, Cycle::W);
+            }
+            Cycle::F => {
+                self.cycle(l + 1, Cycle::F);
+                self.cycle(l + 1, Cycle::V);
+            }
+        }
+        self.ascend(l);
+        self.smooth(l, self.params.post_smooth, true);
+    }
+
+    /// Full multigrid from the zero start on level 0.
+    fn full_multigrid(&mut self) {
+        let depth = self.g.levels.len();
+        for l in 0..depth {
+            self.descend(l);
+        }
+        self.coarsest(depth);
+        for l in (1..depth).rev() {
+            self.work.e[l - 1].fill(0.0);
+            self.ascend(l);
+            self.cycle(l, self.params.cycle);
+        }
+        self.ascend(0);
+        self.cycle(0, self.params.cycle);
+    }
+}
+
+/// Runs a Gauss-Seidel sweep of two phases over rows `0..h` in bands of `band` rows:
+/// `relax(y, 0)` on every row, and `relax(y, 1)` on every row after `relax(·, 0)` is done on rows
+/// `y − 1..=y + 1`, where `relax(y, 1)` reads only phase-0 points of rows `y − 1..=y + 1` and
+/// `relax(y, 0)` only phase-1 points (not yet updated) of the same rows. Within a band the second
+/// phase trails the first by one row, so a sweep passes over the memory once; the rows at band
+/// edges take their second phase after every band has finished its first.
+fn wavefront(h: usize, band: usize, relax: impl Fn(usize, usize) + Sync) {
+    let bands = h.div_ceil(band);
+    (0..bands).into_par_iter().for_each(|b| {
+        let (y0, y1) = (b * band, ((b + 1) * band).min(h));
+        for y in y0..y1 {
+            relax(y, 0);
+            if y >= y0 + 2 {
+                relax(y - 1, 1);
+            }
+        }
+    });
+    (0..bands).into_par_iter().for_each(|b| {
+        let (y0, y1) = (b * band, ((b + 1) * band).min(h));
+        relax(y0, 1);
+        if y1 - 1 > y0 {
+            relax(y1 - 1, 1);
+        }
+    });
+}
+
+fn sum<const C: usize>(parts: &[[f64; C]]) -> [f64; C] {
+    let mut s = [0f64; C];
+    for p in parts {
+        for c in 0..C {
+            s[c] += p[c];
+        }
+    }
+    s
+}
+
+/// Solves one group of `C` planes over the grid's unknowns.
+pub(crate) fn solve_group<const C: usize>(
+    g: &Grid,
+    planes: &[&mut [f32]],
+    params: &FillParams,
+    start: Start,
+    progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+) -> Result<GroupResult, FillError> {
+    let (w, h) = (g.w, g.h);
+    // Level 0: known pixels of the box take their values; unknowns start at zero (full
+    // multigrid) or at the planes' values (warm start). The right-hand side's norm is the norm
+    // of the known neighbours' sums.
+    let mut u = vec![0f64; w * h * C];
+    let bad: Vec<Option<(usize, usize)>> = u
+        .par_chunks_mut(w * C)
+        .enumerate()
+        .map(|(y, row)| {
+            let gy = g.y0 + y;
+            for x in 0..w {
+                let p = gy * g.img_w + g.x0 + x;
+                let member = g.members.get(x as isize, y as isize);
+                for c in 0..C {
+                    let v = planes[c][p];
+                    if member {
+                        row[x * C + c] = if start == Start::Warm && v.is_finite() { f64::from(v) } else { 0.0 };
+                    } else if v.is_finite() {
+                        row[x * C + c] = f64::from(v);
+                    } else {
+                        let (xi, yi) = (x as isize, y as isize);
+                        let m = &g.members;
+                        if m.get(xi - 1, yi) || m.get(xi + 1, yi) || m.get(xi, yi - 1) || m.get(xi, yi + 1) {
+                            return Some((g.x0 + x, gy));
+                        }
+                    }
+                }
+            }
+            None
+        })
+        .collect();
+    if let Some(&Some((x, y))) = bad.iter().find(|b| b.is_some()) {
+        return Err(FillError::NonFiniteRim { x, y });
+    }
+    let e: Vec<Vec<f32>> = g.levels.iter().map(|l| vec![0f32; l.padded_len() * C]).collect();
+    let rhs = e.clone();
+    let coarse_x = vec![0f64; if let Coarsest::Dense { points, .. } = &g.coarsest { points.len() } else { 0 }];
+    let threads = rayon::current_num_threads().max(1);
+    let band = h.div_ceil(threads).max(8);
+    let scratch = (0..g.levels.len())
+        .map(|l| {
+            let fw = if l == 0 { w } else { g.levels[l - 1].w };
+            let tasks = (g.levels[l].h + 2).div_ceil(ROWS);
+            vec![0f64; tasks * 3 * fw * C]
+        })
+        .collect();
+    let partial = vec![[0f64; C]; h.div_ceil(ROWS)];
+    let mut cy = Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial }, band };
+
+    // ‖b‖: the known neighbours of every unknown, summed.
+    let b_sq = {
+        let parts: Vec<[f64; C]> = (0..h.div_ceil(ROWS))
+            .into_par_iter()
+            .map(|t| {
+                let mut s = [0f64; C];
+                let u = &cy.work.u;
+                for y in t * ROWS..((t + 1) * ROWS).min(h) {
+                    g.members.for_row(y, None, |x| {
+                        let (xi, yi) = (x as isize, y as isize);
+                        let mut b = [0f64; C];
+                        for (dx, dy) in [(-1isize, 0isize), (1, 0), (0, -1), (0, 1)] {
+                            let (nx, ny) = (xi + dx, yi + dy);
+                            if nx < 0 || ny < 0 || nx as usize >= w || ny as usize >= h || g.members.get(nx, ny) {
+                                continue;
+                            }
+                            let j = ny as usize * w + nx as usize;
+                            for c in 0..C {
+                                b[c] += u[j * C + c];
+                            }
+                        }
+                        for c in 0..C {
+                            s[c] += b[c] * b[c];
+                        }
+                    });
+                }
+                s
+            })
+            .collect();
+        sum(&parts)
+    };
+    let bnorm = b_sq.map(|s| if s > 0.0 { s.sqrt() } else { 1.0 });
+
+    if start == Start::FullMultigrid {
+        cy.full_multigrid();
+    }
+    let mut cycles = usize::from(start == Start::FullMultigrid);
+    let mut reports: Vec<ChannelReport> = (0..C).map(|_| ChannelReport::default()).collect();
+    let mut done = [false; C];
+    let r_sq = loop {
+        let sq = cy.residual_norm0();
+        let mut worst = 0f64;
+        for c in 0..C {
+            let rel = sq[c].sqrt() / bnorm[c];
+            reports[c].relative_residual = rel;
+            reports[c].history.push(rel);
+            if !done[c] && rel <= params.tolerance {
+                done[c] = true;
+                reports[c].cycles = cycles;
+            }
+            worst = worst.max(rel);
+        }
+        if done.iter().all(|&d| d) {
+            break sq;
+        }
+        if !worst.is_finite() || cycles >= params.max_cycles {
+            return Err(FillError::NoConvergence { residual: worst, cycles });
+        }
+        if !progress(&Progress {
+            cycle: cycles,
+            max_cycles: params.max_cycles,
+            residual: worst,
+            tolerance: params.tolerance,
+        }) {
+            return Err(FillError::Cancelled);
+        }
+        cy.cycle(0, params.cycle);
+        cycles += 1;
+    };
+    Ok(GroupResult { values: cy.work.u, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec() })
+}
+
+/// Writes a group's values (the level-0 iterate over the box) into the planes.
+pub(crate) fn write_back(g: &Grid, planes: &mut [&mut [f32]], first: usize, count: usize, values: &[f64]) {
+    g.for_each_member(|i, p| {
+        for c in 0..count {
+            planes[first + c][p] = values[i * count + c] as f32;
+        }
+    });
+}

@@ -485,13 +485,14 @@ fn coarsen<F: FineView>(f: &F, interior: [f32; 9]) -> Coarse {
 
 impl Grid {
     /// Builds the hierarchy over the box `(x0, y0, w, h)` of a `img_w × img_h` image, whose
-    /// unknowns are the pixels where `member(x, y)` (image coordinates) holds. The box must contain
+    /// unknowns are given row by row: `runs(y, f)` calls `f(a, b)` for each run of unknowns
+    /// `a..b` of image row `y` (image coordinates). The box must contain
     /// a one-pixel margin around the unknowns wherever the image allows. Returns `None` if the
     /// unknowns do not coarsen (the compact hierarchy then takes them).
     pub(crate) fn build(
         (x0, y0, w, h): (usize, usize, usize, usize),
         (img_w, img_h): (usize, usize),
-        member: impl Fn(usize, usize) -> bool + Sync,
+        runs: impl Fn(usize, &mut dyn FnMut(usize, usize)) + Sync,
     ) -> Option<Self> {
         let mut members = Members::new(w, h);
         let words = members.words;
@@ -501,12 +502,13 @@ impl Grid {
             .enumerate()
             .map(|(y, row)| {
                 let mut count = 0;
-                for x in 0..w {
-                    if member(x0 + x, y0 + y) {
+                runs(y0 + y, &mut |a, b| {
+                    debug_assert!(a >= x0 && b <= x0 + w);
+                    for x in a - x0..b - x0 {
                         row[x / 64] |= 1 << (x % 64);
-                        count += 1;
                     }
-                }
+                    count += b - a;
+                });
                 count
             })
             .collect();
@@ -627,6 +629,9 @@ struct Cycler<'a, const C: usize> {
     work: Work<C>,
     /// Rows per band of the level-0 wavefront sweep.
     band: usize,
+    /// Whether the level-0 red cells are the Gauss-Seidel update of the current black cells
+    /// (true right after a post-smoothing sweep, which ends with red).
+    red_current: bool,
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -705,10 +710,18 @@ impl<const C: usize> Cycler<'_, C> {
 
     /// One red-black sweep of level 0 (`reverse`: black first), as a wavefront.
     fn sweep0(&mut self, reverse: bool) {
+        self.sweep0_from(reverse, 0);
+    }
+
+    /// [`Cycler::sweep0`] from phase `from` (1: the second colour only).
+    fn sweep0_from(&mut self, reverse: bool, from: usize) {
         let (first, second) = if reverse { (1, 0) } else { (0, 1) };
         let u = Shared(self.work.u.as_mut_ptr());
         let this = &*self;
         wavefront(this.g.h, this.band, |y, phase| {
+            if phase < from {
+                return;
+            }
             // SAFETY: `wavefront` runs the second colour of a row only after the first colour of
             // its neighbour rows, never two tasks on neighbouring rows of one colour, and
             // red-black cells of one colour are never neighbours.
@@ -1187,7 +1200,14 @@ impl<const C: usize> Cycler<'_, C> {
             self.coarsest(l);
             return;
         }
-        self.smooth(l, self.params.pre_smooth, false);
+        if l == 0 && self.red_current && self.params.pre_smooth > 0 {
+            // The last post-smoothing sweep ended with the red cells, and nothing changed since:
+            // a red half-sweep now would recompute the same values, so start with black.
+            self.sweep0_from(false, 1);
+            self.smooth(l, self.params.pre_smooth - 1, false);
+        } else {
+            self.smooth(l, self.params.pre_smooth, false);
+        }
         self.descend(l);
         match kind {
             Cycle::V => self.cycle(l + 1, Cycle::V),
@@ -1202,6 +1222,9 @@ impl<const C: usize> Cycler<'_, C> {
         }
         self.ascend(l);
         self.smooth(l, self.params.post_smooth, true);
+        if l == 0 {
+            self.red_current = self.params.post_smooth > 0;
+        }
     }
 
     /// Full multigrid from the zero start on level 0.
@@ -1312,7 +1335,7 @@ pub(crate) fn solve_group<const C: usize>(
         })
         .collect();
     let partial = vec![[0f64; C]; h.div_ceil(ROWS)];
-    let mut cy = Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial }, band };
+    let mut cy = Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial }, band, red_current: false };
 
     // ‖b‖: the known neighbours of every unknown, summed.
     let b_sq = {
@@ -1393,4 +1416,105 @@ pub(crate) fn write_back(g: &Grid, planes: &mut [&mut [f32]], first: usize, coun
             planes[first + c][p] = values[i * count + c] as f32;
         }
     });
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::fill::hierarchy::Hierarchy;
+    use crate::mask::Mask;
+
+    fn grid_of(mask: &Mask) -> Grid {
+        let (w, h) = (mask.width(), mask.height());
+        let bits = mask.bits();
+        let (mut x_min, mut y_min) = (usize::MAX, usize::MAX);
+        let (mut x_max, mut y_max) = (0, 0);
+        for (p, _) in bits.iter().enumerate().filter(|(_, b)| **b) {
+            let (x, y) = (p % w, p / w);
+            (x_min, y_min, x_max, y_max) = (x_min.min(x), y_min.min(y), x_max.max(x), y_max.max(y));
+        }
+        // These tests put the first unknowns at 0 or 1, so the box starts at the origin and the
+        // grid's coarse points are the compact hierarchy's (both take even coordinates).
+        assert!(x_min <= 1 && y_min <= 1);
+        let bx = (0, 0, (x_max + 2).min(w), (y_max + 2).min(h));
+        Grid::build(bx, (w, h), |y, f| {
+            for x in 0..w {
+                if bits[y * w + x] {
+                    f(x, x + 1);
+                }
+            }
+        })
+        .expect("mask coarsens")
+    }
+
+    /// The grid's coarse operators (interior ids, tabled stencils) equal the compact hierarchy's,
+    /// level by level: the two storages implement one discretisation.
+    fn check_same_operators(mask: &Mask) {
+        let grid = grid_of(mask);
+        let compact = Hierarchy::build(mask).expect("non-empty mask");
+        let levels = grid.levels.len().min(compact.levels.len() - 1);
+        assert!(levels >= 2, "too few levels to compare");
+        for k in 0..levels {
+            let (g, c) = (&grid.levels[k], &compact.levels[k + 1]);
+            assert_eq!(g.n, c.n, "level {}: point count", k + 1);
+            for i in 0..c.n {
+                let p = c.pos[i] as usize;
+                let (x, y) = (p % c.w, p / c.w);
+                let s = &g.table[g.id[g.at(x, y)] as usize];
+                assert!((f64::from(s[4]) - c.diag[i]).abs() <= 1e-5 * c.diag[i], "level {} diag at ({x},{y})", k + 1);
+                for t in 0..c.k {
+                    let j = c.nbr[i * c.k + t] as usize;
+                    if j == c.n {
+                        continue;
+                    }
+                    let q = c.pos[j] as usize;
+                    let (dx, dy) = ((q % c.w) as isize - x as isize, (q / c.w) as isize - y as isize);
+                    let want = c.coef_at(i, t);
+                    let got = s[slot(dx, dy)];
+                    assert!(
+                        (got - want).abs() <= 1e-5 * want.abs().max(1e-3),
+                        "level {} at ({x},{y}) offset ({dx},{dy}): grid {got}, compact {want}",
+                        k + 1
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn coarse_operators_match_the_compact_hierarchy_on_a_disk() {
+        let mask = Mask::from_fn(140, 120, |x, y| {
+            let (dx, dy) = (x as f64 - 60.0, y as f64 - 58.0);
+            (x >= 1 && y >= 1 && x < 12) || dx * dx + dy * dy < 55.0 * 55.0
+        });
+        check_same_operators(&mask);
+    }
+
+    #[test]
+    fn coarse_operators_match_the_compact_hierarchy_where_holes_meet_the_image_edge() {
+        // An L touching the left and bottom edges (natural boundary) plus scattered pixels.
+        let mask = Mask::from_fn(97, 83, |x, y| x < 30 || y > 60 || (x * 7 + y * 13) % 11 == 0);
+        check_same_operators(&mask);
+    }
+
+    #[test]
+    fn coarse_operators_match_the_compact_hierarchy_on_random_dropout() {
+        let mut rng = crate::synth::Rng::new(7);
+        let mask = Mask::from_fn(90, 90, |x, y| (x, y) == (1, 1) || rng.uniform() < 0.6);
+        check_same_operators(&mask);
+    }
+
+    #[test]
+    fn interior_points_get_the_interior_id_and_others_a_computed_stencil() {
+        let mask = Mask::from_fn(200, 200, |x, y| (1..199).contains(&x) && (1..199).contains(&y));
+        let grid = grid_of(&mask);
+        let level = &grid.levels[0];
+        let interior = (0..level.h)
+            .flat_map(|y| (0..level.w).map(move |x| (x, y)))
+            .filter(|&(x, y)| level.id[level.at(x, y)] == INTERIOR)
+            .count();
+        // Coarse points at least 3 fine pixels inside the hole's edge are interior.
+        assert!(interior > 90 * 90, "{interior} interior points");
+        assert!(level.table.len() > 2, "boundary points need their own stencils");
+    }
 }

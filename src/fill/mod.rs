@@ -31,6 +31,8 @@ mod solve;
 
 use std::time::Instant;
 
+use rayon::prelude::*;
+
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
@@ -222,24 +224,107 @@ fn dense_enough(unknowns: usize, (_, _, w, h): (usize, usize, usize, usize)) -> 
     unknowns >= GRID_MIN_UNKNOWNS && unknowns as f64 >= GRID_MIN_DENSITY * (w * h) as f64
 }
 
+/// The runs of unknowns `[a, b)` of every row of a mask.
+fn row_runs(mask: &Mask) -> Vec<Vec<(u32, u32)>> {
+    let width = mask.width();
+    mask.bits()
+        .par_chunks(width)
+        .map(|row| {
+            let mut runs = Vec::new();
+            let mut x = 0;
+            while x < width {
+                if row[x] {
+                    let a = x;
+                    while x < width && row[x] {
+                        x += 1;
+                    }
+                    runs.push((index_u32(a), index_u32(x)));
+                } else {
+                    x += 1;
+                }
+            }
+            runs
+        })
+        .collect()
+}
+
+fn index_u32(i: usize) -> u32 {
+    u32::try_from(i).expect("image sides fit in u32 (images are limited on load)")
+}
+
+/// The holes (4-connected components) of a mask given by its row runs: the hole of every run, in
+/// row order, and the number of holes. Union-find over runs, so the cost follows the runs.
+fn run_holes(runs: &[Vec<(u32, u32)>]) -> (Vec<u32>, usize) {
+    let total: usize = runs.iter().map(Vec::len).sum();
+    let mut parent: Vec<u32> = (0..index_u32(total)).collect();
+    fn find(parent: &mut [u32], mut i: u32) -> u32 {
+        while parent[i as usize] != i {
+            let p = parent[i as usize];
+            parent[i as usize] = parent[p as usize];
+            i = p;
+        }
+        i
+    }
+    let mut start = 0usize;
+    for y in 1..runs.len() {
+        let (above, here) = (&runs[y - 1], &runs[y]);
+        let above_start = start;
+        start += above.len();
+        let (mut i, mut j) = (0, 0);
+        while i < above.len() && j < here.len() {
+            let (a, b) = (above[i], here[j]);
+            if a.0 < b.1 && b.0 < a.1 {
+                let (ra, rb) = (find(&mut parent, index_u32(above_start + i)), find(&mut parent, index_u32(start + j)));
+                if ra != rb {
+                    parent[ra.max(rb) as usize] = ra.min(rb);
+                }
+            }
+            if a.1 < b.1 {
+                i += 1;
+            } else {
+                j += 1;
+            }
+        }
+    }
+    let mut hole = vec![u32::MAX; total];
+    let mut count = 0u32;
+    for i in 0..total {
+        let r = find(&mut parent, index_u32(i)) as usize;
+        if hole[r] == u32::MAX {
+            hole[r] = count;
+            count += 1;
+        }
+        hole[i] = hole[r];
+    }
+    (hole, count as usize)
+}
+
 /// Splits `mask` into parts: grids where the unknowns are dense in their box, index lists for the
 /// rest.
 fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     let (width, height) = (mask.width(), mask.height());
-    let bits = mask.bits();
+    let runs = row_runs(mask);
     let mut count = 0usize;
     let mut bbox = (usize::MAX, usize::MAX, 0, 0);
-    for (p, _) in bits.iter().enumerate().filter(|(_, b)| **b) {
-        let (x, y) = (p % width, p / width);
-        count += 1;
-        bbox = (bbox.0.min(x), bbox.1.min(y), bbox.2.max(x), bbox.3.max(y));
+    for (y, row) in runs.iter().enumerate() {
+        if let (Some(first), Some(last)) = (row.first(), row.last()) {
+            count += row.iter().map(|&(a, b)| (b - a) as usize).sum::<usize>();
+            bbox = (bbox.0.min(first.0 as usize), bbox.1.min(y), bbox.2.max(last.1 as usize - 1), bbox.3.max(y));
+        }
     }
     if count == 0 {
         return Vec::new();
     }
     let whole = margin_box(bbox, width, height);
     let compact = |m: &Mask| Hierarchy::build(m).map(Part::Compact);
-    let one_grid = || grid::Grid::build(whole, (width, height), |x, y| bits[y * width + x]).map(Part::Grid);
+    let one_grid = || {
+        grid::Grid::build(whole, (width, height), |y, f| {
+            for &(a, b) in &runs[y] {
+                f(a as usize, b as usize);
+            }
+        })
+        .map(Part::Grid)
+    };
     match structure {
         Structure::Compact => return compact(mask).into_iter().collect(),
         Structure::Grid => return one_grid().or_else(|| compact(mask)).into_iter().collect(),
@@ -252,42 +337,56 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     }
     // Hole by hole: each dense, large hole gets its own grid (holes never touch, so their boxes
     // may overlap); everything else shares one compact hierarchy.
-    let (labels, sizes) = mask.label_holes();
-    let mut boxes = vec![(usize::MAX, usize::MAX, 0, 0); sizes.len()];
-    for (p, &l) in labels.iter().enumerate().filter(|(_, l)| **l != 0) {
-        let (x, y) = (p % width, p / width);
-        let b = &mut boxes[l as usize - 1];
-        *b = (b.0.min(x), b.1.min(y), b.2.max(x), b.3.max(y));
+    let (hole_of, holes) = run_holes(&runs);
+    let mut row_start = Vec::with_capacity(height + 1);
+    row_start.push(0usize);
+    for row in &runs {
+        row_start.push(row_start[row_start.len() - 1] + row.len());
+    }
+    let mut sizes = vec![0usize; holes];
+    let mut boxes = vec![(usize::MAX, usize::MAX, 0, 0); holes];
+    for (y, row) in runs.iter().enumerate() {
+        for (k, &(a, b)) in row.iter().enumerate() {
+            let hole = hole_of[row_start[y] + k] as usize;
+            sizes[hole] += (b - a) as usize;
+            let bx = &mut boxes[hole];
+            *bx = (bx.0.min(a as usize), bx.1.min(y), bx.2.max(b as usize - 1), bx.3.max(y));
+        }
     }
     let mut parts = Vec::new();
-    let mut rest = mask.clone();
-    for (k, (&size, &b)) in sizes.iter().zip(&boxes).enumerate() {
+    let mut rest: Option<Mask> = None;
+    let mut left = count;
+    for (hole, (&size, &b)) in sizes.iter().zip(&boxes).enumerate() {
         let bx = margin_box(b, width, height);
         if !dense_enough(size, bx) {
             continue;
         }
-        let label = u32::try_from(k + 1).unwrap_or(u32::MAX);
-        let Some(g) = grid::Grid::build(bx, (width, height), |x, y| labels[y * width + x] == label) else {
+        let hole_runs = |y: usize, f: &mut dyn FnMut(usize, usize)| {
+            for (k, &(a, b)) in runs[y].iter().enumerate() {
+                if hole_of[row_start[y] + k] as usize == hole {
+                    f(a as usize, b as usize);
+                }
+            }
+        };
+        let Some(g) = grid::Grid::build(bx, (width, height), hole_runs) else {
             continue;
         };
         parts.push(Part::Grid(g));
-        let (x0, y0, w, h) = bx;
-        for y in y0..y0 + h {
-            for x in x0..x0 + w {
-                if labels[y * width + x] == label {
-                    rest.set(x, y, false);
-                }
-            }
+        left -= size;
+        let rest = rest.get_or_insert_with(|| mask.clone());
+        for y in bx.1..bx.1 + bx.3 {
+            hole_runs(y, &mut |a, b| rest.bits_mut()[y * width + a..y * width + b].fill(false));
         }
     }
-    drop(labels);
-    if parts.is_empty() {
-        return compact(mask).into_iter().collect();
+    match rest {
+        None => compact(mask).into_iter().collect(),
+        Some(rest) => {
+            if left > 0 {
+                parts.extend(compact(&rest));
+            }
+            parts
+        }
     }
-    if !rest.is_empty() {
-        parts.extend(compact(&rest));
-    }
-    parts
 }
 
 /// A mask's solver: the multigrid hierarchy, built once and reused for any number of images of
@@ -317,7 +416,7 @@ impl Solver {
     pub fn with_structure(mask: &Mask, structure: Structure) -> Result<Self, FillError> {
         let t0 = Instant::now();
         let (width, height) = (mask.width(), mask.height());
-        let count = mask.count();
+        let count = mask.bits().par_iter().filter(|&&b| b).count();
         if count > 0 && count == width * height {
             return Err(FillError::NoKnownPixels);
         }

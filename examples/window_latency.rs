@@ -46,9 +46,9 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
 
     harness.state_mut().live = true;
     harness.state_mut().radius = 1.5;
-    for run in 0..3 {
+    for run in 0..5 {
         let view = harness.state().view;
-        let y = 1000.0 + 200.0 * run as f32;
+        let y = 1000.0 + 400.0 * run as f32;
         let (a, b) =
             (view.screen_from_image(Pos2::new(1000.0, y)), view.screen_from_image(Pos2::new(1300.0, y + 100.0)));
         harness.hover_at(a);

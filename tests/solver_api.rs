@@ -143,3 +143,42 @@ fn grid_and_compact_storage_agree_on_every_channel() {
         }
     }
 }
+
+#[test]
+fn refilling_near_an_edit_matches_a_full_refill_and_leaves_other_holes_alone() {
+    // Two separate holes; a stroke extends the left one. Holes never touch, so re-filling only
+    // the holes near the stroke must give what a whole re-fill gives (common practice for local
+    // updates of independent subproblems), and the right hole must keep its values exactly.
+    let (w, h) = (160, 120);
+    let mut mask = Mask::from_fn(w, h, |x, y| {
+        let (a, b) = (x as f64 - 40.0, y as f64 - 60.0);
+        let (c, d) = (x as f64 - 120.0, y as f64 - 60.0);
+        a * a + b * b < 400.0 || c * c + d * d < 300.0
+    });
+    let original = smooth_plane(w, h, 6);
+    let params = FillParams { tolerance: 1e-9, ..FillParams::default() };
+    let mut before = original.clone();
+    reweave::fill::fill(&mut [&mut before[..]], &mask, &params).unwrap();
+    for x in 55..75 {
+        mask.set(x, 61, true);
+    }
+    let local = reweave::fill::fill_near(&[before.clone()], &mask, (55, 61, 75, 62), &params, &mut |_| true)
+        .unwrap()
+        .expect("the stroke touches a hole");
+    assert!(local.bbox().2 <= 80, "only the left hole is cut out: {:?}", local.bbox());
+    let mut near = vec![before.clone()];
+    local.write_back(&mut near, w);
+    let mut full = before.clone();
+    for x in 55..75 {
+        full[61 * w + x] = original[61 * w + x];
+    }
+    reweave::fill::fill(&mut [&mut full[..]], &mask, &params).unwrap();
+    for (p, &m) in mask.bits().iter().enumerate() {
+        if p % w >= 90 {
+            assert_eq!(near[0][p].to_bits(), before[p].to_bits(), "right hole unchanged at {p}");
+        } else if m {
+            assert!((near[0][p] - full[p]).abs() < 1e-4, "pixel {p}: {} vs {}", near[0][p], full[p]);
+        }
+    }
+    assert_eq!(local.report.unknowns, local.mask.count());
+}

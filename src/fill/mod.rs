@@ -583,3 +583,114 @@ pub fn fill(planes: &mut [&mut [f32]], mask: &Mask, params: &FillParams) -> Resu
     let solver = Solver::new(mask)?;
     solver.solve(planes, params, Start::FullMultigrid, &mut |_| true)
 }
+
+/// The holes next to an edit, cut out of the image with a one-pixel rim and filled on their own:
+/// what [`fill_near`] returns. The rest of the image is untouched, so a re-fill after a brush
+/// stroke costs what the holes it touched cost, not what the image costs.
+#[derive(Clone, Debug)]
+pub struct LocalFill {
+    /// Top-left corner of the cut in the image.
+    pub x0: usize,
+    pub y0: usize,
+    /// The re-filled holes, in the cut's coordinates.
+    pub mask: Mask,
+    /// The cut of every plane, filled.
+    pub planes: Vec<Vec<f32>>,
+    pub report: FillReport,
+}
+
+impl LocalFill {
+    /// The cut as `(x0, y0, x1, y1)`, ends exclusive, in image coordinates.
+    #[must_use]
+    pub fn bbox(&self) -> (usize, usize, usize, usize) {
+        (self.x0, self.y0, self.x0 + self.mask.width(), self.y0 + self.mask.height())
+    }
+
+    /// Copies the filled pixels into full planes of an image `width` pixels wide.
+    pub fn write_back(&self, planes: &mut [Vec<f32>], width: usize) {
+        let cw = self.mask.width();
+        for (full, cut) in planes.iter_mut().zip(&self.planes) {
+            for (i, _) in self.mask.bits().iter().enumerate().filter(|(_, m)| **m) {
+                full[(self.y0 + i / cw) * width + self.x0 + i % cw] = cut[i];
+            }
+        }
+    }
+}
+
+/// Re-fills only the holes of `mask` that touch the rectangle `region` (`x0, y0, x1, y1`, ends
+/// exclusive) or its one-pixel rim, warm-started from the values `planes` hold there. Holes never
+/// touch each other, so the others are unaffected by an edit inside `region` and keep their
+/// values. Returns `None` when no hole is near the region.
+///
+/// # Errors
+/// See [`FillError`]; `planes` are only read.
+pub fn fill_near(
+    planes: &[Vec<f32>],
+    mask: &Mask,
+    region: (usize, usize, usize, usize),
+    params: &FillParams,
+    progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+) -> Result<Option<LocalFill>, FillError> {
+    let (w, h) = (mask.width(), mask.height());
+    for p in planes {
+        if p.len() != w * h {
+            return Err(FillError::PlaneLength { width: w, height: h, len: p.len() });
+        }
+    }
+    let bits = mask.bits();
+    let (rx0, ry0) = (region.0.saturating_sub(1), region.1.saturating_sub(1));
+    let (rx1, ry1) = ((region.2 + 1).min(w), (region.3 + 1).min(h));
+    // Flood-fill the holes from the masked pixels of the region; `seen` is a bit per pixel, so
+    // only the pages the holes touch are ever written.
+    let mut seen = vec![0u64; (w * h).div_ceil(64)];
+    let mut pixels: Vec<usize> = Vec::new();
+    let mut stack = Vec::new();
+    for y in ry0..ry1 {
+        for x in rx0..rx1 {
+            let p = y * w + x;
+            if !bits[p] || seen[p / 64] >> (p % 64) & 1 == 1 {
+                continue;
+            }
+            seen[p / 64] |= 1 << (p % 64);
+            stack.push(p);
+            while let Some(q) = stack.pop() {
+                pixels.push(q);
+                let (qx, qy) = (q % w, q / w);
+                let neighbours = [
+                    (qx > 0).then(|| q - 1),
+                    (qx + 1 < w).then(|| q + 1),
+                    (qy > 0).then(|| q - w),
+                    (qy + 1 < h).then(|| q + w),
+                ];
+                for n in neighbours.into_iter().flatten() {
+                    if bits[n] && seen[n / 64] >> (n % 64) & 1 == 0 {
+                        seen[n / 64] |= 1 << (n % 64);
+                        stack.push(n);
+                    }
+                }
+            }
+        }
+    }
+    drop(seen);
+    if pixels.is_empty() {
+        return Ok(None);
+    }
+    let (mut x_min, mut y_min, mut x_max, mut y_max) = (usize::MAX, usize::MAX, 0, 0);
+    for &p in &pixels {
+        let (x, y) = (p % w, p / w);
+        (x_min, y_min, x_max, y_max) = (x_min.min(x), y_min.min(y), x_max.max(x), y_max.max(y));
+    }
+    let (x0, y0, cw, ch) = margin_box((x_min, y_min, x_max, y_max), w, h);
+    let mut cut_mask = Mask::new(cw, ch);
+    for &p in &pixels {
+        cut_mask.set(p % w - x0, p / w - y0, true);
+    }
+    let mut cut: Vec<Vec<f32>> = planes
+        .iter()
+        .map(|plane| (y0..y0 + ch).flat_map(|y| plane[y * w + x0..y * w + x0 + cw].iter().copied()).collect())
+        .collect();
+    let solver = Solver::new(&cut_mask)?;
+    let mut views: Vec<&mut [f32]> = cut.iter_mut().map(Vec::as_mut_slice).collect();
+    let report = solver.solve(&mut views, params, Start::Warm, progress)?;
+    Ok(Some(LocalFill { x0, y0, mask: cut_mask, planes: cut, report }))
+}

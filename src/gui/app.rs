@@ -212,6 +212,12 @@ pub struct App {
     live_refill: bool,
     /// A fill was asked for while another ran; run it when that one ends.
     refill_after: bool,
+    /// The last fill re-filled only the holes near an edit; a report needs a whole fill first.
+    last_fill_local: bool,
+    /// The next fill covers the whole mask even if a local re-fill would do.
+    whole_next: bool,
+    /// A report to write once the running whole fill is done.
+    report_after_fill: Option<PathBuf>,
     worker: Option<Worker>,
     textures: Option<Textures>,
     stroke: Option<StrokeState>,
@@ -260,6 +266,9 @@ impl Default for App {
             overlay_dirty: false,
             live_refill: false,
             refill_after: false,
+            last_fill_local: false,
+            whole_next: false,
+            report_after_fill: None,
             worker: None,
             textures: None,
             stroke: None,
@@ -1038,6 +1047,7 @@ impl App {
                         }
                     }
                     self.last_fill = Some(report);
+                    self.last_fill_local = false;
                     if self.compare != Compare::SideBySide && self.compare != Compare::Split {
                         self.compare = Compare::After;
                     }
@@ -1064,6 +1074,40 @@ impl App {
                     }
                     finished = true;
                 }
+                Message::FilledNear { planes, report, mask, changed } => {
+                    if let Some(d) = &mut self.doc {
+                        self.status = match &report {
+                            Some(r) => format!(
+                                "re-filled {} pixels near the edit in {:.2} s. {CAUTION}",
+                                r.unknowns,
+                                r.setup_seconds + r.solve_seconds
+                            ),
+                            None => "no hole left near the edit; the pixels taken out of the mask are original again"
+                                .to_owned(),
+                        };
+                        d.result = Some(planes);
+                        d.result_mask = Some(mask);
+                        self.unsaved = true;
+                        if let (Some(t), Some(planes)) = (&mut self.textures, &d.result) {
+                            t.difference = None;
+                            // The first result borrows the original's tiles and replaces only
+                            // those where pixels changed.
+                            let after = t.after.get_or_insert_with(|| t.before.share("after"));
+                            let (layout, st) = (d.original.layout, d.stretch);
+                            let (x0, y0, x1, y1) = changed;
+                            after.update_rect(x0, y0, x1, y1, &|i| canvas::colour(planes, layout, st, i));
+                        }
+                    }
+                    if let Some(r) = report {
+                        self.last_fill = Some(r);
+                        self.last_fill_local = true;
+                    }
+                    if self.compare != Compare::SideBySide && self.compare != Compare::Split {
+                        self.compare = Compare::After;
+                    }
+                    self.overlay_visible = false;
+                    finished = true;
+                }
                 Message::FillFailed { planes, error } => {
                     if let Some(d) = &mut self.doc
                         && d.result_mask.is_some()
@@ -1084,6 +1128,11 @@ impl App {
             self.progress = None;
             if std::mem::take(&mut self.refill_after) && self.doc.is_some() {
                 self.live_refill = true;
+            }
+            if !self.last_fill_local
+                && let Some(path) = self.report_after_fill.take()
+            {
+                self.run_command(ctx, Command::SaveReport(path));
             }
             ctx.request_repaint();
         }
@@ -1137,6 +1186,34 @@ impl App {
                 // Start from the previous result where there is one (a warm start after an edit).
                 // Its planes move to the worker and come back, so nothing image-sized is copied;
                 // the textures keep showing it meanwhile.
+                let params = FillParams { tolerance: self.tolerance, ..FillParams::default() };
+                let whole = std::mem::take(&mut self.whole_next);
+                // After an edit, re-fill only the holes near it: holes never touch, so the others
+                // keep their values. (With a hole size limit, the limit's bookkeeping needs the
+                // whole mask, so that case takes the whole fill.)
+                if !whole && self.max_hole.is_none() {
+                    // The first fill starts from the original (nothing filled yet).
+                    let first = d.result.is_none();
+                    let mut p = d.result.take().unwrap_or_else(|| copy_planes(&d.original.planes));
+                    let empty;
+                    let previous = match &d.result_mask {
+                        Some(m) if !first => m,
+                        _ => {
+                            empty = Mask::new(d.mask.width(), d.mask.height());
+                            &empty
+                        }
+                    };
+                    let Some(region) = differing_box(previous, &d.mask) else {
+                        d.result = (!first).then_some(p);
+                        self.status = "the mask has not changed since the last fill".to_owned();
+                        return;
+                    };
+                    restore_unmasked_in(&mut p, &d.original.planes, previous, &d.mask, region);
+                    let nodata = d.nodata.map(|v| (v, d.original.sample_format));
+                    self.status = "re-filling the holes near the edit…".to_owned();
+                    self.worker = Some(Worker::fill_near(p, d.mask.clone(), region, params, nodata, repaint));
+                    return;
+                }
                 let (planes, start) = match d.result.take() {
                     Some(mut p) => {
                         if let Some(previous) = &d.result_mask {
@@ -1146,7 +1223,6 @@ impl App {
                     }
                     None => (d.original.planes.clone(), Start::FullMultigrid),
                 };
-                let params = FillParams { tolerance: self.tolerance, ..FillParams::default() };
                 let mut fill_mask = d.mask.clone();
                 d.skipped = self.max_hole.map(|n| fill_mask.drop_holes_larger_than(n)).unwrap_or_default();
                 self.status = if d.skipped.is_empty() {
@@ -1185,6 +1261,16 @@ impl App {
                 };
             }
             Command::SaveReport(path) => {
+                if self.last_fill_local {
+                    // The report describes the whole fill: finish it over every hole first (a
+                    // warm start from the current result, so it takes a cycle or two).
+                    if self.worker.is_none() {
+                        self.report_after_fill = Some(path);
+                        self.whole_next = true;
+                        self.run_command(ctx, Command::Fill);
+                    }
+                    return;
+                }
                 let (Some(d), Some(fill)) = (&self.doc, &self.last_fill) else { return };
                 let image = match crate::report::FileRecord::of(&d.path) {
                     Ok(r) => r,
@@ -1456,6 +1542,65 @@ fn restore_unmasked(planes: &mut [Vec<f32>], original: &[Vec<f32>], previous: &M
             }
         }
     }
+}
+
+/// A copy of the planes, made in parallel (a 24-megapixel RGB image is 288 MB of `f32`).
+fn copy_planes(planes: &[Vec<f32>]) -> Vec<Vec<f32>> {
+    use rayon::prelude::*;
+    planes
+        .iter()
+        .map(|p| {
+            let mut out = vec![0f32; p.len()];
+            out.par_chunks_mut(1 << 18).zip(p.par_chunks(1 << 18)).for_each(|(o, i)| o.copy_from_slice(i));
+            out
+        })
+        .collect()
+}
+
+/// `restore_unmasked` within the rectangle `(x0, y0, x1, y1)` (ends exclusive).
+fn restore_unmasked_in(
+    planes: &mut [Vec<f32>],
+    original: &[Vec<f32>],
+    previous: &Mask,
+    mask: &Mask,
+    (x0, y0, x1, y1): (usize, usize, usize, usize),
+) {
+    let w = mask.width();
+    for y in y0..y1 {
+        for i in y * w + x0..y * w + x1 {
+            if previous.bits()[i] && !mask.bits()[i] {
+                for (p, o) in planes.iter_mut().zip(original) {
+                    p[i] = o[i];
+                }
+            }
+        }
+    }
+}
+
+/// The bounding box `(x0, y0, x1, y1)` (ends exclusive) of the pixels where two masks differ.
+fn differing_box(a: &Mask, b: &Mask) -> Option<(usize, usize, usize, usize)> {
+    use rayon::prelude::*;
+    let w = a.width();
+    let rows: Vec<Option<(usize, usize)>> = a
+        .bits()
+        .par_chunks(w)
+        .zip(b.bits().par_chunks(w))
+        .map(|(ra, rb)| {
+            let first = ra.iter().zip(rb).position(|(x, y)| x != y)?;
+            let last = ra.iter().zip(rb).rposition(|(x, y)| x != y)?;
+            Some((first, last + 1))
+        })
+        .collect();
+    let mut bbox: Option<(usize, usize, usize, usize)> = None;
+    for (y, r) in rows.iter().enumerate() {
+        if let Some((a0, a1)) = *r {
+            bbox = Some(match bbox {
+                None => (a0, y, a1, y + 1),
+                Some((x0, y0, x1, _)) => (x0.min(a0), y0, x1.max(a1), y + 1),
+            });
+        }
+    }
+    bbox
 }
 
 /// The bounding box `(x0, y0, x1, y1)` (ends exclusive) of the pixels set in either mask.

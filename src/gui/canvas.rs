@@ -115,6 +115,11 @@ pub struct Tiles {
     pub h: usize,
     pub side: usize,
     pub handles: Vec<TextureHandle>,
+    /// Whether each tile's texture belongs to this set (false: borrowed from the set it was
+    /// [shared](Tiles::share) from, and replaced by its own texture on its first update).
+    owned: Vec<bool>,
+    name: String,
+    ctx: egui::Context,
 }
 
 impl Tiles {
@@ -143,8 +148,25 @@ impl Tiles {
             .into_iter()
             .enumerate()
             .map(|(t, img)| ctx.load_texture(format!("{name}-{t}"), img, TextureOptions::NEAREST))
-            .collect();
-        Self { w, h, side, handles }
+            .collect::<Vec<_>>();
+        let owned = vec![true; handles.len()];
+        Self { w, h, side, handles, owned, name: name.to_owned(), ctx: ctx.clone() }
+    }
+
+    /// A set showing the same picture as this one without copying it: its tiles borrow these
+    /// textures until they are updated (a result that differs from the original only in a few
+    /// places costs only those tiles).
+    #[must_use]
+    pub fn share(&self, name: &str) -> Self {
+        Self {
+            w: self.w,
+            h: self.h,
+            side: self.side,
+            handles: self.handles.clone(),
+            owned: vec![false; self.handles.len()],
+            name: name.to_owned(),
+            ctx: self.ctx.clone(),
+        }
     }
 
     /// Re-uploads the tiles that hold any pixel of the rectangle `(x0, y0)–(x1, y1)` (exclusive).
@@ -155,8 +177,25 @@ impl Tiles {
         for cy in cy0..=cy1 {
             for cx in cx0..=cx1 {
                 let t = cy * tx + cx;
-                if let Some(h) = self.handles.get_mut(t) {
-                    h.set(tile_image(self.w, self.h, self.side, t, f), TextureOptions::NEAREST);
+                let Some(h) = self.handles.get_mut(t) else { continue };
+                if self.owned[t] {
+                    // Only the part of the tile inside the rectangle.
+                    let (tx0, ty0) = (cx * self.side, cy * self.side);
+                    let (ax, ay) = (x0.max(tx0), y0.max(ty0));
+                    let (bx, by) = (x1.min(tx0 + self.side).min(self.w), y1.min(ty0 + self.side).min(self.h));
+                    if ax >= bx || ay >= by {
+                        continue;
+                    }
+                    let mut pixels = Vec::with_capacity((bx - ax) * (by - ay));
+                    for y in ay..by {
+                        pixels.extend((ax..bx).map(|x| f(y * self.w + x)));
+                    }
+                    let part = ColorImage::new([bx - ax, by - ay], pixels);
+                    h.set_partial([ax - tx0, ay - ty0], part, TextureOptions::NEAREST);
+                } else {
+                    let image = tile_image(self.w, self.h, self.side, t, f);
+                    *h = self.ctx.load_texture(format!("{}-{t}", self.name), image, TextureOptions::NEAREST);
+                    self.owned[t] = true;
                 }
             }
         }

@@ -33,6 +33,15 @@ pub enum Message {
         report: FillReport,
         mask: Mask,
     },
+    /// A re-fill of the holes near an edit: the planes with those holes filled, the rectangle
+    /// `(x0, y0, x1, y1)` where pixels may have changed, and the report of the holes re-filled
+    /// (`None` when the edit left no hole to fill nearby).
+    FilledNear {
+        planes: Vec<Vec<f32>>,
+        report: Option<FillReport>,
+        mask: Mask,
+        changed: (usize, usize, usize, usize),
+    },
     /// A fill that failed or was cancelled hands its (unchanged) planes back.
     FillFailed {
         planes: Vec<Vec<f32>>,
@@ -114,6 +123,50 @@ impl Worker {
             };
             let _ = tx.send(msg);
         })
+    }
+
+    /// Re-fills the holes of `mask` near the rectangle `region` (see [`crate::fill::fill_near`]),
+    /// moving filled samples off the no-data value `nodata` of a `format` image if there is one.
+    pub fn fill_near(
+        mut planes: Vec<Vec<f32>>,
+        mask: Mask,
+        region: (usize, usize, usize, usize),
+        params: FillParams,
+        nodata: Option<(f64, crate::raster::SampleFormat)>,
+        repaint: impl Fn() + Send + Sync + 'static,
+    ) -> Self {
+        let repaint = Arc::new(repaint);
+        let ping = Arc::clone(&repaint);
+        Self::spawn(
+            "fill",
+            move || repaint(),
+            move |tx, cancel| {
+                let progress_tx = tx.clone();
+                let result = crate::fill::fill_near(&planes, &mask, region, &params, &mut |p| {
+                    let _ = progress_tx.send(Message::Progress {
+                        cycle: p.cycle,
+                        max_cycles: p.max_cycles,
+                        residual: p.residual,
+                    });
+                    ping();
+                    !cancel.load(Ordering::Relaxed)
+                });
+                let msg = match result {
+                    Ok(None) => Message::FilledNear { planes, report: None, mask, changed: region },
+                    Ok(Some(mut local)) => {
+                        if let Some((v, format)) = nodata {
+                            raster::nodata::keep_off_nodata(&mut local.planes, format, &local.mask, v);
+                        }
+                        local.write_back(&mut planes, mask.width());
+                        let (a, b) = (local.bbox(), region);
+                        let changed = (a.0.min(b.0), a.1.min(b.1), a.2.max(b.2), a.3.max(b.3));
+                        Message::FilledNear { planes, report: Some(local.report), mask, changed }
+                    }
+                    Err(e) => Message::FillFailed { planes, error: e.to_string() },
+                };
+                let _ = tx.send(msg);
+            },
+        )
     }
 
     /// Fills `planes` under `mask`.

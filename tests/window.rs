@@ -288,7 +288,7 @@ fn mask_saved_and_loaded_back_and_zoom_keys() {
     h.state_mut().mask_field = mask.display().to_string();
     h.run();
     h.get_by_label("Save mask").click();
-    h.run();
+    settle(&mut h); // written by a worker
     h.get_by_label("Clear").click();
     h.run();
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 0);
@@ -325,7 +325,7 @@ fn holes_over_the_size_limit_are_left_and_reported() {
     h.state_mut().report_field = report.display().to_string();
     h.run();
     h.get_by_label("Save report").click();
-    h.run();
+    settle(&mut h); // hashed and counted by a worker
     let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&report).unwrap()).unwrap();
     assert_eq!(json["skipped_pixels"], 1258);
     assert_eq!(json["unknowns"], 25);

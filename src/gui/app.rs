@@ -169,6 +169,8 @@ pub struct App {
     pub blink_before: bool,
     pub overlay_visible: bool,
     pub overlay_colour: Color32,
+    /// Draw only the outline of the mask (kept visible after a fill, on every view).
+    pub outline: bool,
     pub tolerance: f64,
     pub open_field: String,
     pub save_field: String,
@@ -235,6 +237,7 @@ impl Default for App {
             blink_before: false,
             overlay_visible: true,
             overlay_colour: Color32::from_rgba_unmultiplied(255, 40, 200, 140),
+            outline: false,
             tolerance: 1e-6,
             open_field: String::new(),
             save_field: String::new(),
@@ -290,6 +293,7 @@ impl App {
         self.radius = s.radius.clamp(0.5, 500.0);
         let [r, g, b, a] = s.overlay_rgba;
         self.overlay_colour = Color32::from_rgba_unmultiplied(r, g, b, a);
+        self.outline = s.outline;
         if s.tolerance > 0.0 && s.tolerance < 1.0 {
             self.tolerance = s.tolerance;
         }
@@ -300,6 +304,7 @@ impl App {
     pub fn store_settings(&mut self) -> &super::Settings {
         self.settings.radius = self.radius;
         self.settings.overlay_rgba = self.overlay_colour.to_srgba_unmultiplied();
+        self.settings.outline = self.outline;
         self.settings.tolerance = self.tolerance;
         &self.settings
     }
@@ -549,6 +554,10 @@ impl App {
         });
         ui.horizontal(|ui| {
             ui.checkbox(&mut self.overlay_visible, "Show mask (M)");
+            if ui.checkbox(&mut self.outline, "Outline only").changed() {
+                self.overlay_dirty = true;
+                self.overlay_visible = true;
+            }
             let before = self.overlay_colour;
             let label = ui.label("Colour");
             ui.color_edit_button_srgba(&mut self.overlay_colour).labelled_by(label.id);
@@ -733,11 +742,13 @@ impl App {
         // Textures, made on first use.
         let textures = self
             .textures
-            .get_or_insert_with(|| make_textures(&ctx, doc, self.overlay_colour, self.pending_tiles.take()));
+            .get_or_insert_with(|| make_textures(&ctx, doc, self.overlay_colour, self.outline, self.pending_tiles.take()));
         if std::mem::take(&mut self.overlay_dirty) {
             let (mask, colour) = (&doc.mask, self.overlay_colour);
             let (w, h) = (mask.width(), mask.height());
-            textures.overlay = Tiles::new(&ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::overlay(mask, colour, i));
+            let outline = self.outline;
+            textures.overlay =
+                Tiles::new(&ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::mark(mask, colour, outline, i));
         }
         if doc.result.is_some() && textures.after.is_none() {
             textures.after = Some(after_tiles(&ctx, doc));
@@ -847,9 +858,10 @@ impl App {
                     let changed = canvas::stamp(&mut doc.mask, c, self.radius, value, &mut |m, x, y| {
                         edit.save(m, history::tile_of(m, x, y));
                     });
-                    if let Some((x0, y0, x1, y1)) = changed {
-                        let (mask, colour) = (&doc.mask, self.overlay_colour);
-                        textures.overlay.update_rect(x0, y0, x1, y1, &|i| canvas::overlay(mask, colour, i));
+                    if let Some(rect) = changed {
+                        let (x0, y0, x1, y1) = grown(rect, &doc.mask);
+                        let (mask, colour, outline) = (&doc.mask, self.overlay_colour, self.outline);
+                        textures.overlay.update_rect(x0, y0, x1, y1, &|i| canvas::mark(mask, colour, outline, i));
                     }
                 }
                 stroke.last = here;
@@ -991,6 +1003,7 @@ impl App {
     fn poll(&mut self, ctx: &egui::Context) {
         let Some(worker) = &self.worker else { return };
         let mut finished = false;
+        let mut report_inputs = None;
         while let Ok(msg) = worker.receiver.try_recv() {
             match msg {
                 Message::Progress { cycle, max_cycles, residual } => {
@@ -1051,8 +1064,22 @@ impl App {
                     if self.compare != Compare::SideBySide && self.compare != Compare::Split {
                         self.compare = Compare::After;
                     }
-                    // Show the repair itself; M brings the mask back.
-                    self.overlay_visible = false;
+                    // Show the repair itself; M brings the mask back. An outline stays.
+                    self.overlay_visible = self.outline;
+                    finished = true;
+                }
+                Message::MaskSaved(result) => {
+                    self.status = match result {
+                        Ok(path) => format!("saved the mask to {}", path.display()),
+                        Err(e) => e,
+                    };
+                    finished = true;
+                }
+                Message::ReportInputs { path, image, output, holes } => {
+                    match image {
+                        Ok(image) => report_inputs = Some((path, image, output, holes)),
+                        Err(e) => self.status = e,
+                    }
                     finished = true;
                 }
                 Message::Saved { path, notes } => {
@@ -1105,7 +1132,7 @@ impl App {
                     if self.compare != Compare::SideBySide && self.compare != Compare::Split {
                         self.compare = Compare::After;
                     }
-                    self.overlay_visible = false;
+                    self.overlay_visible = self.outline;
                     finished = true;
                 }
                 Message::FillFailed { planes, error } => {
@@ -1123,6 +1150,9 @@ impl App {
                 }
             }
         }
+        if let Some((path, image, output, holes)) = report_inputs {
+            self.write_report(&path, image, output, &holes);
+        }
         if finished {
             self.worker = None;
             self.progress = None;
@@ -1136,6 +1166,33 @@ impl App {
             }
             ctx.request_repaint();
         }
+    }
+
+    /// Writes the report once its inputs are hashed and its holes counted.
+    fn write_report(
+        &mut self,
+        path: &std::path::Path,
+        image: crate::report::FileRecord,
+        output: Option<crate::report::FileRecord>,
+        holes: &crate::mask::HoleStats,
+    ) {
+        let (Some(d), Some(fill)) = (&self.doc, &self.last_fill) else { return };
+        let inputs = crate::report::Inputs { image, mask: None, mask_from_alpha: false };
+        let filled = d.result_mask.as_ref().unwrap_or(&d.mask);
+        let mut report = crate::report::Report::new(inputs, &d.original, filled, holes, fill, self.tolerance);
+        report.output = output;
+        report.nodata = d.nodata.map(|v| v.to_string());
+        report.nodata_pixels = d.nodata_pixels;
+        report.skipped_pixels = d.skipped.iter().map(|h| h.pixels).sum();
+        report.skipped_holes = d.skipped.iter().take(crate::report::HOLE_LIST_MAX).copied().collect();
+        let json = report.to_json();
+        self.status = match raster::write_atomic(path, |w| {
+            use std::io::Write;
+            w.write_all(json.as_bytes()).map_err(|e| e.to_string())
+        }) {
+            Ok(()) => format!("saved the report to {}", path.display()),
+            Err(e) => e.to_string(),
+        };
     }
 
     /// Applies one command.
@@ -1255,10 +1312,10 @@ impl App {
             }
             Command::SaveMask(path) => {
                 let Some(d) = &self.doc else { return };
-                self.status = match raster::save_mask(&d.mask, &path) {
-                    Ok(()) => format!("saved the mask to {}", path.display()),
-                    Err(e) => e.to_string(),
-                };
+                if self.worker.is_some() {
+                    return;
+                }
+                self.worker = Some(Worker::save_mask(d.mask.clone(), path, repaint));
             }
             Command::SaveReport(path) => {
                 if self.last_fill_local {
@@ -1271,32 +1328,14 @@ impl App {
                     }
                     return;
                 }
-                let (Some(d), Some(fill)) = (&self.doc, &self.last_fill) else { return };
-                let image = match crate::report::FileRecord::of(&d.path) {
-                    Ok(r) => r,
-                    Err(e) => {
-                        self.status = format!("cannot read {}: {e}", d.path.display());
-                        return;
-                    }
-                };
-                let inputs = crate::report::Inputs { image, mask: None, mask_from_alpha: false };
-                let filled = d.result_mask.as_ref().unwrap_or(&d.mask);
-                let mut report =
-                    crate::report::Report::new(inputs, &d.original, filled, &filled.hole_stats(), fill, self.tolerance);
+                let (Some(d), Some(_)) = (&self.doc, &self.last_fill) else { return };
+                if self.worker.is_some() {
+                    return;
+                }
                 let saved = PathBuf::from(self.save_field.trim());
-                report.output = crate::report::FileRecord::of(&saved).ok().filter(|_| !self.unsaved);
-                report.nodata = d.nodata.map(|v| v.to_string());
-                report.nodata_pixels = d.nodata_pixels;
-                report.skipped_pixels = d.skipped.iter().map(|h| h.pixels).sum();
-                report.skipped_holes = d.skipped.iter().take(crate::report::HOLE_LIST_MAX).copied().collect();
-                let json = report.to_json();
-                self.status = match raster::write_atomic(&path, |w| {
-                    use std::io::Write;
-                    w.write_all(json.as_bytes()).map_err(|e| e.to_string())
-                }) {
-                    Ok(()) => format!("saved the report to {}", path.display()),
-                    Err(e) => e.to_string(),
-                };
+                let output = (!self.unsaved && !saved.as_os_str().is_empty()).then_some(saved);
+                let filled = d.result_mask.clone().unwrap_or_else(|| d.mask.clone());
+                self.worker = Some(Worker::report_inputs(path, d.path.clone(), output, filled, repaint));
             }
             Command::ConfirmOverwrite => {}
             Command::Undo | Command::Redo => {
@@ -1308,9 +1347,9 @@ impl App {
                 };
                 if let (Some(tiles), Some(t)) = (touched, &mut self.textures) {
                     for tile in tiles {
-                        let (x0, y0, x1, y1) = history::rect_of(&d.mask, tile);
-                        let (mask, colour) = (&d.mask, self.overlay_colour);
-                        t.overlay.update_rect(x0, y0, x1, y1, &|i| canvas::overlay(mask, colour, i));
+                        let (x0, y0, x1, y1) = grown(history::rect_of(&d.mask, tile), &d.mask);
+                        let (mask, colour, outline) = (&d.mask, self.overlay_colour, self.outline);
+                        t.overlay.update_rect(x0, y0, x1, y1, &|i| canvas::mark(mask, colour, outline, i));
                     }
                 }
                 d.refresh();
@@ -1544,6 +1583,12 @@ fn restore_unmasked(planes: &mut [Vec<f32>], original: &[Vec<f32>], previous: &M
     }
 }
 
+/// A rectangle `(x0, y0, x1, y1)` grown by one pixel within the mask's image (an edit changes the
+/// outline of its neighbours too).
+fn grown((x0, y0, x1, y1): (usize, usize, usize, usize), mask: &Mask) -> (usize, usize, usize, usize) {
+    (x0.saturating_sub(1), y0.saturating_sub(1), (x1 + 1).min(mask.width()), (y1 + 1).min(mask.height()))
+}
+
 /// A copy of the planes, made in parallel (a 24-megapixel RGB image is 288 MB of `f32`).
 fn copy_planes(planes: &[Vec<f32>]) -> Vec<Vec<f32>> {
     use rayon::prelude::*;
@@ -1619,14 +1664,20 @@ fn changed_box(a: &Mask, b: Option<&Mask>) -> Option<(usize, usize, usize, usize
     bbox
 }
 
-fn make_textures(ctx: &egui::Context, d: &Document, colour: Color32, ready: Option<Vec<egui::ColorImage>>) -> Textures {
+fn make_textures(
+    ctx: &egui::Context,
+    d: &Document,
+    colour: Color32,
+    outline: bool,
+    ready: Option<Vec<egui::ColorImage>>,
+) -> Textures {
     let (w, h) = (d.original.width, d.original.height);
     let (planes, layout, s) = (&d.original.planes, d.original.layout, d.stretch);
     let before = match ready {
         Some(images) => Tiles::from_images(ctx, "before", w, h, IMAGE_TILE, images),
         None => Tiles::new(ctx, "before", w, h, IMAGE_TILE, &|i| canvas::colour(planes, layout, s, i)),
     };
-    let overlay = Tiles::new(ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::overlay(&d.mask, colour, i));
+    let overlay = Tiles::new(ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::mark(&d.mask, colour, outline, i));
     let after = d.result.as_ref().map(|_| after_tiles(ctx, d));
     Textures { before, after, difference: None, overlay, proposal: None }
 }

@@ -240,6 +240,28 @@ fn tile_image(w: usize, h: usize, side: usize, t: usize, f: &(dyn Fn(usize) -> C
     ColorImage::new([x1 - x0, y1 - y0], pixels)
 }
 
+/// The overlay colour of a mask pixel: the whole mask, or (`outline`) only its edge pixels, the
+/// masked pixels next to a known one or to the image edge, drawn opaque.
+#[must_use]
+pub fn mark(mask: &Mask, colour: Color32, outline: bool, i: usize) -> Color32 {
+    if !outline {
+        return overlay(mask, colour, i);
+    }
+    let bits = mask.bits();
+    if !bits[i] {
+        return Color32::TRANSPARENT;
+    }
+    let (w, h) = (mask.width(), mask.height());
+    let (x, y) = (i % w, i / w);
+    let edge = x == 0 || y == 0 || x + 1 == w || y + 1 == h || !bits[i - 1] || !bits[i + 1] || !bits[i - w] || !bits[i + w];
+    if edge {
+        let [r, g, b, _] = colour.to_srgba_unmultiplied();
+        Color32::from_rgb(r, g, b)
+    } else {
+        Color32::TRANSPARENT
+    }
+}
+
 /// The overlay colour of a mask pixel.
 #[must_use]
 pub fn overlay(mask: &Mask, colour: Color32, i: usize) -> Color32 {

@@ -14,6 +14,9 @@ pub const RECENT_MAX: usize = 10;
 pub struct Settings {
     pub radius: f32,
     pub overlay_rgba: [u8; 4],
+    /// Show only the mask's outline.
+    #[serde(default)]
+    pub outline: bool,
     pub tolerance: f64,
     pub recent: Vec<PathBuf>,
     pub last_folder: Option<PathBuf>,
@@ -25,6 +28,7 @@ impl Default for Settings {
         Self {
             radius: 4.0,
             overlay_rgba: [255, 40, 200, 140],
+            outline: false,
             tolerance: 1e-6,
             recent: Vec::new(),
             last_folder: None,

@@ -51,6 +51,15 @@ pub enum Message {
         path: PathBuf,
         notes: Vec<String>,
     },
+    MaskSaved(Result<PathBuf, String>),
+    /// What a report needs that takes time: the input's hash, the saved result's hash (if it is
+    /// saved) and the hole count of the filled mask.
+    ReportInputs {
+        path: PathBuf,
+        image: Result<crate::report::FileRecord, String>,
+        output: Option<crate::report::FileRecord>,
+        holes: crate::mask::HoleStats,
+    },
     Detected {
         mask: Mask,
         method: crate::cli::DetectMethod,
@@ -223,6 +232,31 @@ impl Worker {
     }
 
     /// Saves a raster (result) to `path`.
+    /// Writes the mask as a PNG.
+    pub fn save_mask(mask: Mask, path: PathBuf, repaint: impl Fn() + Send + 'static) -> Self {
+        Self::spawn("save mask", repaint, move |tx, _| {
+            let _ = tx.send(Message::MaskSaved(raster::save_mask(&mask, &path).map(|()| path).map_err(|e| e.to_string())));
+        })
+    }
+
+    /// Gathers the slow parts of a report to be written to `path`: hashes `image` and, if given,
+    /// the saved result `output`, and counts the holes of `filled`.
+    pub fn report_inputs(
+        path: PathBuf,
+        image: PathBuf,
+        output: Option<PathBuf>,
+        filled: Mask,
+        repaint: impl Fn() + Send + 'static,
+    ) -> Self {
+        Self::spawn("report", repaint, move |tx, _| {
+            let image = crate::report::FileRecord::of(&image)
+                .map_err(|e| format!("cannot read {}: {e}", image.display()));
+            let output = output.and_then(|o| crate::report::FileRecord::of(&o).ok());
+            let holes = filled.hole_stats();
+            let _ = tx.send(Message::ReportInputs { path, image, output, holes });
+        })
+    }
+
     pub fn save(raster: Raster, path: PathBuf, repaint: impl Fn() + Send + 'static) -> Self {
         Self::spawn("save", repaint, move |tx, _| {
             let msg = match raster::save_noting(&raster, &path) {

@@ -331,3 +331,69 @@ fn holes_over_the_size_limit_are_left_and_reported() {
     assert_eq!(json["unknowns"], 25);
     assert_eq!(json["nodata_pixels"], 1258);
 }
+
+/// Sets the text that changes from run to run (timings, temporary paths) to fixed values, so a
+/// picture of the window depends only on what the window shows.
+fn steady(h: &mut Harness<'_, App>, status: &str) {
+    let app = h.state_mut();
+    app.status = status.to_owned();
+    if let Some(f) = &mut app.last_fill {
+        (f.setup_seconds, f.solve_seconds) = (0.01, 0.02);
+    }
+    h.run();
+}
+
+/// The main states of the window as pictures, compared with the reviewed ones in
+/// tests/snapshots (egui_kittest's wgpu renderer; `UPDATE_SNAPSHOTS=1` rewrites them). They are
+/// made on Mesa's lavapipe, which `.ci/run` installs; other renderers differ by a few pixels, so
+/// the comparison runs when `REWEAVE_SNAPSHOTS` is set, and otherwise the states are only driven.
+#[test]
+fn main_states_look_as_reviewed() {
+    let compare = std::env::var_os("REWEAVE_SNAPSHOTS").is_some() || std::env::var_os("UPDATE_SNAPSHOTS").is_some();
+    let shot = |h: &mut Harness<'_, App>, name: &str| {
+        if compare {
+            h.snapshot(name);
+        }
+    };
+    // A fixed folder, so the path the window shows is the same on every run.
+    let dir = std::env::temp_dir().join("reweave-window-looks");
+    std::fs::create_dir_all(&dir).unwrap();
+    let input = fixture(&dir);
+    let mut h =
+        Harness::builder().with_size((1100.0, 780.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default());
+    open(&mut h, &input);
+    steady(&mut h, "opened card.png");
+    shot(&mut h, "opened");
+
+    h.state_mut().radius = 2.0;
+    drag(&mut h, Pos2::new(20.0, 24.0), Pos2::new(44.0, 24.0), 10);
+    h.run();
+    steady(&mut h, "painted a stroke");
+    shot(&mut h, "painted");
+
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    assert!(h.state().doc.as_ref().unwrap().result.is_some());
+    steady(&mut h, "filled");
+    shot(&mut h, "filled");
+
+    for (label, name, mode) in [
+        ("Split", "split", Compare::Split),
+        ("Side by side", "side-by-side", Compare::SideBySide),
+        ("Difference", "difference", Compare::Difference),
+        ("Before", "before", Compare::Before),
+    ] {
+        h.get_by_label(label).click();
+        h.run();
+        assert_eq!(h.state().compare, mode);
+        steady(&mut h, label);
+        shot(&mut h, name);
+    }
+
+    h.get_by_label("After").click();
+    h.get_by_label("Outline only").click();
+    h.run();
+    assert!(h.state().outline && h.state().overlay_visible);
+    steady(&mut h, "outline");
+    shot(&mut h, "outline");
+}

@@ -171,6 +171,8 @@ pub struct App {
     pub overlay_colour: Color32,
     /// Draw only the outline of the mask (kept visible after a fill, on every view).
     pub outline: bool,
+    /// The compare mode of the last frame was side by side (whose views are half as wide).
+    was_side_by_side: bool,
     pub tolerance: f64,
     pub open_field: String,
     pub save_field: String,
@@ -238,6 +240,7 @@ impl Default for App {
             overlay_visible: true,
             overlay_colour: Color32::from_rgba_unmultiplied(255, 40, 200, 140),
             outline: false,
+            was_side_by_side: false,
             tolerance: 1e-6,
             open_field: String::new(),
             save_field: String::new(),
@@ -328,7 +331,10 @@ impl App {
         }
         egui::Panel::top("files").show(ui, |ui| commands.extend(self.files_ui(ui)));
         egui::Panel::bottom("status").show(ui, |ui| self.status_ui(ui));
-        egui::Panel::left("tools").resizable(false).exact_size(240.0).show(ui, |ui| commands.extend(self.tools_ui(ui)));
+        egui::Panel::left("tools").resizable(false).exact_size(240.0).show(ui, |ui| {
+            // Scrolls when the window is too short for every section.
+            egui::ScrollArea::vertical().show(ui, |ui| commands.extend(self.tools_ui(ui)));
+        });
         egui::CentralPanel::default().show(ui, |ui| commands.extend(self.canvas_ui(ui)));
         if self.show_help {
             self.help_ui(&ctx);
@@ -554,10 +560,6 @@ impl App {
         });
         ui.horizontal(|ui| {
             ui.checkbox(&mut self.overlay_visible, "Show mask (M)");
-            if ui.checkbox(&mut self.outline, "Outline only").changed() {
-                self.overlay_dirty = true;
-                self.overlay_visible = true;
-            }
             let before = self.overlay_colour;
             let label = ui.label("Colour");
             ui.color_edit_button_srgba(&mut self.overlay_colour).labelled_by(label.id);
@@ -565,6 +567,10 @@ impl App {
                 self.overlay_dirty = true;
             }
         });
+        if ui.checkbox(&mut self.outline, "Outline only").changed() {
+            self.overlay_dirty = true;
+            self.overlay_visible = true;
+        }
         let mut alpha = f32::from(self.overlay_colour.a()) / 255.0;
         if ui.add(egui::Slider::new(&mut alpha, 0.1..=1.0).text("Opacity")).changed() {
             let [r, g, b, _] = self.overlay_colour.to_srgba_unmultiplied();
@@ -682,7 +688,8 @@ impl App {
                     ui.label(format!("({x}, {y}) = {}", values.join(", ")));
                     ui.separator();
                 }
-                ui.label(format!("mask {} px in {} holes", d.marked, d.holes.holes));
+                let holes = d.holes.holes;
+                ui.label(format!("mask {} px in {holes} hole{}", d.marked, if holes == 1 { "" } else { "s" }));
                 if let Some(r) = &self.last_fill {
                     ui.separator();
                     let worst = r.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max);
@@ -736,13 +743,23 @@ impl App {
         let ctx = ui.ctx().clone();
         #[allow(clippy::cast_precision_loss)]
         let size = Vec2::new(doc.original.width as f32, doc.original.height as f32);
+        // Side by side shows two half-width views: entering or leaving it fits the image again.
+        let side_by_side = self.compare == Compare::SideBySide;
+        if side_by_side != std::mem::replace(&mut self.was_side_by_side, side_by_side) {
+            self.view.fit_pending = true;
+        }
         if self.view.fit_pending {
-            self.view.fit(rect, size);
+            let area = if side_by_side {
+                Rect::from_min_size(rect.min, Vec2::new(rect.width() / 2.0, rect.height()))
+            } else {
+                rect
+            };
+            self.view.fit(area, size);
         }
         // Textures, made on first use.
-        let textures = self
-            .textures
-            .get_or_insert_with(|| make_textures(&ctx, doc, self.overlay_colour, self.outline, self.pending_tiles.take()));
+        let textures = self.textures.get_or_insert_with(|| {
+            make_textures(&ctx, doc, self.overlay_colour, self.outline, self.pending_tiles.take())
+        });
         if std::mem::take(&mut self.overlay_dirty) {
             let (mask, colour) = (&doc.mask, self.overlay_colour);
             let (w, h) = (mask.width(), mask.height());

@@ -253,7 +253,8 @@ pub fn mark(mask: &Mask, colour: Color32, outline: bool, i: usize) -> Color32 {
     }
     let (w, h) = (mask.width(), mask.height());
     let (x, y) = (i % w, i / w);
-    let edge = x == 0 || y == 0 || x + 1 == w || y + 1 == h || !bits[i - 1] || !bits[i + 1] || !bits[i - w] || !bits[i + w];
+    let edge =
+        x == 0 || y == 0 || x + 1 == w || y + 1 == h || !bits[i - 1] || !bits[i + 1] || !bits[i - w] || !bits[i + w];
     if edge {
         let [r, g, b, _] = colour.to_srgba_unmultiplied();
         Color32::from_rgb(r, g, b)

@@ -235,7 +235,8 @@ impl Worker {
     /// Writes the mask as a PNG.
     pub fn save_mask(mask: Mask, path: PathBuf, repaint: impl Fn() + Send + 'static) -> Self {
         Self::spawn("save mask", repaint, move |tx, _| {
-            let _ = tx.send(Message::MaskSaved(raster::save_mask(&mask, &path).map(|()| path).map_err(|e| e.to_string())));
+            let _ =
+                tx.send(Message::MaskSaved(raster::save_mask(&mask, &path).map(|()| path).map_err(|e| e.to_string())));
         })
     }
 
@@ -249,8 +250,8 @@ impl Worker {
         repaint: impl Fn() + Send + 'static,
     ) -> Self {
         Self::spawn("report", repaint, move |tx, _| {
-            let image = crate::report::FileRecord::of(&image)
-                .map_err(|e| format!("cannot read {}: {e}", image.display()));
+            let image =
+                crate::report::FileRecord::of(&image).map_err(|e| format!("cannot read {}: {e}", image.display()));
             let output = output.and_then(|o| crate::report::FileRecord::of(&o).ok());
             let holes = filled.hole_stats();
             let _ = tx.send(Message::ReportInputs { path, image, output, holes });

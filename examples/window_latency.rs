@@ -69,5 +69,18 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             harness.state().doc.as_ref().map_or(0, |d| d.marked)
         );
     }
+    // Difference: the heat map is built a few tiles per frame; report the slowest frame.
+    harness.get_by_label("Difference").click();
+    let mut slowest = 0f64;
+    let started = Instant::now();
+    for _ in 0..40 {
+        let t = Instant::now();
+        harness.step();
+        slowest = slowest.max(t.elapsed().as_secs_f64());
+    }
+    println!(
+        "difference view: slowest of 40 frames {slowest:.3} s ({:.3} s for all 40)",
+        started.elapsed().as_secs_f64()
+    );
     Ok(())
 }

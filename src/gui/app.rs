@@ -108,7 +108,7 @@ struct Textures {
     before: Tiles,
     after: Option<Tiles>,
     /// The difference heat map and its largest value.
-    difference: Option<(Tiles, f32)>,
+    difference: Option<Difference>,
     overlay: Tiles,
     proposal: Option<Tiles>,
 }
@@ -896,11 +896,15 @@ impl App {
             Compare::Blink => self.blink_before,
             Compare::After | Compare::Split | Compare::Difference | Compare::SideBySide => false,
         };
-        if self.compare == Compare::Difference && textures.difference.is_none() {
-            textures.difference = Some(difference_tiles(&ctx, doc));
+        if self.compare == Compare::Difference {
+            let diff = textures.difference.get_or_insert_with(|| Difference::new(&ctx, doc));
+            // A few tiles per frame, so a very large image never freezes the window.
+            if diff.build_some(doc) {
+                ctx.request_repaint();
+            }
         }
         let after = textures.after.as_ref().unwrap_or(&textures.before);
-        if let (Compare::Difference, Some((tiles, max))) = (self.compare, &textures.difference) {
+        if let (Compare::Difference, Some(Difference { tiles, max, .. })) = (self.compare, &textures.difference) {
             tiles.paint(&painter, &self.view, rect, Color32::WHITE);
             // Legend: black is no change, white the largest change, in the image's units.
             let legend = Rect::from_min_size(rect.left_bottom() + Vec2::new(12.0, -34.0), Vec2::new(160.0, 10.0));
@@ -1561,25 +1565,69 @@ fn heat(t: f32) -> Color32 {
     Color32::from_rgb((r * 255.0) as u8, (g * 255.0) as u8, (b * 255.0) as u8)
 }
 
-/// The heat map of |after − before| (largest over the channels) and its largest value.
-fn difference_tiles(ctx: &egui::Context, d: &Document) -> (Tiles, f32) {
-    let (w, h) = (d.original.width, d.original.height);
-    let after = d.result.as_ref().unwrap_or(&d.original.planes);
-    use rayon::prelude::*;
-    let diff: Vec<f32> = (0..w * h)
-        .into_par_iter()
-        .map(|i| {
-            after
-                .iter()
-                .zip(&d.original.planes)
-                .map(|(a, b)| (a[i] - b[i]).abs())
-                .filter(|v| v.is_finite())
-                .fold(0.0, f32::max)
-        })
-        .collect();
-    let max = diff.par_iter().copied().reduce(|| 0.0, f32::max);
-    let scale = if max > 0.0 { 1.0 / max } else { 0.0 };
-    (Tiles::new(ctx, "difference", w, h, IMAGE_TILE, &|i| heat(diff[i] * scale)), max)
+/// The heat map of |after − before| (largest over the channels), built a few tiles per frame.
+/// Only filled pixels can differ, so tiles without one stay black and cost nothing.
+struct Difference {
+    tiles: Tiles,
+    /// The largest difference, in the image's units (white on the map).
+    max: f32,
+    /// Tiles holding filled pixels that are not built yet.
+    todo: Vec<usize>,
+}
+
+impl Difference {
+    /// Tiles built per frame (each up to `IMAGE_TILE`² pixels, made in parallel).
+    const PER_FRAME: usize = 4;
+
+    fn new(ctx: &egui::Context, d: &Document) -> Self {
+        use rayon::prelude::*;
+        let (w, h) = (d.original.width, d.original.height);
+        let tiles = Tiles::uniform(ctx, "difference", w, h, IMAGE_TILE, Color32::BLACK);
+        let (Some(after), Some(filled)) = (&d.result, &d.result_mask) else {
+            return Self { tiles, max: 0.0, todo: Vec::new() };
+        };
+        let bits = filled.bits();
+        let max = (0..w * h)
+            .into_par_iter()
+            .with_min_len(1 << 16)
+            .filter(|&i| bits[i])
+            .map(|i| pixel_difference(after, &d.original.planes, i))
+            .reduce(|| 0.0, f32::max);
+        let count = w.div_ceil(IMAGE_TILE) * h.div_ceil(IMAGE_TILE);
+        let mut todo: Vec<usize> = (0..count)
+            .into_par_iter()
+            .filter(|&t| {
+                let (x0, y0, x1, y1) = tiles.tile_rect(t);
+                (y0..y1).any(|y| bits[y * w + x0..y * w + x1].contains(&true))
+            })
+            .collect();
+        todo.reverse(); // built from the top left
+        Self { tiles, max, todo }
+    }
+
+    /// Builds the next few tiles; true while some are left.
+    fn build_some(&mut self, d: &Document) -> bool {
+        use rayon::prelude::*;
+        let (Some(after), Some(filled)) = (&d.result, &d.result_mask) else { return false };
+        let (w, h) = (d.original.width, d.original.height);
+        let scale = if self.max > 0.0 { 1.0 / self.max } else { 0.0 };
+        let next: Vec<usize> = (0..Self::PER_FRAME).filter_map(|_| self.todo.pop()).collect();
+        let bits = filled.bits();
+        let colour = |i: usize| {
+            if bits[i] { heat(pixel_difference(after, &d.original.planes, i) * scale) } else { Color32::BLACK }
+        };
+        let images: Vec<egui::ColorImage> =
+            next.par_iter().map(|&t| canvas::tile_image(w, h, IMAGE_TILE, t, &colour)).collect();
+        for (t, image) in next.into_iter().zip(images) {
+            self.tiles.set_tile(t, image);
+        }
+        !self.todo.is_empty()
+    }
+}
+
+/// |after − before| at pixel `i`, the largest over the channels (non-finite values left out).
+fn pixel_difference(after: &[Vec<f32>], before: &[Vec<f32>], i: usize) -> f32 {
+    after.iter().zip(before).map(|(a, b)| (a[i] - b[i]).abs()).filter(|v| v.is_finite()).fold(0.0, f32::max)
 }
 
 /// `dir/stem-suffix.ext` next to `path`.

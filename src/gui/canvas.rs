@@ -169,6 +169,41 @@ impl Tiles {
         }
     }
 
+    /// A set whose every tile shows one colour (all share a single 1×1 texture, stretched), to be
+    /// replaced tile by tile with [`Tiles::set_tile`].
+    #[must_use]
+    pub fn uniform(ctx: &egui::Context, name: &str, w: usize, h: usize, side: usize, colour: Color32) -> Self {
+        let blank = ctx.load_texture(format!("{name}-blank"), ColorImage::new([1, 1], vec![colour]), TextureOptions::NEAREST);
+        let count = w.div_ceil(side) * h.div_ceil(side);
+        Self {
+            w,
+            h,
+            side,
+            handles: vec![blank; count],
+            owned: vec![false; count],
+            name: name.to_owned(),
+            ctx: ctx.clone(),
+        }
+    }
+
+    /// Replaces tile `t` with `image` (a [`tile_images`]-sized picture of it).
+    pub fn set_tile(&mut self, t: usize, image: ColorImage) {
+        if self.owned[t] {
+            self.handles[t].set(image, TextureOptions::NEAREST);
+        } else {
+            self.handles[t] = self.ctx.load_texture(format!("{}-{t}", self.name), image, TextureOptions::NEAREST);
+            self.owned[t] = true;
+        }
+    }
+
+    /// The pixel rectangle `(x0, y0, x1, y1)` (ends exclusive) of tile `t`.
+    #[must_use]
+    pub fn tile_rect(&self, t: usize) -> (usize, usize, usize, usize) {
+        let tx = self.w.div_ceil(self.side);
+        let (x0, y0) = ((t % tx) * self.side, (t / tx) * self.side);
+        (x0, y0, (x0 + self.side).min(self.w), (y0 + self.side).min(self.h))
+    }
+
     /// Re-uploads the tiles that hold any pixel of the rectangle `(x0, y0)–(x1, y1)` (exclusive).
     pub fn update_rect(&mut self, x0: usize, y0: usize, x1: usize, y1: usize, f: &(dyn Fn(usize) -> Color32 + Sync)) {
         let tx = self.w.div_ceil(self.side);
@@ -227,7 +262,8 @@ pub fn tile_images(w: usize, h: usize, side: usize, f: &(dyn Fn(usize) -> Color3
     (0..count).into_par_iter().map(|t| tile_image(w, h, side, t, f)).collect()
 }
 
-fn tile_image(w: usize, h: usize, side: usize, t: usize, f: &(dyn Fn(usize) -> Color32 + Sync)) -> ColorImage {
+/// The image of tile `t` of a `w × h` picture cut in `side × side` tiles.
+pub fn tile_image(w: usize, h: usize, side: usize, t: usize, f: &(dyn Fn(usize) -> Color32 + Sync)) -> ColorImage {
     let tx = w.div_ceil(side);
     let (x0, y0) = ((t % tx) * side, (t / tx) * side);
     let (x1, y1) = ((x0 + side).min(w), (y0 + side).min(h));

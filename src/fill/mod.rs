@@ -224,86 +224,11 @@ fn dense_enough(unknowns: usize, (_, _, w, h): (usize, usize, usize, usize)) -> 
     unknowns >= GRID_MIN_UNKNOWNS && unknowns as f64 >= GRID_MIN_DENSITY * (w * h) as f64
 }
 
-/// The runs of unknowns `[a, b)` of every row of a mask.
-fn row_runs(mask: &Mask) -> Vec<Vec<(u32, u32)>> {
-    let width = mask.width();
-    mask.bits()
-        .par_chunks(width)
-        .map(|row| {
-            let mut runs = Vec::new();
-            let mut x = 0;
-            while x < width {
-                if row[x] {
-                    let a = x;
-                    while x < width && row[x] {
-                        x += 1;
-                    }
-                    runs.push((index_u32(a), index_u32(x)));
-                } else {
-                    x += 1;
-                }
-            }
-            runs
-        })
-        .collect()
-}
-
-fn index_u32(i: usize) -> u32 {
-    u32::try_from(i).expect("image sides fit in u32 (images are limited on load)")
-}
-
-/// The holes (4-connected components) of a mask given by its row runs: the hole of every run, in
-/// row order, and the number of holes. Union-find over runs, so the cost follows the runs.
-fn run_holes(runs: &[Vec<(u32, u32)>]) -> (Vec<u32>, usize) {
-    let total: usize = runs.iter().map(Vec::len).sum();
-    let mut parent: Vec<u32> = (0..index_u32(total)).collect();
-    fn find(parent: &mut [u32], mut i: u32) -> u32 {
-        while parent[i as usize] != i {
-            let p = parent[i as usize];
-            parent[i as usize] = parent[p as usize];
-            i = p;
-        }
-        i
-    }
-    let mut start = 0usize;
-    for y in 1..runs.len() {
-        let (above, here) = (&runs[y - 1], &runs[y]);
-        let above_start = start;
-        start += above.len();
-        let (mut i, mut j) = (0, 0);
-        while i < above.len() && j < here.len() {
-            let (a, b) = (above[i], here[j]);
-            if a.0 < b.1 && b.0 < a.1 {
-                let (ra, rb) = (find(&mut parent, index_u32(above_start + i)), find(&mut parent, index_u32(start + j)));
-                if ra != rb {
-                    parent[ra.max(rb) as usize] = ra.min(rb);
-                }
-            }
-            if a.1 < b.1 {
-                i += 1;
-            } else {
-                j += 1;
-            }
-        }
-    }
-    let mut hole = vec![u32::MAX; total];
-    let mut count = 0u32;
-    for i in 0..total {
-        let r = find(&mut parent, index_u32(i)) as usize;
-        if hole[r] == u32::MAX {
-            hole[r] = count;
-            count += 1;
-        }
-        hole[i] = hole[r];
-    }
-    (hole, count as usize)
-}
-
 /// Splits `mask` into parts: grids where the unknowns are dense in their box, index lists for the
 /// rest.
 fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     let (width, height) = (mask.width(), mask.height());
-    let runs = row_runs(mask);
+    let runs = crate::mask::row_runs(mask);
     let mut count = 0usize;
     let mut bbox = (usize::MAX, usize::MAX, 0, 0);
     for (y, row) in runs.iter().enumerate() {
@@ -337,7 +262,7 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     }
     // Hole by hole: each dense, large hole gets its own grid (holes never touch, so their boxes
     // may overlap); everything else shares one compact hierarchy.
-    let (hole_of, holes) = run_holes(&runs);
+    let (hole_of, holes) = crate::mask::run_holes(&runs);
     let mut row_start = Vec::with_capacity(height + 1);
     row_start.push(0usize);
     for row in &runs {

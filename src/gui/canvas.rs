@@ -173,7 +173,8 @@ impl Tiles {
     /// replaced tile by tile with [`Tiles::set_tile`].
     #[must_use]
     pub fn uniform(ctx: &egui::Context, name: &str, w: usize, h: usize, side: usize, colour: Color32) -> Self {
-        let blank = ctx.load_texture(format!("{name}-blank"), ColorImage::new([1, 1], vec![colour]), TextureOptions::NEAREST);
+        let blank =
+            ctx.load_texture(format!("{name}-blank"), ColorImage::new([1, 1], vec![colour]), TextureOptions::NEAREST);
         let count = w.div_ceil(side) * h.div_ceil(side);
         Self {
             w,

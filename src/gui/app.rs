@@ -171,6 +171,8 @@ pub struct App {
     pub overlay_colour: Color32,
     /// Draw only the outline of the mask (kept visible after a fill, on every view).
     pub outline: bool,
+    /// The running local fill is the document's first (nothing was filled before).
+    near_first: bool,
     /// The compare mode of the last frame was side by side (whose views are half as wide).
     was_side_by_side: bool,
     pub tolerance: f64,
@@ -241,6 +243,7 @@ impl Default for App {
             overlay_colour: Color32::from_rgba_unmultiplied(255, 40, 200, 140),
             outline: false,
             was_side_by_side: false,
+            near_first: false,
             tolerance: 1e-6,
             open_field: String::new(),
             save_field: String::new(),
@@ -1126,7 +1129,8 @@ impl App {
                     if let Some(d) = &mut self.doc {
                         self.status = match &report {
                             Some(r) => format!(
-                                "re-filled {} pixels near the edit in {:.2} s. {CAUTION}",
+                                "{} {} pixels in {:.2} s. {CAUTION}",
+                                if self.near_first { "filled" } else { "re-filled the holes near the edit:" },
                                 r.unknowns,
                                 r.setup_seconds + r.solve_seconds
                             ),
@@ -1288,7 +1292,8 @@ impl App {
                     };
                     restore_unmasked_in(&mut p, &d.original.planes, previous, &d.mask, region);
                     let nodata = d.nodata.map(|v| (v, d.original.sample_format));
-                    self.status = "re-filling the holes near the edit…".to_owned();
+                    self.status = if first { "filling…" } else { "re-filling the holes near the edit…" }.to_owned();
+                    self.near_first = first;
                     self.worker = Some(Worker::fill_near(p, d.mask.clone(), region, params, nodata, repaint));
                     return;
                 }

@@ -126,3 +126,49 @@ fn bad_shard_is_a_usage_error() {
     ]);
     assert_eq!(o.status.code(), Some(2));
 }
+
+#[test]
+fn an_interrupted_batch_leaves_complete_outputs_only_and_a_rerun_finishes() {
+    // Ctrl-C (SIGINT) part way: every output already in place loads and is complete, no
+    // temporary file is left, and `--skip-existing` then does exactly the rest (common practice
+    // for batch tools; the interrupt exit code 130 = 128 + SIGINT is the shell convention).
+    let dir = tempfile::tempdir().unwrap();
+    let (input, out, mask) = (dir.path().join("in"), dir.path().join("out"), dir.path().join("badpix.png"));
+    std::fs::create_dir_all(&input).unwrap();
+    let (w, h, files) = (384, 384, 150);
+    for k in 0..files {
+        let mut r = Raster::new(w, h, Layout::Gray, SampleFormat::U16);
+        for (i, v) in r.planes[0].iter_mut().enumerate() {
+            *v = (1000 + (k * 7 + i % w + i / w) % 3000) as f32;
+        }
+        raster::save(&r, &input.join(format!("frame-{k:03}.png"))).unwrap();
+    }
+    raster::save_mask(&Mask::from_fn(w, h, |x, y| x == 100 || (x + 3 * y) % 97 == 0), &mask).unwrap();
+    let args = ["batch", input.to_str().unwrap(), "--mask", mask.to_str().unwrap(), "-o", out.to_str().unwrap()];
+    let mut child = Command::new(env!("CARGO_BIN_EXE_reweave")).args(args).args(["--jobs", "1"]).spawn().unwrap();
+    let started = std::time::Instant::now();
+    while listing_or_empty(&out).iter().filter(|n| n.ends_with(".png")).count() < 3 {
+        assert!(started.elapsed().as_secs() < 60, "batch made no progress");
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+    let pid = child.id().to_string();
+    assert!(Command::new("kill").args(["-INT", &pid]).status().unwrap().success());
+    let status = child.wait().unwrap();
+    assert_eq!(status.code(), Some(130), "interrupted, not finished: {status:?}");
+    let done = listing(&out);
+    assert!(!done.iter().any(|n| n.contains(".tmp")), "no temporary file left: {done:?}");
+    assert!(done.len() < files, "the batch must still have been running when interrupted ({} done)", done.len());
+    for name in &done {
+        let r = raster::load(&out.join(name)).unwrap_or_else(|e| panic!("{name} is incomplete: {e}"));
+        assert_eq!((r.width, r.height), (w, h));
+    }
+    let o = reweave(&[&args[..], &["--skip-existing"]].concat());
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(o.status.code(), Some(0), "{stdout}");
+    assert!(stdout.contains(&format!("skipped    {}", done.len())), "{stdout}");
+    assert_eq!(listing(&out).len(), files);
+}
+
+fn listing_or_empty(dir: &Path) -> Vec<String> {
+    if dir.exists() { listing(dir) } else { Vec::new() }
+}

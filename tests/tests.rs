@@ -11,6 +11,7 @@ mod cli;
 mod convergence;
 mod detection;
 mod direct_solver;
+mod edge_cases;
 mod exact_harmonic;
 mod exact_rationals;
 mod fidelity;

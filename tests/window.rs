@@ -6,7 +6,7 @@ use std::path::Path;
 use egui::Pos2;
 use egui_kittest::Harness;
 use egui_kittest::kittest::Queryable;
-use reweave::gui::{App, Compare};
+use reweave::gui::{App, Compare, Recovery};
 use reweave::raster::{self, Layout, Raster, SampleFormat};
 
 fn fixture(dir: &Path) -> std::path::PathBuf {
@@ -396,4 +396,40 @@ fn main_states_look_as_reviewed() {
     assert!(h.state().outline && h.state().overlay_visible);
     steady(&mut h, "outline");
     shot(&mut h, "outline");
+}
+
+#[test]
+fn work_is_kept_and_offered_back_after_a_crash() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture(dir.path());
+    let data = dir.path().join("data");
+    let mut h = harness();
+    h.state_mut().use_recovery(Some(Recovery::in_dir(data.clone())));
+    assert!(h.state().restore_offer.is_none(), "nothing to restore at first");
+    open(&mut h, &input);
+    h.state_mut().radius = 2.0;
+    drag(&mut h, Pos2::new(20.0, 24.0), Pos2::new(44.0, 24.0), 10);
+    h.run();
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    let marked = h.state().doc.as_ref().unwrap().mask.count();
+    // The work is written by a background thread at the fill.
+    let started = std::time::Instant::now();
+    while Recovery::in_dir(data.clone()).found().is_none_or(|s| s.marked != marked) {
+        assert!(started.elapsed().as_secs() < 10, "the work was not kept");
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    }
+    drop(h); // a crash: the window never exits normally
+
+    let mut h = harness();
+    h.state_mut().use_recovery(Some(Recovery::in_dir(data.clone())));
+    let offer = h.state().restore_offer.clone().expect("the kept work is offered");
+    assert_eq!((offer.image.as_path(), offer.marked), (input.as_path(), marked));
+    h.run();
+    h.get_by_label("Restore").click();
+    settle(&mut h);
+    let d = h.state().doc.as_ref().expect("the image is open again");
+    assert_eq!(d.path, input);
+    assert_eq!(d.mask.count(), marked, "{}", h.state().status);
+    assert!(d.mask.get(32, 24));
 }

@@ -1292,6 +1292,30 @@ pub(crate) fn solve_group<const C: usize>(
     // Level 0: known pixels of the box take their values; unknowns start at zero (full
     // multigrid) or at the planes' values (warm start). The right-hand side's norm is the norm
     // of the known neighbours' sums.
+    // Work with each channel scaled by a power of two that brings its known values near 1, so the
+    // f32 coarse levels neither underflow (subnormal data) nor overflow; the scaling is exact.
+    let maxima: Vec<[f64; C]> = (0..h)
+        .into_par_iter()
+        .map(|y| {
+            let mut m = [0f64; C];
+            let row = (g.y0 + y) * g.img_w + g.x0;
+            for x in 0..w {
+                if !g.members.get(x as isize, y as isize) {
+                    for c in 0..C {
+                        let v = f64::from(planes[c][row + x]).abs();
+                        if v.is_finite() {
+                            m[c] = m[c].max(v);
+                        }
+                    }
+                }
+            }
+            m
+        })
+        .collect();
+    let scale: [f64; C] = std::array::from_fn(|c| {
+        let m = maxima.iter().fold(0f64, |a, r| a.max(r[c]));
+        if m > 0.0 { 2f64.powi(-(m.log2().floor() as i32)) } else { 1.0 }
+    });
     let mut u = vec![0f64; w * h * C];
     let bad: Vec<Option<(usize, usize)>> = u
         .par_chunks_mut(w * C)
@@ -1304,9 +1328,10 @@ pub(crate) fn solve_group<const C: usize>(
                 for c in 0..C {
                     let v = planes[c][p];
                     if member {
-                        row[x * C + c] = if start == Start::Warm && v.is_finite() { f64::from(v) } else { 0.0 };
+                        row[x * C + c] =
+                            if start == Start::Warm && v.is_finite() { f64::from(v) * scale[c] } else { 0.0 };
                     } else if v.is_finite() {
-                        row[x * C + c] = f64::from(v);
+                        row[x * C + c] = f64::from(v) * scale[c];
                     } else {
                         let (xi, yi) = (x as isize, y as isize);
                         let m = &g.members;
@@ -1406,14 +1431,17 @@ pub(crate) fn solve_group<const C: usize>(
         cy.cycle(0, params.cycle);
         cycles += 1;
     };
-    Ok(GroupResult { values: cy.work.u, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec() })
+    // Norms in the planes' own units, so parts with different scales add up correctly.
+    let unscale = |v: [f64; C]| (0..C).map(|c| v[c] / (scale[c] * scale[c])).collect();
+    Ok(GroupResult { values: cy.work.u, reports, r_sq: unscale(r_sq), b_sq: unscale(b_sq), scale: scale.to_vec() })
 }
 
 /// Writes a group's values (the level-0 iterate over the box) into the planes.
-pub(crate) fn write_back(g: &Grid, planes: &mut [&mut [f32]], first: usize, count: usize, values: &[f64]) {
+pub(crate) fn write_back(g: &Grid, planes: &mut [&mut [f32]], first: usize, result: &GroupResult) {
+    let count = result.scale.len();
     g.for_each_member(|i, p| {
         for c in 0..count {
-            planes[first + c][p] = values[i * count + c] as f32;
+            planes[first + c][p] = (result.values[i * count + c] / result.scale[c]) as f32;
         }
     });
 }

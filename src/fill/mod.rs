@@ -206,6 +206,8 @@ pub(crate) struct GroupResult {
     /// Squared norms of the final residual and of the right-hand side, per channel.
     pub r_sq: Vec<f64>,
     pub b_sq: Vec<f64>,
+    /// The factor each channel's values were multiplied by while solving (a power of two).
+    pub scale: Vec<f64>,
 }
 
 /// The bounding box of `(x, y)` pixels, grown by one pixel within the image.
@@ -483,17 +485,17 @@ impl Solver {
                         out.history.clone_from(&rep.history);
                     }
                 }
-                pending.push((k, first, group.len(), result.values));
+                pending.push((k, first, result));
             }
         }
         for (c, out) in reports.iter_mut().enumerate() {
             let bnorm = if b_sq[c] > 0.0 { b_sq[c].sqrt() } else { 1.0 };
             out.relative_residual = r_sq[c].sqrt() / bnorm;
         }
-        for (k, first, count, values) in pending {
+        for (k, first, result) in pending {
             match &self.parts[k] {
-                Part::Compact(h) => solve::write_back(h, planes, first, count, &values),
-                Part::Grid(g) => grid::write_back(g, planes, first, count, &values),
+                Part::Compact(h) => solve::write_back(h, planes, first, result.scale.len(), &result.values),
+                Part::Grid(g) => grid::write_back(g, planes, first, &result),
             }
         }
         Ok(reports)

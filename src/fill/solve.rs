@@ -241,7 +241,7 @@ pub(super) fn solve_group<const C: usize>(
     };
     let mut values = std::mem::take(&mut cy.work[0].u);
     values.truncate(lv0.n * C);
-    Ok(GroupResult { values, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec() })
+    Ok(GroupResult { values, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec(), scale: vec![1.0; C] })
 }
 
 /// Writes a group's values into the planes.

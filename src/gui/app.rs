@@ -171,6 +171,14 @@ pub struct App {
     pub overlay_colour: Color32,
     /// Draw only the outline of the mask (kept visible after a fill, on every view).
     pub outline: bool,
+    /// Where the work is kept for crash recovery (`None`: not kept).
+    pub recovery: Option<super::Recovery>,
+    /// Work a session that ended abnormally left, offered for restoring.
+    pub restore_offer: Option<super::Saved>,
+    /// When the work was last kept, and the history's change count then.
+    last_kept: Option<(std::time::Instant, u64)>,
+    /// A thread is writing the kept work (one at a time; the next fill or the timer catches up).
+    keeping: std::sync::Arc<std::sync::atomic::AtomicBool>,
     /// The running local fill is the document's first (nothing was filled before).
     near_first: bool,
     /// The compare mode of the last frame was side by side (whose views are half as wide).
@@ -244,6 +252,10 @@ impl Default for App {
             outline: false,
             was_side_by_side: false,
             near_first: false,
+            recovery: None,
+            restore_offer: None,
+            last_kept: None,
+            keeping: std::sync::Arc::default(),
             tolerance: 1e-6,
             open_field: String::new(),
             save_field: String::new(),
@@ -292,6 +304,36 @@ impl App {
         self.open_field = path.display().to_string();
         self.mask_after_load = mask;
         self.run_command(ctx, Command::Open(path));
+    }
+
+    /// Keeps the work in `recovery` from now on, and offers what an abnormally ended session left
+    /// there.
+    pub fn use_recovery(&mut self, recovery: Option<super::Recovery>) {
+        self.restore_offer = recovery.as_ref().and_then(super::Recovery::found);
+        self.recovery = recovery;
+    }
+
+    /// Keeps the current mask for crash recovery (on a background thread: encoding a large mask
+    /// takes a moment), with the settings. Called at every fill, and every 30 s while editing.
+    fn keep_work(&mut self) {
+        use std::sync::atomic::Ordering;
+        let (Some(r), Some(d)) = (&self.recovery, &self.doc) else { return };
+        if self.keeping.swap(true, Ordering::AcqRel) {
+            return;
+        }
+        self.last_kept = Some((std::time::Instant::now(), self.history.changes));
+        let (r, image, mask, keeping) = (r.clone(), d.path.clone(), d.mask.clone(), self.keeping.clone());
+        let _ = self.store_settings().save();
+        let spawned = std::thread::Builder::new().name("keep work".to_owned()).spawn(move || {
+            if let Err(e) = r.save(&image, &mask) {
+                eprintln!("reweave: warning: the work could not be kept for recovery: {e}");
+            }
+            keeping.store(false, Ordering::Release);
+        });
+        if let Err(e) = spawned {
+            self.keeping.store(false, Ordering::Release);
+            eprintln!("reweave: warning: the work could not be kept for recovery: {e}");
+        }
     }
 
     /// Takes over saved settings (brush, overlay, tolerance, recent files).
@@ -382,11 +424,46 @@ impl App {
                 });
             });
         }
+        if let Some(offer) = self.restore_offer.clone() {
+            egui::Window::new("Restore earlier work?").collapsible(false).resizable(false).show(&ctx, |ui| {
+                ui.label(format!(
+                    "reweave did not close normally last time. It kept a mask of {} pixels drawn on {}.",
+                    offer.marked,
+                    offer.image.display()
+                ));
+                ui.horizontal(|ui| {
+                    if ui.button("Restore").clicked() {
+                        if let Some(r) = &self.recovery {
+                            self.open_field = offer.image.display().to_string();
+                            self.mask_after_load = Some(r.mask_path());
+                            commands.push(Command::Open(offer.image.clone()));
+                        }
+                        self.restore_offer = None;
+                    }
+                    if ui.button("Discard").clicked() {
+                        if let Some(r) = &self.recovery {
+                            r.clear();
+                        }
+                        self.restore_offer = None;
+                    }
+                });
+            });
+        }
         for c in commands {
             self.run_command(&ctx, c);
         }
         if std::mem::take(&mut self.live_refill) {
             self.run_command(&ctx, Command::Fill);
+        }
+        // Keep the work for crash recovery at least every 30 s while the mask is being edited.
+        if self.recovery.is_some() && self.doc.is_some() {
+            let changes = self.history.changes;
+            let interval = std::time::Duration::from_secs(super::recovery::INTERVAL_SECONDS);
+            match self.last_kept {
+                Some((_, kept)) if kept == changes => {}
+                Some((at, _)) if at.elapsed() < interval => ctx.request_repaint_after(interval - at.elapsed()),
+                _ => self.keep_work(),
+            }
         }
     }
 
@@ -1268,6 +1345,8 @@ impl App {
                 // Start from the previous result where there is one (a warm start after an edit).
                 // Its planes move to the worker and come back, so nothing image-sized is copied;
                 // the textures keep showing it meanwhile.
+                self.keep_work();
+                let Some(d) = &mut self.doc else { return };
                 let params = FillParams { tolerance: self.tolerance, ..FillParams::default() };
                 let whole = std::mem::take(&mut self.whole_next);
                 // After an edit, re-fill only the holes near it: holes never touch, so the others

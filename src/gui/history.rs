@@ -98,6 +98,8 @@ fn write_tile(mask: &mut Mask, t: usize, content: &[bool]) {
 pub struct History {
     undo: Vec<Edit>,
     redo: Vec<Edit>,
+    /// Edits, undos and redos so far: changes when the mask does.
+    pub changes: u64,
 }
 
 impl History {
@@ -108,6 +110,7 @@ impl History {
         }
         self.undo.push(edit);
         self.redo.clear();
+        self.changes += 1;
         if self.undo.len() > MAX_STEPS {
             self.undo.remove(0);
         }
@@ -117,6 +120,7 @@ impl History {
     pub fn undo(&mut self, mask: &mut Mask) -> Option<Vec<usize>> {
         let mut e = self.undo.pop()?;
         e.swap(mask);
+        self.changes += 1;
         let touched = e.tiles.iter().map(|(t, _)| *t).collect();
         self.redo.push(e);
         Some(touched)
@@ -126,6 +130,7 @@ impl History {
     pub fn redo(&mut self, mask: &mut Mask) -> Option<Vec<usize>> {
         let mut e = self.redo.pop()?;
         e.swap(mask);
+        self.changes += 1;
         let touched = e.tiles.iter().map(|(t, _)| *t).collect();
         self.undo.push(e);
         Some(touched)

@@ -7,6 +7,7 @@
 mod app;
 mod canvas;
 mod history;
+mod recovery;
 mod settings;
 mod worker;
 
@@ -14,6 +15,7 @@ use std::path::PathBuf;
 
 pub use app::{App, CAUTION, Command, Compare, Document, Tool};
 pub use canvas::View;
+pub use recovery::{Recovery, Saved};
 pub use settings::Settings;
 
 struct Window(App);
@@ -30,6 +32,10 @@ impl eframe::App for Window {
     fn on_exit(&mut self, _gl: Option<&eframe::glow::Context>) {
         if let Err(e) = self.0.store_settings().save() {
             eprintln!("reweave: warning: the settings could not be saved: {e}");
+        }
+        // A normal exit: nothing to recover next time.
+        if let Some(r) = &self.0.recovery {
+            r.clear();
         }
     }
 }
@@ -51,6 +57,7 @@ pub fn run(file: Option<PathBuf>, mask: Option<PathBuf>) -> anyhow::Result<()> {
         Box::new(move |cc| {
             let mut app = App::default();
             app.apply_settings(settings);
+            app.use_recovery(Recovery::for_user());
             if let Some(f) = file {
                 app.open(&cc.egui_ctx, f, mask);
             }

@@ -489,6 +489,28 @@ fn check_storable(raster: &Raster, format: FileFormat, path: &Path) -> Result<()
 static TEMP_COUNTER: AtomicU64 = AtomicU64::new(0);
 
 /// The temporary name a file is written under before it is renamed to `path`.
+/// Temporary files being written right now (see [`remove_temporary_files`]).
+static IN_FLIGHT: std::sync::Mutex<Vec<PathBuf>> = std::sync::Mutex::new(Vec::new());
+
+/// Removes every temporary file a [`write_atomic`] in this process is writing. For an interrupt
+/// handler that then ends the process: finished outputs are complete (they were renamed into
+/// place only once written), and nothing half-written is left behind.
+pub fn remove_temporary_files() {
+    let mut in_flight = IN_FLIGHT.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
+    for path in in_flight.drain(..) {
+        let _ = std::fs::remove_file(path);
+    }
+}
+
+fn track(tmp: &Path, writing: bool) {
+    let mut in_flight = IN_FLIGHT.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
+    if writing {
+        in_flight.push(tmp.to_owned());
+    } else {
+        in_flight.retain(|p| p != tmp);
+    }
+}
+
 fn temp_path(path: &Path) -> PathBuf {
     let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
     let n = TEMP_COUNTER.fetch_add(1, Ordering::Relaxed);
@@ -510,19 +532,24 @@ pub fn write_atomic(
     }
     let tmp = temp_path(path);
     let file = File::options().write(true).create_new(true).open(&tmp).map_err(|e| fail(e.to_string()))?;
+    track(&tmp, true);
     let mut w = BufWriter::new(file);
     let result = write(&mut w)
         .and_then(|()| w.flush().map_err(|e| e.to_string()))
         .and_then(|()| w.get_ref().sync_all().map_err(|e| e.to_string()));
     drop(w);
-    if let Err(message) = result {
-        let _ = std::fs::remove_file(&tmp);
-        return Err(fail(message));
-    }
-    std::fs::rename(&tmp, path).map_err(|e| {
-        let _ = std::fs::remove_file(&tmp);
-        fail(e.to_string())
-    })
+    let outcome = match result {
+        Err(message) => {
+            let _ = std::fs::remove_file(&tmp);
+            Err(fail(message))
+        }
+        Ok(()) => std::fs::rename(&tmp, path).map_err(|e| {
+            let _ = std::fs::remove_file(&tmp);
+            fail(e.to_string())
+        }),
+    };
+    track(&tmp, false);
+    outcome
 }
 
 /// Reads a mask image: a pixel is masked where its luma is at least 128 (on the 8-bit scale).

@@ -303,3 +303,43 @@ fn jpeg_keeps_its_icc_profile_and_warns_that_it_is_lossy() {
     assert!(err.contains("lossy"), "{err}");
     assert_eq!(raster::load(&out).unwrap().metadata.icc_profile, Some(profile));
 }
+
+#[test]
+fn tiff_and_jpeg_headers_claiming_gigapixels_are_refused_before_decoding() {
+    // TIFF 6.0 §2 (header, IFD entries ImageWidth 256 / ImageLength 257 as LONG) and JPEG
+    // (ITU T.81 B.2.2, SOF0 frame header with 16-bit sides). StripOffsets 273 and StripByteCounts
+    // 279 are there as TIFF requires.: tiny files whose headers claim
+    // 10 and 4.3 gigapixels. Both are refused from the header alone, naming the file and the option
+    // that raises the limit.
+    let dir = tempfile::tempdir().unwrap();
+    let mut tiff = b"II*\0\x08\0\0\0".to_vec();
+    let entries: [(u16, u16, u32); 7] =
+        [(256, 4, 100_000), (257, 4, 100_000), (258, 3, 8), (259, 3, 1), (262, 3, 1), (273, 4, 200), (279, 4, 100)];
+    tiff.extend((entries.len() as u16).to_le_bytes());
+    for (tag, kind, value) in entries {
+        tiff.extend(tag.to_le_bytes());
+        tiff.extend(kind.to_le_bytes());
+        tiff.extend(1u32.to_le_bytes());
+        tiff.extend(value.to_le_bytes());
+    }
+    tiff.extend(0u32.to_le_bytes());
+    // A real small JPEG (baseline, from the image crate's encoder) with the frame header's sides
+    // set to 65535 and everything after the scan header cut off.
+    let small = dir.path().join("small.jpg");
+    raster::save(&Raster::new(16, 12, Layout::Rgb, SampleFormat::U8), &small).unwrap();
+    let mut jpeg = std::fs::read(&small).unwrap();
+    let sof = jpeg.windows(2).position(|m| m == [0xFF, 0xC0]).expect("a baseline frame header");
+    jpeg[sof + 5..sof + 9].copy_from_slice(&[0xFF, 0xFF, 0xFF, 0xFF]);
+    let sos = jpeg.windows(2).position(|m| m == [0xFF, 0xDA]).expect("a scan header");
+    let sos_len = usize::from(u16::from_be_bytes([jpeg[sos + 2], jpeg[sos + 3]]));
+    jpeg.truncate(sos + 2 + sos_len);
+    for (name, bytes) in [("huge.tif", tiff), ("huge.jpg", jpeg)] {
+        let path = dir.path().join(name);
+        std::fs::write(&path, &bytes).unwrap();
+        let t0 = std::time::Instant::now();
+        let err = raster::load(&path).expect_err("refused");
+        assert!(t0.elapsed().as_secs_f64() < 1.0, "{name}: refused in {:?}", t0.elapsed());
+        let text = err.to_string();
+        assert!(text.contains(name) && text.contains("--max-megapixels"), "{name}: {text}");
+    }
+}

@@ -17,6 +17,7 @@ mod exact_rationals;
 mod fidelity;
 mod maximum_principle;
 mod random_walk;
+mod regression;
 mod round_trip;
 mod samples;
 mod solver_api;

@@ -87,7 +87,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         frames.push(t.elapsed().as_secs_f64());
     };
     let before = rss_mb();
+    let mut resident = Vec::new();
     for k in 0..strokes {
+        if k % 100 == 99 {
+            resident.push(rss_mb().round());
+        }
         let view = harness.state().view;
         #[allow(clippy::cast_precision_loss)]
         let (x, y) = (100.0 + rng.uniform() as f32 * 1700.0, 100.0 + rng.uniform() as f32 * 1300.0);
@@ -119,7 +123,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         frames[i] * 1000.0
     };
     println!(
-        "{strokes} live strokes on a {w}×{h} RGB image: {} frames, p50 {:.1} ms, p99 {:.1} ms, max {:.1} ms; resident {:.0} → {:.0} MB",
+        "{strokes} live strokes on a {w}×{h} RGB image: {} frames, p50 {:.1} ms, p99 {:.1} ms, max {:.1} ms; resident {:.0} MB before, every 100 strokes {resident:?}, {:.0} MB after",
         frames.len(),
         pct(0.5),
         pct(0.99),

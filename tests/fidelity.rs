@@ -280,6 +280,21 @@ fn a_header_claiming_ten_gigapixels_is_refused_quickly() {
     assert_eq!(o.status.code(), Some(1), "{err}");
     assert!(err.contains("huge.png") && err.contains("--max-megapixels"), "{err}");
     assert!(elapsed.as_secs_f64() < 1.0, "refused in {elapsed:?}");
+
+    // And in little memory: the peak resident size of the whole process (GNU time's %M, in KB),
+    // where GNU time is installed (it is on the CI machine).
+    let time = std::path::Path::new("/usr/bin/time");
+    if time.exists() {
+        let o = std::process::Command::new(time)
+            .args(["-f", "%M"])
+            .arg(env!("CARGO_BIN_EXE_reweave"))
+            .args([os("fill"), os(&huge), os("--mask"), os(&mask), os("-o"), os(&dir.path().join("o.png"))])
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&o.stderr);
+        let kb: u64 = err.lines().last().and_then(|l| l.trim().parse().ok()).expect("GNU time's report");
+        assert!(kb < 100_000, "peak resident {kb} KB");
+    }
 }
 
 #[test]

@@ -413,10 +413,11 @@ fn work_is_kept_and_offered_back_after_a_crash() {
     h.get_by_label("Fill").click();
     settle(&mut h);
     let marked = h.state().doc.as_ref().unwrap().mask.count();
-    // The work is written by a background thread at the fill.
+    // The work is written by a background thread at the fill (the window keeps running frames).
     let started = std::time::Instant::now();
     while Recovery::in_dir(data.clone()).found().is_none_or(|s| s.marked != marked) {
         assert!(started.elapsed().as_secs() < 10, "the work was not kept");
+        h.step();
         std::thread::sleep(std::time::Duration::from_millis(10));
     }
     drop(h); // a crash: the window never exits normally

@@ -29,7 +29,7 @@
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
-use super::{ChannelReport, Cycle, FillError, FillParams, GroupResult, Progress, Start};
+use super::{Cycle, FillError, FillParams, GroupResult, Progress, Start};
 
 /// Stop coarsening once a level has at most this many points; it is then solved directly.
 const COARSEST_MAX: usize = 256;
@@ -93,12 +93,7 @@ impl Members {
     /// is one span; other members come one by one as `span(x, x + 1)`.
     #[inline]
     fn for_row_spans(&self, y: usize, colour: Option<usize>, mut span: impl FnMut(usize, usize)) {
-        const EVEN: u64 = 0x5555_5555_5555_5555;
-        let pattern = match colour {
-            Some(c) if (c + y).is_multiple_of(2) => EVEN,
-            Some(_) => !EVEN,
-            None => !0,
-        };
+        let pattern = colour_pattern(y, colour);
         for (wi, &word) in self.bits[y * self.words..(y + 1) * self.words].iter().enumerate() {
             let mut m = word & pattern;
             if m == pattern {
@@ -116,12 +111,7 @@ impl Members {
     /// Calls `f(x)` for every member of row `y`, of one colour (`(x + y) % 2 == colour`) or all.
     #[inline]
     fn for_row(&self, y: usize, colour: Option<usize>, mut f: impl FnMut(usize)) {
-        const EVEN: u64 = 0x5555_5555_5555_5555;
-        let pattern = match colour {
-            Some(c) if (c + y).is_multiple_of(2) => EVEN,
-            Some(_) => !EVEN,
-            None => !0,
-        };
+        let pattern = colour_pattern(y, colour);
         for (wi, &word) in self.bits[y * self.words..(y + 1) * self.words].iter().enumerate() {
             let mut m = word & pattern;
             while m != 0 {
@@ -129,6 +119,17 @@ impl Members {
                 m &= m - 1;
             }
         }
+    }
+}
+
+/// The bits of a row word that hold cells of `colour` (`(x + y) % 2 == colour`), or all cells.
+/// Words start at even `x`, so the pattern is the same for every word of a row.
+fn colour_pattern(y: usize, colour: Option<usize>) -> u64 {
+    const EVEN: u64 = 0x5555_5555_5555_5555;
+    match colour {
+        Some(c) if (c + y).is_multiple_of(2) => EVEN,
+        Some(_) => !EVEN,
+        None => !0,
     }
 }
 
@@ -1270,6 +1271,15 @@ fn wavefront(h: usize, band: usize, relax: impl Fn(usize, usize) + Sync) {
     });
 }
 
+impl<const C: usize> super::Iteration<C> for Cycler<'_, C> {
+    fn residual_sq(&mut self) -> [f64; C] {
+        self.residual_norm0()
+    }
+    fn cycle(&mut self, kind: Cycle) {
+        Cycler::cycle(self, 0, kind);
+    }
+}
+
 fn sum<const C: usize>(parts: &[[f64; C]]) -> [f64; C] {
     let mut s = [0f64; C];
     for p in parts {
@@ -1398,39 +1408,7 @@ pub(crate) fn solve_group<const C: usize>(
     if start == Start::FullMultigrid {
         cy.full_multigrid();
     }
-    let mut cycles = usize::from(start == Start::FullMultigrid);
-    let mut reports: Vec<ChannelReport> = (0..C).map(|_| ChannelReport::default()).collect();
-    let mut done = [false; C];
-    let r_sq = loop {
-        let sq = cy.residual_norm0();
-        let mut worst = 0f64;
-        for c in 0..C {
-            let rel = sq[c].sqrt() / bnorm[c];
-            reports[c].relative_residual = rel;
-            reports[c].history.push(rel);
-            if !done[c] && rel <= params.tolerance {
-                done[c] = true;
-                reports[c].cycles = cycles;
-            }
-            worst = worst.max(rel);
-        }
-        if done.iter().all(|&d| d) {
-            break sq;
-        }
-        if !worst.is_finite() || cycles >= params.max_cycles {
-            return Err(FillError::NoConvergence { residual: worst, cycles });
-        }
-        if !progress(&Progress {
-            cycle: cycles,
-            max_cycles: params.max_cycles,
-            residual: worst,
-            tolerance: params.tolerance,
-        }) {
-            return Err(FillError::Cancelled);
-        }
-        cy.cycle(0, params.cycle);
-        cycles += 1;
-    };
+    let (reports, r_sq) = super::iterate(&mut cy, params, start, bnorm, progress)?;
     // Norms in the planes' own units, so parts with different scales add up correctly.
     let unscale = |v: [f64; C]| (0..C).map(|c| v[c] / (scale[c] * scale[c])).collect();
     Ok(GroupResult { values: cy.work.u, reports, r_sq: unscale(r_sq), b_sq: unscale(b_sq), scale: scale.to_vec() })

@@ -210,6 +210,56 @@ pub(crate) struct GroupResult {
     pub scale: Vec<f64>,
 }
 
+/// What the outer iteration needs of a storage's multigrid state.
+pub(crate) trait Iteration<const C: usize> {
+    /// `‖b − A·u‖²` of the current iterate, per channel.
+    fn residual_sq(&mut self) -> [f64; C];
+    /// One cycle from the finest level.
+    fn cycle(&mut self, kind: Cycle);
+}
+
+/// Cycles until every channel's relative residual is at most the tolerance (after the start,
+/// which counts as one cycle when it is full multigrid), reporting progress after each check.
+/// Returns the channels' records and the final squared residuals.
+pub(crate) fn iterate<const C: usize>(
+    state: &mut impl Iteration<C>,
+    params: &FillParams,
+    start: Start,
+    bnorm: [f64; C],
+    progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+) -> Result<(Vec<ChannelReport>, [f64; C]), FillError> {
+    let mut cycles = usize::from(start == Start::FullMultigrid);
+    let mut reports: Vec<ChannelReport> = (0..C).map(|_| ChannelReport::default()).collect();
+    let mut done = [false; C];
+    loop {
+        let sq = state.residual_sq();
+        let mut worst = 0f64;
+        for c in 0..C {
+            let rel = sq[c].sqrt() / bnorm[c];
+            reports[c].relative_residual = rel;
+            reports[c].history.push(rel);
+            if !done[c] && rel <= params.tolerance {
+                done[c] = true;
+                reports[c].cycles = cycles;
+            }
+            worst = worst.max(rel);
+        }
+        if done.iter().all(|&d| d) {
+            return Ok((reports, sq));
+        }
+        if !worst.is_finite() || cycles >= params.max_cycles {
+            return Err(FillError::NoConvergence { residual: worst, cycles });
+        }
+        let report =
+            Progress { cycle: cycles, max_cycles: params.max_cycles, residual: worst, tolerance: params.tolerance };
+        if !progress(&report) {
+            return Err(FillError::Cancelled);
+        }
+        state.cycle(params.cycle);
+        cycles += 1;
+    }
+}
+
 /// The bounding box of `(x, y)` pixels, grown by one pixel within the image.
 fn margin_box(
     (x_min, y_min, x_max, y_max): (usize, usize, usize, usize),

@@ -11,7 +11,7 @@
 
 use super::hierarchy::{Coarsest, Hierarchy, K_FINE, Level};
 use super::kernels;
-use super::{ChannelReport, Cycle, FillError, FillParams, GroupResult, Progress, Start};
+use super::{Cycle, FillError, FillParams, GroupResult, Progress, Start};
 
 /// Per-level vectors for `C` channels: solution (or correction), right-hand side and residual,
 /// each `(n + 1) · C` long (the last point is the ghost).
@@ -205,43 +205,21 @@ pub(super) fn solve_group<const C: usize>(
             }
         }
     }
-    let mut cycles = usize::from(start == Start::FullMultigrid);
-    let mut reports: Vec<ChannelReport> = (0..C).map(|_| ChannelReport::default()).collect();
-    let mut done = [false; C];
-    let r_sq = loop {
-        let LevelWork { u, b, r } = &mut cy.work[0];
-        let sq = residual::<C>(lv0, u, b, r, &mut cy.partial);
-        let mut worst = 0f64;
-        for c in 0..C {
-            let rel = sq[c].sqrt() / bnorm[c];
-            reports[c].relative_residual = rel;
-            reports[c].history.push(rel);
-            if !done[c] && rel <= params.tolerance {
-                done[c] = true;
-                reports[c].cycles = cycles;
-            }
-            worst = worst.max(rel);
-        }
-        if done.iter().all(|&d| d) {
-            break sq;
-        }
-        if !worst.is_finite() || cycles >= params.max_cycles {
-            return Err(FillError::NoConvergence { residual: worst, cycles });
-        }
-        if !progress(&Progress {
-            cycle: cycles,
-            max_cycles: params.max_cycles,
-            residual: worst,
-            tolerance: params.tolerance,
-        }) {
-            return Err(FillError::Cancelled);
-        }
-        cy.cycle(0, params.cycle);
-        cycles += 1;
-    };
+    let (reports, r_sq) = super::iterate(&mut cy, params, start, bnorm, progress)?;
     let mut values = std::mem::take(&mut cy.work[0].u);
     values.truncate(lv0.n * C);
     Ok(GroupResult { values, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec(), scale: vec![1.0; C] })
+}
+
+impl<const C: usize> super::Iteration<C> for Cycler<'_, C> {
+    fn residual_sq(&mut self) -> [f64; C] {
+        let lv0 = &self.h.levels[0];
+        let LevelWork { u, b, r } = &mut self.work[0];
+        residual::<C>(lv0, u, b, r, &mut self.partial)
+    }
+    fn cycle(&mut self, kind: Cycle) {
+        Cycler::cycle(self, 0, kind);
+    }
 }
 
 /// Writes a group's values into the planes.

@@ -177,8 +177,10 @@ pub struct App {
     pub restore_offer: Option<super::Saved>,
     /// When the work was last kept, and the history's change count then.
     last_kept: Option<(std::time::Instant, u64)>,
-    /// A thread is writing the kept work (one at a time; the next fill or the timer catches up).
+    /// A thread is writing the kept work (one at a time).
     keeping: std::sync::Arc<std::sync::atomic::AtomicBool>,
+    /// Work to keep once that thread is done.
+    keep_pending: bool,
     /// The running local fill is the document's first (nothing was filled before).
     near_first: bool,
     /// The compare mode of the last frame was side by side (whose views are half as wide).
@@ -256,6 +258,7 @@ impl Default for App {
             restore_offer: None,
             last_kept: None,
             keeping: std::sync::Arc::default(),
+            keep_pending: false,
             tolerance: 1e-6,
             open_field: String::new(),
             save_field: String::new(),
@@ -319,8 +322,11 @@ impl App {
         use std::sync::atomic::Ordering;
         let (Some(r), Some(d)) = (&self.recovery, &self.doc) else { return };
         if self.keeping.swap(true, Ordering::AcqRel) {
+            // The last one is still being written: keep this one as soon as it is done.
+            self.keep_pending = true;
             return;
         }
+        self.keep_pending = false;
         self.last_kept = Some((std::time::Instant::now(), self.history.changes));
         let (r, image, mask, keeping) = (r.clone(), d.path.clone(), d.mask.clone(), self.keeping.clone());
         let _ = self.store_settings().save();
@@ -460,6 +466,11 @@ impl App {
             let changes = self.history.changes;
             let interval = std::time::Duration::from_secs(super::recovery::INTERVAL_SECONDS);
             match self.last_kept {
+                _ if self.keep_pending => {
+                    self.keep_work();
+                    ctx.request_repaint_after(std::time::Duration::from_millis(100));
+                }
+                None if changes == 0 => {}
                 Some((_, kept)) if kept == changes => {}
                 Some((at, _)) if at.elapsed() < interval => ctx.request_repaint_after(interval - at.elapsed()),
                 _ => self.keep_work(),

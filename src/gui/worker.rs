@@ -67,6 +67,21 @@ pub enum Message {
     Failed(String),
 }
 
+/// A fill's progress callback: sends each cycle's progress, asks for a repaint, and says whether
+/// to go on (false once Cancel was pressed).
+fn reporter<'a>(
+    tx: &'a Sender<Message>,
+    repaint: &'a (dyn Fn() + Send + Sync),
+    cancel: &'a AtomicBool,
+) -> impl FnMut(&crate::fill::Progress) -> bool + Send + 'a {
+    let tx = tx.clone();
+    move |p| {
+        let _ = tx.send(Message::Progress { cycle: p.cycle, max_cycles: p.max_cycles, residual: p.residual });
+        repaint();
+        !cancel.load(Ordering::Relaxed)
+    }
+}
+
 /// A running job.
 pub struct Worker {
     pub what: &'static str,
@@ -150,16 +165,7 @@ impl Worker {
             "fill",
             move || repaint(),
             move |tx, cancel| {
-                let progress_tx = tx.clone();
-                let result = crate::fill::fill_near(&planes, &mask, region, &params, &mut |p| {
-                    let _ = progress_tx.send(Message::Progress {
-                        cycle: p.cycle,
-                        max_cycles: p.max_cycles,
-                        residual: p.residual,
-                    });
-                    ping();
-                    !cancel.load(Ordering::Relaxed)
-                });
+                let result = crate::fill::fill_near(&planes, &mask, region, &params, &mut reporter(tx, &*ping, cancel));
                 let msg = match result {
                     Ok(None) => Message::FilledNear { planes, report: None, mask, changed: region },
                     Ok(Some(mut local)) => {
@@ -199,17 +205,8 @@ impl Worker {
                         return;
                     }
                 };
-                let progress_tx = tx.clone();
                 let mut views: Vec<&mut [f32]> = planes.iter_mut().map(Vec::as_mut_slice).collect();
-                let result = solver.solve(&mut views, &params, start, &mut |p| {
-                    let _ = progress_tx.send(Message::Progress {
-                        cycle: p.cycle,
-                        max_cycles: p.max_cycles,
-                        residual: p.residual,
-                    });
-                    ping();
-                    !cancel.load(Ordering::Relaxed)
-                });
+                let result = solver.solve(&mut views, &params, start, &mut reporter(tx, &*ping, cancel));
                 drop(views);
                 let msg = match result {
                     Ok(report) => Message::Filled { planes, report, mask },

@@ -97,6 +97,10 @@ pub struct Report {
     /// [`HOLE_LIST_MAX`]), and their total pixel count.
     pub skipped_holes: Vec<Hole>,
     pub skipped_pixels: usize,
+    /// Filled holes whose deepest pixel is farther than `deep_hole_limit_px` from any known pixel
+    /// (deepest first, at most [`HOLE_LIST_MAX`]): there a smooth fill only interpolates the rim.
+    pub deep_holes: Vec<crate::mask::distance::Depth>,
+    pub deep_hole_limit_px: f32,
     pub method: String,
     pub tolerance: f64,
     pub channels: Vec<ChannelRecord>,
@@ -104,6 +108,9 @@ pub struct Report {
     /// Notes on metadata that could not be kept as it was.
     pub notes: Vec<String>,
 }
+
+/// A filled hole reaching farther than this from any known pixel is reported as deep.
+pub const DEEP_HOLE_PX: f32 = 16.0;
 
 /// Most holes listed in a report.
 pub const HOLE_LIST_MAX: usize = 1000;
@@ -150,6 +157,8 @@ impl Report {
             detector: None,
             detected_pixels: 0,
             skipped_holes: Vec::new(),
+            deep_holes: Vec::new(),
+            deep_hole_limit_px: DEEP_HOLE_PX,
             skipped_pixels: 0,
             notes: Vec::new(),
             method: fill.method.name().to_owned(),

@@ -274,3 +274,57 @@ fn help_explains_every_option_with_an_example() {
     assert!(o.status.success());
     assert!(String::from_utf8_lossy(&o.stdout).contains("reweave fill"));
 }
+
+#[test]
+fn distance_map_and_deep_hole_warning() {
+    // The distance of a filled pixel to the nearest known one (exact Euclidean distance transform,
+    // Felzenszwalb & Huttenlocher 2012): 1 on the rim of the 4×4 hole, 2 inside, 0 outside.
+    let fx = Fixture::new();
+    let (out, map) = (fx.path("out.png"), fx.path("distance.tif"));
+    let o = reweave(&[
+        os("fill"),
+        os(&fx.image),
+        os("--mask"),
+        os(&fx.mask),
+        os("-o"),
+        os(&out),
+        os("--distance-map"),
+        os(&map),
+    ]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    assert!(!stderr(&o).contains("more than 16 px"), "a small hole is not deep");
+    let d = raster::load(&map).unwrap();
+    assert_eq!((d.width, d.height, d.sample_format), (32, 24, SampleFormat::F32));
+    assert_eq!(d.planes[0][5 * 32 + 10], 1.0);
+    assert_eq!(d.planes[0][6 * 32 + 11], 2.0);
+    assert_eq!(d.planes[0][0], 0.0);
+
+    // A disk of radius 20 reaches about 20 px from any known pixel: warned and reported.
+    let big = fx.path("big-mask.png");
+    let mut r = Raster::new(64, 64, Layout::Gray, SampleFormat::U8);
+    r.planes[0].fill(100.0);
+    let image = fx.path("plain.png");
+    raster::save(&r, &image).unwrap();
+    raster::save_mask(
+        &Mask::from_fn(64, 64, |x, y| (x as f64 - 32.0).powi(2) + (y as f64 - 32.0).powi(2) < 400.0),
+        &big,
+    )
+    .unwrap();
+    let report = fx.path("big.json");
+    let o = reweave(&[
+        os("fill"),
+        os(&image),
+        os("--mask"),
+        os(&big),
+        os("-o"),
+        os(&fx.path("big.png")),
+        os("--report"),
+        os(&report),
+    ]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    assert!(stderr(&o).contains("more than 16 px") && stderr(&o).contains("plain.png"), "{}", stderr(&o));
+    let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&report).unwrap()).unwrap();
+    let deep = &json["deep_holes"][0];
+    assert!((19.0..=21.0).contains(&deep["pixels"].as_f64().unwrap()), "{json}");
+    assert_eq!((deep["x"].as_u64(), deep["y"].as_u64()), (Some(32), Some(32)));
+}

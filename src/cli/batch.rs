@@ -241,6 +241,7 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
                                 params,
                                 limits,
                                 detect: args.detect.map(|m| (m, &args.detect_options)),
+                                distance_map: None,
                             };
                             match job.run(say) {
                                 Ok(o) => Done::Filled(o),

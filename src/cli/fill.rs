@@ -73,6 +73,11 @@ pub struct FillArgs {
     #[arg(long, value_name = "FILE.json")]
     pub report: Option<PathBuf>,
 
+    /// Write each pixel's distance to the nearest known pixel (0 outside the mask) as a 32-bit
+    /// float TIFF: how far each filled value is from real data.
+    #[arg(long, value_name = "FILE.tif")]
+    pub distance_map: Option<PathBuf>,
+
     /// Fill method.
     #[arg(long, value_enum, default_value = "harmonic")]
     pub method: MethodArg,
@@ -204,6 +209,7 @@ pub(super) fn run(args: &FillArgs) -> Result<()> {
             max_bytes: args.max_gigabytes.saturating_mul(1 << 30),
         },
         detect: None,
+        distance_map: args.distance_map.as_deref(),
     };
     let outcome = job.run(&say)?;
     if outcome.filled > 0 {

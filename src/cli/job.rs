@@ -14,7 +14,7 @@ use crate::mask::{Hole, HoleStats, Mask};
 pub(crate) use crate::raster::nodata::parse_nodata;
 use crate::raster::nodata::{keep_off_nodata, missing_samples};
 use crate::raster::{self, FileFormat, RasterError};
-use crate::report::{FileRecord, HOLE_LIST_MAX, Inputs, Report};
+use crate::report::{DEEP_HOLE_PX, FileRecord, HOLE_LIST_MAX, Inputs, Report};
 
 /// A mask file read once and shared by every job, with its hash and (once built) its solver.
 pub(crate) struct MaskFile {
@@ -52,6 +52,8 @@ pub(crate) struct Job<'a> {
     pub limits: raster::Limits,
     /// Damage found in each image by a detector, added to the mask.
     pub detect: Option<(super::detect::Method, &'a super::detect::DetectOptions)>,
+    /// Write each pixel's distance to the nearest known pixel as a 32-bit float TIFF.
+    pub distance_map: Option<&'a Path>,
 }
 
 /// What a repair did.
@@ -207,6 +209,26 @@ impl Job<'_> {
             }
         }
 
+        // How far the fill reaches from known pixels: deep holes are only interpolated.
+        let (deep, distance) = if mask.is_empty() {
+            (Vec::new(), None)
+        } else {
+            let distance = crate::mask::distance::distance_to_known(&mask);
+            (crate::mask::distance::holes_deeper_than(&mask, &distance, DEEP_HOLE_PX), Some(distance))
+        };
+        if let Some(d) = deep.first() {
+            say(format!(
+                "warning: {} hole{} of '{}' reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.0} px, at ({}, {})): a smooth fill only interpolates the rim there, and texture is not reconstructed",
+                deep.len(),
+                if deep.len() == 1 { "" } else { "s" },
+                input.display(),
+                if deep.len() == 1 { "es" } else { "" },
+                d.pixels,
+                d.x,
+                d.y
+            ));
+        }
+
         let t_save = Instant::now();
         let out_format = FileFormat::from_extension(self.output).unwrap_or(FileFormat::Png);
         if !out_format.is_lossless() {
@@ -230,6 +252,14 @@ impl Job<'_> {
         if let Some(mask_out) = self.mask_out {
             raster::save_mask(&mask, mask_out)?;
         }
+        if let Some(path) = self.distance_map {
+            let mut map =
+                raster::Raster::new(image.width, image.height, raster::Layout::Gray, raster::SampleFormat::F32);
+            if let Some(d) = distance {
+                map.planes[0] = d;
+            }
+            raster::save(&map, path)?;
+        }
         let save_seconds = t_save.elapsed().as_secs_f64();
 
         if let Some(report_path) = self.report {
@@ -247,6 +277,7 @@ impl Job<'_> {
             report.detector = self.detect.map(|(m, _)| format!("{m:?}").to_lowercase());
             report.skipped_pixels = skipped.iter().map(|h| h.pixels).sum();
             report.skipped_holes = skipped.iter().take(HOLE_LIST_MAX).copied().collect();
+            report.deep_holes = deep.iter().take(HOLE_LIST_MAX).copied().collect();
             report.notes = notes;
             report.seconds.load = load_seconds;
             report.seconds.save = save_seconds;

@@ -4,6 +4,8 @@
 //! means it is known and kept exactly. Holes are the 4-connected components of masked pixels, the
 //! same connectivity the 5-point stencil of the fill uses, so two holes never share an equation.
 
+pub mod distance;
+
 use rayon::prelude::*;
 use std::fmt;
 

@@ -3,6 +3,12 @@
 //! way. Each either fills correctly or fails with a clear error and leaves everything unchanged.
 //! Every case runs on both storages of the solver.
 
+// Source: the linear fill of a 1-D hole, the constant fill with one Dirichlet pixel and the mean
+// of four around an isolated pixel are textbook facts of the discrete Laplace equation (LeVeque,
+// Finite Difference Methods for ODEs and PDEs, SIAM 2007, ch. 2–3; mean-value property); the
+// range checks are the maximum principle (same book); "no file left after a failed write" and the
+// error texts are the project's own contract (common practice for atomic writes).
+
 use reweave::fill::{FillError, FillParams, Solver, Start, Structure};
 use reweave::mask::Mask;
 use reweave::raster;

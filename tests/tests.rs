@@ -1,6 +1,8 @@
 //! Integration tests, one module per capability a user relies on. They compile into one binary.
 //! Every check against the outside world names its source beside it.
 
+// Source: none checked here; each module names the sources of its own check values.
+
 // Helpers outside #[test] functions unwrap too: a failure there is a test failure.
 #![allow(clippy::unwrap_used)]
 

@@ -1,6 +1,11 @@
 //! The window, driven as a user drives it (egui_kittest, through the accessibility tree and
 //! pointer events): open an image, paint a stroke, fill, undo and redo, compare, save.
 
+// Source: the expected counts and values follow from the fixtures drawn here (a 64×48 card, a
+// stroke of known radius); a dilation by 1 adds the 4-neighbours first (an octagon step of
+// mathematical morphology, common practice); the pictures in tests/snapshots are the reviewed
+// looks, compared by egui_kittest's snapshot check (egui_kittest 0.37, `Harness::snapshot`).
+
 use std::path::Path;
 
 use egui::Pos2;
@@ -203,11 +208,11 @@ fn box_pick_grow_shrink_and_difference() {
     h.run();
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60, "a 10×6 box");
 
-    // Grow by 1 (an octagon step: 4-neighbours first) and shrink back.
-    h.get_by_label("Grow").click();
+    // Dilate by 1 (an octagon step: 4-neighbours first) and erode back.
+    h.get_by_label("Dilate").click();
     h.run();
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60 + 2 * 10 + 2 * 6);
-    h.get_by_label("Shrink").click();
+    h.get_by_label("Erode").click();
     h.run();
     assert_eq!(h.state().doc.as_ref().unwrap().mask.count(), 60);
 
@@ -280,7 +285,7 @@ fn mask_saved_and_loaded_back_and_zoom_keys() {
     let input = fixture(dir.path());
     let mut h = harness();
     open(&mut h, &input);
-    h.get_by_label("Invert").click();
+    h.get_by_label("Complement").click();
     h.run();
     let all = h.state().doc.as_ref().unwrap().mask.count();
     assert_eq!(all, 64 * 48);

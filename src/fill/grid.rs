@@ -29,7 +29,7 @@
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
-use super::{Cycle, FillError, FillParams, GroupResult, Progress, Start};
+use super::{Cycle, FillError, FillParams, GroupResult, Levels, Progress, Start};
 
 /// Stop coarsening once a level has at most this many points; it is then solved directly.
 const COARSEST_MAX: usize = 256;
@@ -1196,38 +1196,6 @@ impl<const C: usize> Cycler<'_, C> {
         }
     }
 
-    fn cycle(&mut self, l: usize, kind: Cycle) {
-        if l == self.g.levels.len() {
-            self.coarsest(l);
-            return;
-        }
-        if l == 0 && self.red_current && self.params.pre_smooth > 0 {
-            // The last post-smoothing sweep ended with the red cells, and nothing changed since:
-            // a red half-sweep now would recompute the same values, so start with black.
-            self.sweep0_from(false, 1);
-            self.smooth(l, self.params.pre_smooth - 1, false);
-        } else {
-            self.smooth(l, self.params.pre_smooth, false);
-        }
-        self.descend(l);
-        match kind {
-            Cycle::V => self.cycle(l + 1, Cycle::V),
-            Cycle::W => {
-                self.cycle(l + 1, Cycle::W);
-                self.cycle(l + 1, Cycle::W);
-            }
-            Cycle::F => {
-                self.cycle(l + 1, Cycle::F);
-                self.cycle(l + 1, Cycle::V);
-            }
-        }
-        self.ascend(l);
-        self.smooth(l, self.params.post_smooth, true);
-        if l == 0 {
-            self.red_current = self.params.post_smooth > 0;
-        }
-    }
-
     /// Full multigrid from the zero start on level 0.
     fn full_multigrid(&mut self) {
         let depth = self.g.levels.len();
@@ -1271,12 +1239,43 @@ fn wavefront(h: usize, band: usize, relax: impl Fn(usize, usize) + Sync) {
     });
 }
 
+impl<const C: usize> Levels for Cycler<'_, C> {
+    fn is_coarsest(&self, l: usize) -> bool {
+        l == self.g.levels.len()
+    }
+    fn pre_smooth(&mut self, l: usize) {
+        if l == 0 && self.red_current && self.params.pre_smooth > 0 {
+            // The last post-smoothing sweep ended with the red cells, and nothing changed since:
+            // a red half-sweep now would recompute the same values, so start with black.
+            self.sweep0_from(false, 1);
+            self.smooth(l, self.params.pre_smooth - 1, false);
+        } else {
+            self.smooth(l, self.params.pre_smooth, false);
+        }
+    }
+    fn post_smooth(&mut self, l: usize) {
+        self.smooth(l, self.params.post_smooth, true);
+        if l == 0 {
+            self.red_current = self.params.post_smooth > 0;
+        }
+    }
+    fn descend(&mut self, l: usize) {
+        Cycler::descend(self, l);
+    }
+    fn ascend(&mut self, l: usize) {
+        Cycler::ascend(self, l);
+    }
+    fn coarsest(&mut self, l: usize) {
+        Cycler::coarsest(self, l);
+    }
+}
+
 impl<const C: usize> super::Iteration<C> for Cycler<'_, C> {
     fn residual_sq(&mut self) -> [f64; C] {
         self.residual_norm0()
     }
     fn cycle(&mut self, kind: Cycle) {
-        Cycler::cycle(self, 0, kind);
+        Levels::cycle(self, 0, kind);
     }
 }
 

@@ -210,6 +210,43 @@ pub(crate) struct GroupResult {
     pub scale: Vec<f64>,
 }
 
+/// The operations of one multigrid level that a cycle is made of, for either storage.
+pub(crate) trait Levels {
+    /// Whether level `l` is the coarsest, solved directly.
+    fn is_coarsest(&self, l: usize) -> bool;
+    fn pre_smooth(&mut self, l: usize);
+    fn post_smooth(&mut self, l: usize);
+    /// Restricts the residual of level `l` to the right-hand side of level `l + 1`.
+    fn descend(&mut self, l: usize);
+    /// Adds the interpolated correction of level `l + 1` to level `l`.
+    fn ascend(&mut self, l: usize);
+    fn coarsest(&mut self, l: usize);
+
+    /// One cycle from level `l`: pre-smoothing, the coarse-grid correction (one visit to the
+    /// next level for V, two for W, an F- then a V-cycle for F) and post-smoothing.
+    fn cycle(&mut self, l: usize, kind: Cycle) {
+        if self.is_coarsest(l) {
+            self.coarsest(l);
+            return;
+        }
+        self.pre_smooth(l);
+        self.descend(l);
+        match kind {
+            Cycle::V => self.cycle(l + 1, Cycle::V),
+            Cycle::W => {
+                self.cycle(l + 1, Cycle::W);
+                self.cycle(l + 1, Cycle::W);
+            }
+            Cycle::F => {
+                self.cycle(l + 1, Cycle::F);
+                self.cycle(l + 1, Cycle::V);
+            }
+        }
+        self.ascend(l);
+        self.post_smooth(l);
+    }
+}
+
 /// What the outer iteration needs of a storage's multigrid state.
 pub(crate) trait Iteration<const C: usize> {
     /// `‖b − A·u‖²` of the current iterate, per channel.

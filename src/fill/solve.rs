@@ -11,7 +11,7 @@
 
 use super::hierarchy::{Coarsest, Hierarchy, K_FINE, Level};
 use super::kernels;
-use super::{Cycle, FillError, FillParams, GroupResult, Progress, Start};
+use super::{Cycle, FillError, FillParams, GroupResult, Levels, Progress, Start};
 
 /// Per-level vectors for `C` channels: solution (or correction), right-hand side and residual,
 /// each `(n + 1) · C` long (the last point is the ghost).
@@ -114,28 +114,6 @@ impl<'a, const C: usize> Cycler<'a, C> {
         kernels::prolong_add::<C>(&self.h.levels[l], &coarse[0].u, &mut fine[l].u);
     }
 
-    fn cycle(&mut self, l: usize, kind: Cycle) {
-        if l + 1 == self.h.levels.len() {
-            self.coarsest(l);
-            return;
-        }
-        self.smooth(l, self.params.pre_smooth, false);
-        self.descend(l);
-        match kind {
-            Cycle::V => self.cycle(l + 1, Cycle::V),
-            Cycle::W => {
-                self.cycle(l + 1, Cycle::W);
-                self.cycle(l + 1, Cycle::W);
-            }
-            Cycle::F => {
-                self.cycle(l + 1, Cycle::F);
-                self.cycle(l + 1, Cycle::V);
-            }
-        }
-        self.ascend(l);
-        self.smooth(l, self.params.post_smooth, true);
-    }
-
     /// Full multigrid from the right-hand side of level 0.
     fn full_multigrid(&mut self) {
         let depth = self.h.levels.len();
@@ -211,6 +189,27 @@ pub(super) fn solve_group<const C: usize>(
     Ok(GroupResult { values, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec(), scale: vec![1.0; C] })
 }
 
+impl<const C: usize> Levels for Cycler<'_, C> {
+    fn is_coarsest(&self, l: usize) -> bool {
+        l + 1 == self.h.levels.len()
+    }
+    fn pre_smooth(&mut self, l: usize) {
+        self.smooth(l, self.params.pre_smooth, false);
+    }
+    fn post_smooth(&mut self, l: usize) {
+        self.smooth(l, self.params.post_smooth, true);
+    }
+    fn descend(&mut self, l: usize) {
+        Cycler::descend(self, l);
+    }
+    fn ascend(&mut self, l: usize) {
+        Cycler::ascend(self, l);
+    }
+    fn coarsest(&mut self, l: usize) {
+        Cycler::coarsest(self, l);
+    }
+}
+
 impl<const C: usize> super::Iteration<C> for Cycler<'_, C> {
     fn residual_sq(&mut self) -> [f64; C] {
         let lv0 = &self.h.levels[0];
@@ -218,7 +217,7 @@ impl<const C: usize> super::Iteration<C> for Cycler<'_, C> {
         residual::<C>(lv0, u, b, r, &mut self.partial)
     }
     fn cycle(&mut self, kind: Cycle) {
-        Cycler::cycle(self, 0, kind);
+        Levels::cycle(self, 0, kind);
     }
 }
 

@@ -625,10 +625,10 @@ impl App {
         ui.horizontal(|ui| {
             let label = ui.label("By");
             ui.add(egui::DragValue::new(&mut self.mask_steps).range(1..=100)).labelled_by(label.id);
-            if ui.button("Grow").clicked() {
+            if ui.button("Dilate").clicked() {
                 out.push(Command::Grow(self.mask_steps));
             }
-            if ui.button("Shrink").clicked() {
+            if ui.button("Erode").clicked() {
                 out.push(Command::Shrink(self.mask_steps));
             }
         });
@@ -645,7 +645,7 @@ impl App {
             if ui.button("Clear").clicked() {
                 out.push(Command::ClearMask);
             }
-            if ui.button("Invert").clicked() {
+            if ui.button("Complement").clicked() {
                 out.push(Command::InvertMask);
             }
         });

@@ -1,5 +1,10 @@
 //! Helpers shared by the integration tests.
 
+// Source: helpers only; the tests that use them name the sources of their check values.
+// `mean_factor` is the geometric mean of the per-cycle residual reduction, the usual measure of
+// a multigrid convergence factor (common practice; Trottenberg, Oosterlee & Schüller, Multigrid,
+// 2001, §2.5, from memory).
+
 #![allow(dead_code)] // not every test module uses every helper
 
 use reweave::fill::{FillParams, FillReport, Solver, Start, Structure};

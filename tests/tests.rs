@@ -9,6 +9,7 @@
 mod common;
 
 mod batch;
+mod biharmonic;
 mod cli;
 mod convergence;
 mod detection;
@@ -17,6 +18,7 @@ mod edge_cases;
 mod exact_harmonic;
 mod exact_rationals;
 mod fidelity;
+mod guided;
 mod maximum_principle;
 mod random_walk;
 mod regression;

@@ -23,8 +23,11 @@
 //! assert!(report.channels[0].relative_residual <= 1e-6);
 //! ```
 
+pub mod biharmonic;
 mod dense;
+pub mod grain;
 mod grid;
+pub mod guided;
 mod hierarchy;
 mod kernels;
 mod solve;
@@ -47,6 +50,10 @@ pub enum FillMethod {
     /// Laplace's equation: the smoothest fill that meets the rim values.
     #[default]
     Harmonic,
+    /// The biharmonic equation with two rings of known pixels: continues slopes across the rim.
+    Biharmonic,
+    /// Poisson's equation guided by the texture of a source region elsewhere in the image.
+    Guided,
 }
 
 impl FillMethod {
@@ -55,7 +62,15 @@ impl FillMethod {
     pub fn name(self) -> &'static str {
         match self {
             Self::Harmonic => "harmonic",
+            Self::Biharmonic => "biharmonic",
+            Self::Guided => "guided",
         }
+    }
+
+    /// Whether the method invents texture (copied from elsewhere), which is not data.
+    #[must_use]
+    pub fn invents_texture(self) -> bool {
+        self == Self::Guided
     }
 }
 
@@ -96,6 +111,11 @@ pub struct FillParams {
     pub post_smooth: usize,
     /// Worker threads; 0 uses rayon's global pool (all cores). Results do not depend on it.
     pub threads: usize,
+    /// Guided fill: source offsets the user chose for some holes (the others are placed
+    /// automatically).
+    pub chosen_sources: Vec<guided::ChosenSource>,
+    /// Add grain with this seed after the fill (see [`grain`]).
+    pub grain: Option<u64>,
 }
 
 impl Default for FillParams {
@@ -108,6 +128,8 @@ impl Default for FillParams {
             pre_smooth: 2,
             post_smooth: 2,
             threads: 0,
+            chosen_sources: Vec::new(),
+            grain: None,
         }
     }
 }
@@ -134,6 +156,12 @@ pub struct FillReport {
     pub channels: Vec<ChannelReport>,
     pub setup_seconds: f64,
     pub solve_seconds: f64,
+    /// Guided fill: where each hole's texture came from.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub placements: Vec<guided::Placement>,
+    /// The grain added, if any.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub grain: Option<grain::GrainRecord>,
 }
 
 /// Progress of a running fill, passed to the progress callback after every cycle.
@@ -161,6 +189,8 @@ pub enum FillError {
     NoConvergence { residual: f64, cycles: usize },
     #[error("the fill was cancelled")]
     Cancelled,
+    #[error("this solver was built for the {} fill, not the {} fill", built.name(), asked.name())]
+    WrongMethod { built: FillMethod, asked: FillMethod },
 }
 
 /// How a [`Solver`] stores its multigrid levels.
@@ -407,7 +437,12 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
 /// that size (a bad-pixel map applied to many frames) or re-solves after an edit.
 #[derive(Debug)]
 pub struct Solver {
+    method: FillMethod,
     parts: Vec<Part>,
+    /// The biharmonic hierarchy (biharmonic method only).
+    biharmonic: Option<biharmonic::Hierarchy>,
+    /// The mask (guided fill and grain need the holes themselves).
+    mask: Mask,
     width: usize,
     height: usize,
     setup_seconds: f64,
@@ -435,18 +470,77 @@ impl Solver {
             return Err(FillError::NoKnownPixels);
         }
         let parts = plan(mask, structure);
-        Ok(Self { parts, width, height, setup_seconds: t0.elapsed().as_secs_f64() })
+        Ok(Self {
+            method: FillMethod::Harmonic,
+            parts,
+            biharmonic: None,
+            mask: mask.clone(),
+            width,
+            height,
+            setup_seconds: t0.elapsed().as_secs_f64(),
+        })
+    }
+
+    /// Builds what `method` needs for `mask`: the harmonic hierarchy, the biharmonic one, or
+    /// (guided fill, which places its sources per image) nothing but the mask.
+    ///
+    /// # Errors
+    /// [`FillError::NoKnownPixels`] when every pixel is masked.
+    pub fn for_method(mask: &Mask, method: FillMethod) -> Result<Self, FillError> {
+        match method {
+            FillMethod::Harmonic => Self::new(mask),
+            FillMethod::Biharmonic => {
+                let h = biharmonic::Hierarchy::new(mask)?;
+                let setup_seconds = h.setup_seconds();
+                Ok(Self {
+                    method,
+                    parts: Vec::new(),
+                    biharmonic: Some(h),
+                    mask: mask.clone(),
+                    width: mask.width(),
+                    height: mask.height(),
+                    setup_seconds,
+                })
+            }
+            FillMethod::Guided => {
+                let count = mask.count();
+                if count > 0 && count == mask.width() * mask.height() {
+                    return Err(FillError::NoKnownPixels);
+                }
+                Ok(Self {
+                    method,
+                    parts: Vec::new(),
+                    biharmonic: None,
+                    mask: mask.clone(),
+                    width: mask.width(),
+                    height: mask.height(),
+                    setup_seconds: 0.0,
+                })
+            }
+        }
+    }
+
+    /// The method this solver was built for.
+    #[must_use]
+    pub fn method(&self) -> FillMethod {
+        self.method
     }
 
     /// Number of unknowns (masked pixels).
     #[must_use]
     pub fn unknowns(&self) -> usize {
-        self.parts.iter().map(Part::unknowns).sum()
+        match self.method {
+            FillMethod::Harmonic => self.parts.iter().map(Part::unknowns).sum(),
+            _ => self.mask.count(),
+        }
     }
 
     /// Multigrid levels of the deepest part (0 for an empty mask).
     #[must_use]
     pub fn depth(&self) -> usize {
+        if let Some(b) = &self.biharmonic {
+            return b.depth();
+        }
         self.parts
             .iter()
             .map(|p| match p {
@@ -506,6 +600,49 @@ impl Solver {
                 return Err(FillError::PlaneLength { width: self.width, height: self.height, len: p.len() });
             }
         }
+        if params.method != self.method {
+            return Err(FillError::WrongMethod { built: self.method, asked: params.method });
+        }
+        let mut report = match self.method {
+            FillMethod::Harmonic => self.solve_harmonic(planes, params, start, progress)?,
+            FillMethod::Biharmonic => {
+                let t0 = Instant::now();
+                let mut report = FillReport {
+                    method: self.method,
+                    unknowns: self.unknowns(),
+                    levels: self.depth(),
+                    setup_seconds: self.setup_seconds,
+                    ..FillReport::default()
+                };
+                if let Some(b) = &self.biharmonic {
+                    let mut run = || b.solve(planes, &self.mask, params, start, progress);
+                    report.channels = if params.threads == 0 {
+                        run()?
+                    } else {
+                        match rayon::ThreadPoolBuilder::new().num_threads(params.threads).build() {
+                            Ok(pool) => pool.install(run)?,
+                            Err(_) => run()?,
+                        }
+                    };
+                }
+                report.solve_seconds = t0.elapsed().as_secs_f64();
+                report
+            }
+            FillMethod::Guided => guided::fill(planes, &self.mask, params, progress)?,
+        };
+        if let Some(seed) = params.grain {
+            report.grain = Some(grain::add(planes, &self.mask, seed));
+        }
+        Ok(report)
+    }
+
+    fn solve_harmonic(
+        &self,
+        planes: &mut [&mut [f32]],
+        params: &FillParams,
+        start: Start,
+        progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+    ) -> Result<FillReport, FillError> {
         let t0 = Instant::now();
         let mut report = FillReport {
             method: params.method,
@@ -513,7 +650,7 @@ impl Solver {
             levels: self.depth(),
             channels: vec![ChannelReport::default(); planes.len()],
             setup_seconds: self.setup_seconds,
-            solve_seconds: 0.0,
+            ..FillReport::default()
         };
         if self.parts.is_empty() {
             return Ok(report);
@@ -594,7 +731,7 @@ impl Solver {
 /// # Errors
 /// See [`FillError`]; on error the planes are unchanged.
 pub fn fill(planes: &mut [&mut [f32]], mask: &Mask, params: &FillParams) -> Result<FillReport, FillError> {
-    let solver = Solver::new(mask)?;
+    let solver = Solver::for_method(mask, params.method)?;
     solver.solve(planes, params, Start::FullMultigrid, &mut |_| true)
 }
 

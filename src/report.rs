@@ -102,6 +102,20 @@ pub struct Report {
     pub deep_holes: Vec<crate::mask::distance::Depth>,
     pub deep_hole_limit_px: f32,
     pub method: String,
+    /// Whether the scientific profile (no invented texture) was in force.
+    pub scientific: bool,
+    /// What the method adds beyond interpolation, when it does (guided fill, grain).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub texture_caution: Option<String>,
+    /// Guided fill: where each hole's texture came from (at most [`HOLE_LIST_MAX`]), and how
+    /// many holes found no source and were filled harmonically.
+    #[serde(skip_serializing_if = "Vec::is_empty", default)]
+    pub sources: Vec<crate::fill::guided::Placement>,
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub holes_without_source: Option<usize>,
+    /// The grain added: its seed and σ per channel.
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub grain: Option<crate::fill::grain::GrainRecord>,
     pub tolerance: f64,
     pub channels: Vec<ChannelRecord>,
     pub seconds: Seconds,
@@ -162,6 +176,12 @@ impl Report {
             skipped_pixels: 0,
             notes: Vec::new(),
             method: fill.method.name().to_owned(),
+            scientific: false,
+            texture_caution: texture_caution(fill),
+            sources: fill.placements.iter().take(HOLE_LIST_MAX).copied().collect(),
+            holes_without_source: (fill.method == crate::fill::FillMethod::Guided)
+                .then(|| fill.placements.iter().filter(|p| p.offset.is_none()).count()),
+            grain: fill.grain.clone(),
             tolerance,
             channels,
             seconds: Seconds { setup: fill.setup_seconds, solve: fill.solve_seconds, ..Seconds::default() },
@@ -174,6 +194,22 @@ impl Report {
         serde_json::to_string_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}"))
     }
 }
+
+/// The caution for fills that add detail nobody measured.
+fn texture_caution(fill: &FillReport) -> Option<String> {
+    let guided = fill.method == crate::fill::FillMethod::Guided;
+    match (guided, fill.grain.is_some()) {
+        (false, false) => None,
+        (true, false) => Some(GUIDED_CAUTION.to_owned()),
+        (false, true) => Some(GRAIN_CAUTION.to_owned()),
+        (true, true) => Some(format!("{GUIDED_CAUTION} {GRAIN_CAUTION}")),
+    }
+}
+
+/// Said of every guided fill.
+pub const GUIDED_CAUTION: &str = "The texture inside the filled holes was copied from other parts of the image (see sources): it shows what the surroundings look like, not what was there. Do not use it for measurement, evidence or diagnosis.";
+/// Said of every fill with grain.
+pub const GRAIN_CAUTION: &str = "Random grain was added to the filled pixels (see grain): it imitates the noise of the surroundings and carries no information.";
 
 /// The SHA-256 of a file, as lowercase hex.
 ///

@@ -328,3 +328,53 @@ fn distance_map_and_deep_hole_warning() {
     assert!((19.0..=21.0).contains(&deep["pixels"].as_f64().unwrap()), "{json}");
     assert_eq!((deep["x"].as_u64(), deep["y"].as_u64()), (Some(32), Some(32)));
 }
+
+#[test]
+fn methods_grain_and_the_scientific_profile() {
+    let fx = Fixture::new();
+    // The scientific profile refuses invented texture, before reading anything (usage error).
+    let refused = fx.path("x.png");
+    for extra in [&["--method", "guided"][..], &["--grain", "5"][..]] {
+        let mut args = vec![os("fill"), os(&fx.image), os("--mask"), os(&fx.mask), os("-o"), os(&refused)];
+        args.push(os("--scientific"));
+        args.extend(extra.iter().map(os));
+        assert_fails(&fx, &args, 2, "--scientific refuses");
+    }
+    // Each method runs and says what it did; guided and grain carry their caution and records.
+    for (method, grain) in [("biharmonic", None), ("guided", Some("11")), ("harmonic", Some("11"))] {
+        let (out, rep) = (fx.path(&format!("{method}.png")), fx.path(&format!("{method}.json")));
+        let mut args = vec![os("fill"), os(&fx.image), os("--mask"), os(&fx.mask), os("-o"), os(&out)];
+        args.extend([os("--report"), os(&rep), os("--method"), os(method)]);
+        if let Some(seed) = grain {
+            args.extend([os("--grain"), os(seed)]);
+        }
+        let o = reweave(&args);
+        assert_eq!(o.status.code(), Some(0), "{method}: {}", stderr(&o));
+        let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&rep).unwrap()).unwrap();
+        assert_eq!(json["method"], method);
+        assert_eq!(json["scientific"], false);
+        assert_eq!(json["texture_caution"].is_string(), method == "guided" || grain.is_some(), "{json}");
+        assert_eq!(json["grain"]["seed"].as_u64(), grain.map(|s| s.parse().unwrap()), "{json}");
+        if method == "guided" {
+            assert_eq!(json["sources"].as_array().map(Vec::len), Some(1), "{json}");
+            assert!(json["holes_without_source"].is_u64(), "{json}");
+        }
+        assert!(json["channels"][0]["relative_residual"].as_f64().unwrap() <= 1e-6, "{json}");
+    }
+    // The same seed gives the same grain.
+    let again = fx.path("again.png");
+    let o = reweave(&[
+        os("fill"),
+        os(&fx.image),
+        os("--mask"),
+        os(&fx.mask),
+        os("-o"),
+        os(&again),
+        os("--method"),
+        os("harmonic"),
+        os("--grain"),
+        os("11"),
+    ]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    assert_eq!(std::fs::read(&again).unwrap(), std::fs::read(fx.path("harmonic.png")).unwrap());
+}

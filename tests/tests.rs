@@ -18,6 +18,7 @@ mod edge_cases;
 mod exact_harmonic;
 mod exact_rationals;
 mod fidelity;
+mod grain;
 mod guided;
 mod maximum_principle;
 mod random_walk;

@@ -76,9 +76,8 @@ pub struct BatchArgs {
     #[arg(long, value_name = "DIR")]
     pub report_dir: Option<PathBuf>,
 
-    /// Relative residual to reach.
-    #[arg(long, default_value_t = 1e-6, value_name = "REL")]
-    pub tolerance: f64,
+    #[command(flatten)]
+    pub how: super::fill::MethodOptions,
 
     /// Largest image accepted, in megapixels.
     #[arg(long, default_value_t = 1024, value_name = "MP")]
@@ -186,7 +185,7 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
         Some(p) => Some(MaskFile::load(p)?),
         None => None,
     };
-    let params = FillParams { tolerance: args.tolerance, ..FillParams::default() };
+    let params: FillParams = args.how.params()?;
     let limits = raster::Limits {
         max_pixels: args.max_megapixels.saturating_mul(1_000_000),
         max_bytes: args.max_gigabytes.saturating_mul(1 << 30),
@@ -242,6 +241,7 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
                                 limits,
                                 detect: args.detect.map(|m| (m, &args.detect_options)),
                                 distance_map: None,
+                                scientific: args.how.scientific,
                             };
                             match job.run(say) {
                                 Ok(o) => Done::Filled(o),

@@ -12,8 +12,71 @@ use crate::raster::{self, FileFormat};
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
 pub enum MethodArg {
-    /// Laplace's equation: the smoothest fill meeting the rim (the only method so far).
+    /// Laplace's equation: the smoothest fill meeting the rim; never leaves the rim's range.
     Harmonic,
+    /// The biharmonic equation from two rings of known pixels: continues slopes across the rim
+    /// (terrain, smooth gradients); may overshoot the rim's range.
+    Biharmonic,
+    /// Texture from a matching region elsewhere in the image, colours from the rim (photographs).
+    /// Copies detail that was not measured here.
+    Guided,
+}
+
+/// How to fill, shared by `fill` and `batch`.
+#[derive(Debug, Args)]
+pub struct MethodOptions {
+    /// Fill method.
+    #[arg(long, value_enum, default_value = "harmonic")]
+    pub method: MethodArg,
+
+    /// Add noise matched to each hole's surroundings (robust σ of the rim's high-pass residual),
+    /// from this seed; recorded in the report. Off by default.
+    #[arg(long, value_name = "SEED")]
+    pub grain: Option<u64>,
+
+    /// Scientific data: refuse fills that invent texture (--method guided, --grain), so every
+    /// filled value is a smooth interpolation of measured ones.
+    #[arg(long)]
+    pub scientific: bool,
+
+    /// Stop when the relative residual ‖b − Au‖/‖b‖ of every channel is at most this.
+    #[arg(long, default_value_t = 1e-6, value_name = "REL")]
+    pub tolerance: f64,
+
+    /// Give up after this many multigrid cycles (iterations for the biharmonic fill).
+    #[arg(long, default_value_t = 100, value_name = "N")]
+    pub max_cycles: usize,
+}
+
+impl MethodOptions {
+    /// The fill parameters, or a usage error for a combination the scientific profile refuses.
+    pub(crate) fn params(&self) -> Result<FillParams> {
+        let usage = |m: String| -> anyhow::Error { UsageError(m).into() };
+        if self.scientific && self.method == MethodArg::Guided {
+            return Err(usage(
+                "--scientific refuses --method guided: it copies texture from elsewhere in the image, which is not data; use harmonic or biharmonic".to_owned(),
+            ));
+        }
+        if self.scientific && self.grain.is_some() {
+            return Err(usage(
+                "--scientific refuses --grain: added noise is invented, not measured; leave --grain out".to_owned(),
+            ));
+        }
+        if !(self.tolerance > 0.0 && self.tolerance < 1.0) {
+            return Err(usage(format!("--tolerance must be between 0 and 1 (got {})", self.tolerance)));
+        }
+        Ok(FillParams {
+            method: match self.method {
+                MethodArg::Harmonic => FillMethod::Harmonic,
+                MethodArg::Biharmonic => FillMethod::Biharmonic,
+                MethodArg::Guided => FillMethod::Guided,
+            },
+            tolerance: self.tolerance,
+            max_cycles: self.max_cycles,
+            grain: self.grain,
+            ..FillParams::default()
+        })
+    }
 }
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
@@ -34,7 +97,9 @@ reweave fill scan.png --mask damage.png -o repaired.png\n  \
 reweave fill frame.tif --mask badpix.png -o frame-fixed.tif --report frame-fixed.json\n  \
 reweave fill logo.png --mask-from-alpha -o logo-filled.png\n  \
 reweave fill dem.tif -o dem-filled.tif --max-hole 5000 --mask-out filled-pixels.png\n  \
-reweave fill scan.tif --mask damage.png --in-place")]
+reweave fill scan.tif --mask damage.png --in-place\n  \
+reweave fill print.png --mask tear.png -o print-fixed.png --method guided --grain 7\n  \
+reweave fill dem.tif --nodata -9999 -o dem-filled.tif --method biharmonic --scientific")]
 pub struct FillArgs {
     /// The image to repair (PNG, TIFF or JPEG; gray, gray+alpha, RGB or RGBA; 8 or 16 bits,
     /// TIFF also signed 16-bit and 32-bit float).
@@ -78,17 +143,8 @@ pub struct FillArgs {
     #[arg(long, value_name = "FILE.tif")]
     pub distance_map: Option<PathBuf>,
 
-    /// Fill method.
-    #[arg(long, value_enum, default_value = "harmonic")]
-    pub method: MethodArg,
-
-    /// Stop when the relative residual ‖b − Au‖/‖b‖ of every channel is at most this.
-    #[arg(long, default_value_t = 1e-6, value_name = "REL")]
-    pub tolerance: f64,
-
-    /// Give up after this many multigrid cycles.
-    #[arg(long, default_value_t = 100, value_name = "N")]
-    pub max_cycles: usize,
+    #[command(flatten)]
+    pub how: MethodOptions,
 
     /// Multigrid cycle shape.
     #[arg(long, value_enum, default_value = "v")]
@@ -162,22 +218,14 @@ fn plan(args: &FillArgs) -> Result<Plan<'_>> {
             return Err(usage(format!("'{}' would overwrite an image; choose another name", extra.display())));
         }
     }
-    if !(args.tolerance > 0.0 && args.tolerance < 1.0) {
-        return Err(usage(format!("--tolerance must be between 0 and 1 (got {})", args.tolerance)));
-    }
     let params = FillParams {
-        method: match args.method {
-            MethodArg::Harmonic => FillMethod::Harmonic,
-        },
-        tolerance: args.tolerance,
-        max_cycles: args.max_cycles,
         cycle: match args.cycle {
             CycleArg::V => Cycle::V,
             CycleArg::F => Cycle::F,
             CycleArg::W => Cycle::W,
         },
         threads: args.threads,
-        ..FillParams::default()
+        ..args.how.params()?
     };
     Ok(Plan { args, output, params, nodata })
 }
@@ -210,6 +258,7 @@ pub(super) fn run(args: &FillArgs) -> Result<()> {
         },
         detect: None,
         distance_map: args.distance_map.as_deref(),
+        scientific: args.how.scientific,
     };
     let outcome = job.run(&say)?;
     if outcome.filled > 0 {

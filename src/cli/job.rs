@@ -9,7 +9,7 @@ use std::time::Instant;
 use anyhow::{Context, Result, bail};
 
 use super::same_file;
-use crate::fill::{FillError, FillParams, FillReport, Solver, Start};
+use crate::fill::{FillError, FillMethod, FillParams, FillReport, Solver, Start};
 use crate::mask::{Hole, HoleStats, Mask};
 pub(crate) use crate::raster::nodata::parse_nodata;
 use crate::raster::nodata::{keep_off_nodata, missing_samples};
@@ -32,8 +32,8 @@ impl MaskFile {
     }
 
     /// The solver of this mask alone, built on first use.
-    fn solver(&self) -> &std::result::Result<Solver, FillError> {
-        self.solver.get_or_init(|| Solver::new(&self.mask))
+    fn solver(&self, method: FillMethod) -> &std::result::Result<Solver, FillError> {
+        self.solver.get_or_init(|| Solver::for_method(&self.mask, method))
     }
 }
 
@@ -54,6 +54,8 @@ pub(crate) struct Job<'a> {
     pub detect: Option<(super::detect::Method, &'a super::detect::DetectOptions)>,
     /// Write each pixel's distance to the nearest known pixel as a 32-bit float TIFF.
     pub distance_map: Option<&'a Path>,
+    /// The scientific profile was asked for (recorded in the report).
+    pub scientific: bool,
 }
 
 /// What a repair did.
@@ -180,13 +182,13 @@ impl Job<'_> {
         };
         let built;
         let solver = match (self.mask, own_mask) {
-            (Some(m), false) => match m.solver() {
+            (Some(m), false) => match m.solver(self.params.method) {
                 Ok(s) => s,
                 Err(FillError::NoKnownPixels) => return Err(no_known()),
                 Err(e) => return Err(anyhow::anyhow!("{e}")),
             },
             _ => {
-                built = Solver::new(&mask).map_err(|e| match e {
+                built = Solver::for_method(&mask, self.params.method).map_err(|e| match e {
                     FillError::NoKnownPixels => no_known(),
                     other => other.into(),
                 })?;
@@ -218,14 +220,19 @@ impl Job<'_> {
         };
         if let Some(d) = deep.first() {
             say(format!(
-                "warning: {} hole{} of '{}' reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.0} px, at ({}, {})): a smooth fill only interpolates the rim there, and texture is not reconstructed",
+                "warning: {} hole{} of '{}' reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.0} px, at ({}, {})): {}",
                 deep.len(),
                 if deep.len() == 1 { "" } else { "s" },
                 input.display(),
                 if deep.len() == 1 { "es" } else { "" },
                 d.pixels,
                 d.x,
-                d.y
+                d.y,
+                if self.params.method == FillMethod::Guided {
+                    "the texture there is copied from elsewhere, and only the rim is real"
+                } else {
+                    "a smooth fill only interpolates the rim there and texture is not reconstructed; for photographs, --method guided carries texture in"
+                }
             ));
         }
 
@@ -279,6 +286,7 @@ impl Job<'_> {
             report.skipped_holes = skipped.iter().take(HOLE_LIST_MAX).copied().collect();
             report.deep_holes = deep.iter().take(HOLE_LIST_MAX).copied().collect();
             report.notes = notes;
+            report.scientific = self.scientific;
             report.seconds.load = load_seconds;
             report.seconds.save = save_seconds;
             let json = report.to_json();

@@ -439,3 +439,59 @@ fn work_is_kept_and_offered_back_after_a_crash() {
     assert_eq!(d.mask.count(), marked, "{}", h.state().status);
     assert!(d.mask.get(32, 24));
 }
+
+#[test]
+fn methods_grain_scientific_and_the_distance_view() {
+    use reweave::fill::FillMethod;
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture(dir.path());
+    // Tall enough that the whole tools panel shows without scrolling.
+    let mut h =
+        Harness::builder().with_size((1200.0, 1200.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default());
+    open(&mut h, &input);
+    // A wide box: its middle is about 18 px from any known pixel, deeper than the 16 px limit.
+    h.get_by_label("Box").click();
+    h.run();
+    drag(&mut h, Pos2::new(8.5, 5.5), Pos2::new(46.5, 42.5), 6);
+    h.run();
+
+    // The guided fill (the method list is a combo box; its choice lands here), with grain.
+    h.state_mut().method = FillMethod::Guided;
+    h.run();
+    h.get_by_label("Grain").click();
+    h.run();
+    assert!(h.state().grain.is_some());
+    assert!(h.query_by_label_contains("never measured").is_some(), "the texture caution is shown");
+
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    let app = h.state();
+    let fill = app.last_fill.as_ref().unwrap_or_else(|| panic!("not filled: {}", app.status));
+    assert_eq!(fill.method, FillMethod::Guided);
+    assert_eq!(fill.placements.len(), 1);
+    assert!(fill.grain.is_some());
+    let depth = app.doc.as_ref().unwrap().depth.as_ref().expect("distance measured after the fill");
+    assert_eq!(depth.deep.len(), 1);
+    assert!(depth.deep[0].pixels > 16.0);
+    assert!(h.query_by_label_contains("any smooth fill is a guess").is_some(), "the deep-hole warning is shown");
+
+    h.get_by_label("Distance to known pixels").click();
+    h.run();
+    assert_eq!(h.state().compare, Compare::Distance);
+
+    // The scientific profile takes the invented texture away and keeps it away.
+    h.get_by_label("Scientific data: no invented texture").click();
+    h.run();
+    assert_eq!(h.state().method, FillMethod::Harmonic);
+    assert!(h.state().grain.is_none());
+    h.get_by_label("Grain").click();
+    h.run();
+    assert!(h.state().grain.is_none(), "grain stays off in the scientific profile");
+
+    // The biharmonic fill runs from the window too.
+    h.state_mut().method = FillMethod::Biharmonic;
+    h.run();
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    assert_eq!(h.state().last_fill.as_ref().unwrap().method, FillMethod::Biharmonic, "{}", h.state().status);
+}

@@ -43,6 +43,9 @@ pub enum Compare {
     SideBySide,
     /// |after − before| as a heat map.
     Difference,
+    /// Each filled pixel's distance to the nearest known pixel: how far the fill reaches from
+    /// real data.
+    Distance,
 }
 
 /// The open image and everything made from it.
@@ -64,6 +67,16 @@ pub struct Document {
     pub skipped: Vec<crate::mask::Hole>,
     /// The mask the result was filled under (the mask may have been edited since).
     pub result_mask: Option<Mask>,
+    /// Distance of every pixel to the nearest known pixel under `result_mask` (computed off the
+    /// UI thread after each fill), and its holes deeper than `DEEP_HOLE_PX`.
+    pub depth: Option<Depth>,
+}
+
+/// How far the filled pixels reach from real data.
+pub struct Depth {
+    pub distance: std::sync::Arc<Vec<f32>>,
+    pub max: f32,
+    pub deep: Vec<crate::mask::distance::Depth>,
 }
 
 impl Document {
@@ -83,6 +96,7 @@ impl Document {
             nodata_pixels: 0,
             skipped: Vec::new(),
             result_mask: None,
+            depth: None,
         }
     }
 
@@ -109,6 +123,8 @@ struct Textures {
     after: Option<Tiles>,
     /// The difference heat map and its largest value.
     difference: Option<Difference>,
+    /// The distance heat map.
+    distance: Option<Difference>,
     overlay: Tiles,
     proposal: Option<Tiles>,
 }
@@ -186,6 +202,14 @@ pub struct App {
     /// The compare mode of the last frame was side by side (whose views are half as wide).
     was_side_by_side: bool,
     pub tolerance: f64,
+    /// The fill method, grain (seed) and whether the scientific profile forbids invented texture.
+    pub method: crate::fill::FillMethod,
+    pub grain: Option<u64>,
+    pub scientific: bool,
+    /// The distance map being computed for the last fill.
+    depth_rx: Option<std::sync::mpsc::Receiver<(u64, Depth)>>,
+    /// Counts fills, so a distance map of an older fill is dropped.
+    fill_serial: u64,
     pub open_field: String,
     pub save_field: String,
     pub mask_field: String,
@@ -260,6 +284,11 @@ impl Default for App {
             keeping: std::sync::Arc::default(),
             keep_pending: false,
             tolerance: 1e-6,
+            method: crate::fill::FillMethod::Harmonic,
+            grain: None,
+            scientific: false,
+            depth_rx: None,
+            fill_serial: 0,
             open_field: String::new(),
             save_field: String::new(),
             mask_field: String::new(),
@@ -351,6 +380,9 @@ impl App {
         if s.tolerance > 0.0 && s.tolerance < 1.0 {
             self.tolerance = s.tolerance;
         }
+        self.scientific = s.scientific;
+        self.method =
+            if s.scientific && s.method.invents_texture() { crate::fill::FillMethod::Harmonic } else { s.method };
         self.settings = s;
     }
 
@@ -360,13 +392,15 @@ impl App {
         self.settings.overlay_rgba = self.overlay_colour.to_srgba_unmultiplied();
         self.settings.outline = self.outline;
         self.settings.tolerance = self.tolerance;
+        self.settings.method = self.method;
+        self.settings.scientific = self.scientific;
         &self.settings
     }
 
     /// Whether background work is running.
     #[must_use]
     pub fn busy(&self) -> bool {
-        self.worker.is_some()
+        self.worker.is_some() || self.depth_rx.is_some()
     }
 
     /// Draws the whole window into `ui`.
@@ -701,7 +735,7 @@ impl App {
         }
         ui.separator();
         ui.heading("Repair");
-        ui.label("Method: harmonic");
+        self.method_ui(ui);
         egui::ComboBox::from_label("Tolerance").selected_text(format!("{:.0e}", self.tolerance)).show_ui(ui, |ui| {
             for t in [1e-4, 1e-6, 1e-8, 1e-10] {
                 ui.selectable_value(&mut self.tolerance, t, format!("{t:.0e}"));
@@ -739,14 +773,39 @@ impl App {
             self.max_hole = limit.then_some(n);
         });
         ui.small(CAUTION);
+        if let Some(depth) = self.doc.as_ref().and_then(|d| d.depth.as_ref())
+            && let Some(deepest) = depth.deep.first()
+        {
+            let n = depth.deep.len();
+            ui.colored_label(
+                Color32::from_rgb(230, 170, 40),
+                format!(
+                    "{n} hole{} reach{} more than {} px from any known pixel (deepest {:.0} px at {}, {}): there any smooth fill is a guess.{}",
+                    if n == 1 { "" } else { "s" },
+                    if n == 1 { "es" } else { "" },
+                    crate::report::DEEP_HOLE_PX,
+                    deepest.pixels,
+                    deepest.x,
+                    deepest.y,
+                    if self.method == crate::fill::FillMethod::Guided || self.scientific {
+                        ""
+                    } else {
+                        " For photographs, Guided carries texture in."
+                    }
+                ),
+            );
+        }
         ui.separator();
         ui.heading("Compare");
-        ui.selectable_value(&mut self.compare, Compare::After, "After");
-        ui.selectable_value(&mut self.compare, Compare::Before, "Before");
-        ui.selectable_value(&mut self.compare, Compare::Split, "Split");
-        ui.selectable_value(&mut self.compare, Compare::SideBySide, "Side by side");
-        ui.selectable_value(&mut self.compare, Compare::Blink, "Blink (B)");
-        ui.selectable_value(&mut self.compare, Compare::Difference, "Difference");
+        ui.horizontal_wrapped(|ui| {
+            ui.selectable_value(&mut self.compare, Compare::After, "After");
+            ui.selectable_value(&mut self.compare, Compare::Before, "Before");
+            ui.selectable_value(&mut self.compare, Compare::Split, "Split");
+            ui.selectable_value(&mut self.compare, Compare::SideBySide, "Side by side");
+            ui.selectable_value(&mut self.compare, Compare::Blink, "Blink (B)");
+            ui.selectable_value(&mut self.compare, Compare::Difference, "Difference");
+            ui.selectable_value(&mut self.compare, Compare::Distance, "Distance to known pixels");
+        });
         ui.separator();
         ui.horizontal(|ui| {
             if ui.button("Fit").clicked() {
@@ -760,6 +819,93 @@ impl App {
             }
         });
         out
+    }
+
+    /// The fill method, grain and the scientific profile.
+    fn method_ui(&mut self, ui: &mut egui::Ui) {
+        use crate::fill::FillMethod;
+        let label = |m: FillMethod| match m {
+            FillMethod::Harmonic => "Harmonic: smoothest, within the rim's range",
+            FillMethod::Biharmonic => "Biharmonic: keeps slopes (terrain, gradients)",
+            FillMethod::Guided => "Guided: texture from a matching area",
+        };
+        egui::ComboBox::from_label("Method").selected_text(self.method.name()).show_ui(ui, |ui| {
+            for m in [FillMethod::Harmonic, FillMethod::Biharmonic, FillMethod::Guided] {
+                let allowed = !(self.scientific && m.invents_texture());
+                ui.add_enabled_ui(allowed, |ui| ui.selectable_value(&mut self.method, m, label(m)));
+            }
+        });
+        ui.horizontal(|ui| {
+            let mut on = self.grain.is_some();
+            ui.add_enabled(!self.scientific, egui::Checkbox::new(&mut on, "Grain"))
+                .on_hover_text("Noise like the surroundings' added to filled pixels; the seed makes it repeatable.");
+            let mut seed = self.grain.unwrap_or(1);
+            let label = ui.label("seed");
+            ui.add_enabled(on && !self.scientific, egui::DragValue::new(&mut seed)).labelled_by(label.id);
+            self.grain = (on && !self.scientific).then_some(seed);
+        });
+        if ui
+            .checkbox(&mut self.scientific, "Scientific data: no invented texture")
+            .on_hover_text("Refuses the guided fill and grain: every filled value is then a smooth interpolation of measured ones.")
+            .changed()
+            && self.scientific
+        {
+            self.grain = None;
+            if self.method.invents_texture() {
+                self.method = FillMethod::Harmonic;
+            }
+        }
+        if self.method == FillMethod::Guided || self.grain.is_some() {
+            ui.colored_label(
+                Color32::from_rgb(230, 170, 40),
+                "Texture in the holes is copied or random: it looks like the surroundings but was never measured. Not for measurement, evidence or diagnosis.",
+            );
+        }
+    }
+
+    fn fill_params(&self) -> FillParams {
+        FillParams { tolerance: self.tolerance, method: self.method, grain: self.grain, ..FillParams::default() }
+    }
+
+    /// Starts computing the distance map of the filled mask off the UI thread.
+    fn measure_depth(&mut self, ctx: &egui::Context) {
+        let Some(d) = &self.doc else { return };
+        let Some(mask) = d.result_mask.clone() else { return };
+        self.fill_serial += 1;
+        let serial = self.fill_serial;
+        let (tx, rx) = std::sync::mpsc::channel();
+        self.depth_rx = Some(rx);
+        let ctx = ctx.clone();
+        let spawned = std::thread::Builder::new().name("distance".to_owned()).spawn(move || {
+            let distance = crate::mask::distance::distance_to_known(&mask);
+            let deep = crate::mask::distance::holes_deeper_than(&mask, &distance, crate::report::DEEP_HOLE_PX);
+            let max = distance.iter().copied().filter(|v| v.is_finite()).fold(0.0, f32::max);
+            let _ = tx.send((serial, Depth { distance: std::sync::Arc::new(distance), max, deep }));
+            ctx.request_repaint();
+        });
+        if spawned.is_err() {
+            self.depth_rx = None;
+        }
+    }
+
+    /// Takes a finished distance map of the latest fill.
+    fn receive_depth(&mut self) {
+        let Some(rx) = &self.depth_rx else { return };
+        match rx.try_recv() {
+            Ok((serial, depth)) => {
+                self.depth_rx = None;
+                if serial == self.fill_serial
+                    && let Some(d) = &mut self.doc
+                {
+                    d.depth = Some(depth);
+                    if let Some(t) = &mut self.textures {
+                        t.distance = None;
+                    }
+                }
+            }
+            Err(std::sync::mpsc::TryRecvError::Empty) => {}
+            Err(std::sync::mpsc::TryRecvError::Disconnected) => self.depth_rx = None,
+        }
     }
 
     fn status_ui(&self, ui: &mut egui::Ui) {
@@ -985,19 +1131,34 @@ impl App {
         let show_before = match self.compare {
             Compare::Before => true,
             Compare::Blink => self.blink_before,
-            Compare::After | Compare::Split | Compare::Difference | Compare::SideBySide => false,
+            Compare::After | Compare::Split | Compare::Difference | Compare::SideBySide | Compare::Distance => false,
         };
         if self.compare == Compare::Difference {
-            let diff = textures.difference.get_or_insert_with(|| Difference::new(&ctx, doc));
+            let diff = textures.difference.get_or_insert_with(|| Difference::new(&ctx, doc, Heat::Change));
             // A few tiles per frame, so a very large image never freezes the window.
             if diff.build_some(doc) {
                 ctx.request_repaint();
             }
         }
+        if self.compare == Compare::Distance && doc.depth.is_some() {
+            let map = textures.distance.get_or_insert_with(|| Difference::new(&ctx, doc, Heat::Distance));
+            if map.build_some(doc) {
+                ctx.request_repaint();
+            }
+        }
         let after = textures.after.as_ref().unwrap_or(&textures.before);
-        if let (Compare::Difference, Some(Difference { tiles, max, .. })) = (self.compare, &textures.difference) {
+        let heat_map = match self.compare {
+            Compare::Difference => textures.difference.as_ref(),
+            Compare::Distance => textures.distance.as_ref(),
+            _ => None,
+        };
+        if let Some(Difference { tiles, max, kind, .. }) = heat_map {
+            if *kind == Heat::Distance {
+                after.paint(&painter, &self.view, rect, Color32::WHITE);
+            }
             tiles.paint(&painter, &self.view, rect, Color32::WHITE);
-            // Legend: black is no change, white the largest change, in the image's units.
+            // Legend: black is no change (or a known pixel), white the largest change in the
+            // image's units (or the largest distance in pixels).
             let legend = Rect::from_min_size(rect.left_bottom() + Vec2::new(12.0, -34.0), Vec2::new(160.0, 10.0));
             for k in 0..32 {
                 #[allow(clippy::cast_precision_loss, clippy::cast_possible_truncation, clippy::cast_sign_loss)]
@@ -1023,7 +1184,11 @@ impl App {
             painter.text(
                 legend.right_bottom() + Vec2::new(0.0, 2.0),
                 egui::Align2::RIGHT_TOP,
-                if *max >= 1.0 { format!("{max:.1}") } else { format!("{max:.3e}") },
+                match kind {
+                    Heat::Distance => format!("{max:.1} px from known pixels"),
+                    Heat::Change if *max >= 1.0 => format!("{max:.1}"),
+                    Heat::Change => format!("{max:.3e}"),
+                },
                 egui::FontId::proportional(12.0),
                 Color32::WHITE,
             );
@@ -1113,8 +1278,10 @@ impl App {
 
     /// Receives what the worker reports.
     fn poll(&mut self, ctx: &egui::Context) {
+        self.receive_depth();
         let Some(worker) = &self.worker else { return };
         let mut finished = false;
+        let mut filled_now = false;
         let mut report_inputs = None;
         while let Ok(msg) = worker.receiver.try_recv() {
             match msg {
@@ -1149,6 +1316,7 @@ impl App {
                     finished = true;
                 }
                 Message::Filled { planes, report, mask } => {
+                    filled_now = true;
                     if let Some(d) = &mut self.doc {
                         self.status = format!("filled {} pixels. {CAUTION}", mask.count());
                         let mut planes = planes;
@@ -1227,6 +1395,7 @@ impl App {
                         };
                         d.result = Some(planes);
                         d.result_mask = Some(mask);
+                        filled_now = true;
                         self.unsaved = true;
                         if let (Some(t), Some(planes)) = (&mut self.textures, &d.result) {
                             t.difference = None;
@@ -1266,6 +1435,9 @@ impl App {
         if let Some((path, image, output, holes)) = report_inputs {
             self.write_report(&path, image, output, &holes);
         }
+        if filled_now {
+            self.measure_depth(ctx);
+        }
         if finished {
             self.worker = None;
             self.progress = None;
@@ -1293,6 +1465,7 @@ impl App {
         let inputs = crate::report::Inputs { image, mask: None, mask_from_alpha: false };
         let filled = d.result_mask.as_ref().unwrap_or(&d.mask);
         let mut report = crate::report::Report::new(inputs, &d.original, filled, holes, fill, self.tolerance);
+        report.scientific = self.scientific;
         report.output = output;
         report.nodata = d.nodata.map(|v| v.to_string());
         report.nodata_pixels = d.nodata_pixels;
@@ -1357,9 +1530,11 @@ impl App {
                 // Its planes move to the worker and come back, so nothing image-sized is copied;
                 // the textures keep showing it meanwhile.
                 self.keep_work();
+                let params = self.fill_params();
                 let Some(d) = &mut self.doc else { return };
-                let params = FillParams { tolerance: self.tolerance, ..FillParams::default() };
-                let whole = std::mem::take(&mut self.whole_next);
+                // Only the harmonic fill keeps holes independent of each other within a one-pixel
+                // rim (the biharmonic one reaches two pixels, the guided one searches the image).
+                let whole = std::mem::take(&mut self.whole_next) || params.method != crate::fill::FillMethod::Harmonic;
                 // After an edit, re-fill only the holes near it: holes never touch, so the others
                 // keep their values. (With a hole size limit, the limit's bookkeeping needs the
                 // whole mask, so that case takes the whole fill.)
@@ -1663,6 +1838,7 @@ fn heat(t: f32) -> Color32 {
 /// The heat map of |after − before| (largest over the channels), built a few tiles per frame.
 /// Only filled pixels can differ, so tiles without one stay black and cost nothing.
 struct Difference {
+    kind: Heat,
     tiles: Tiles,
     /// The largest difference, in the image's units (white on the map).
     max: f32,
@@ -1674,20 +1850,26 @@ impl Difference {
     /// Tiles built per frame (each up to `IMAGE_TILE`² pixels, made in parallel).
     const PER_FRAME: usize = 4;
 
-    fn new(ctx: &egui::Context, d: &Document) -> Self {
+    fn new(ctx: &egui::Context, d: &Document, kind: Heat) -> Self {
         use rayon::prelude::*;
         let (w, h) = (d.original.width, d.original.height);
-        let tiles = Tiles::uniform(ctx, "difference", w, h, IMAGE_TILE, Color32::BLACK);
+        let tiles = Tiles::uniform(ctx, kind.name(), w, h, IMAGE_TILE, kind.background());
         let (Some(after), Some(filled)) = (&d.result, &d.result_mask) else {
-            return Self { tiles, max: 0.0, todo: Vec::new() };
+            return Self { kind, tiles, max: 0.0, todo: Vec::new() };
         };
         let bits = filled.bits();
-        let max = (0..w * h)
-            .into_par_iter()
-            .with_min_len(1 << 16)
-            .filter(|&i| bits[i])
-            .map(|i| pixel_difference(after, &d.original.planes, i))
-            .reduce(|| 0.0, f32::max);
+        let max = match kind {
+            Heat::Change => (0..w * h)
+                .into_par_iter()
+                .with_min_len(1 << 16)
+                .filter(|&i| bits[i])
+                .map(|i| pixel_difference(after, &d.original.planes, i))
+                .reduce(|| 0.0, f32::max),
+            Heat::Distance => match &d.depth {
+                Some(depth) => depth.max,
+                None => return Self { kind, tiles, max: 0.0, todo: Vec::new() },
+            },
+        };
         let count = w.div_ceil(IMAGE_TILE) * h.div_ceil(IMAGE_TILE);
         let mut todo: Vec<usize> = (0..count)
             .into_par_iter()
@@ -1697,7 +1879,7 @@ impl Difference {
             })
             .collect();
         todo.reverse(); // built from the top left
-        Self { tiles, max, todo }
+        Self { kind, tiles, max, todo }
     }
 
     /// Builds the next few tiles; true while some are left.
@@ -1708,8 +1890,18 @@ impl Difference {
         let scale = if self.max > 0.0 { 1.0 / self.max } else { 0.0 };
         let next: Vec<usize> = (0..Self::PER_FRAME).filter_map(|_| self.todo.pop()).collect();
         let bits = filled.bits();
+        let distance = d.depth.as_ref().map(|depth| &depth.distance);
+        let kind = self.kind;
         let colour = |i: usize| {
-            if bits[i] { heat(pixel_difference(after, &d.original.planes, i) * scale) } else { Color32::BLACK }
+            if !bits[i] {
+                return kind.background();
+            }
+            let v = match (kind, distance) {
+                (Heat::Change, _) => pixel_difference(after, &d.original.planes, i),
+                (Heat::Distance, Some(dist)) => dist[i],
+                (Heat::Distance, None) => 0.0,
+            };
+            heat(v * scale)
         };
         let images: Vec<egui::ColorImage> =
             next.par_iter().map(|&t| canvas::tile_image(w, h, IMAGE_TILE, t, &colour)).collect();
@@ -1717,6 +1909,33 @@ impl Difference {
             self.tiles.set_tile(t, image);
         }
         !self.todo.is_empty()
+    }
+}
+
+/// What a heat map shows.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Heat {
+    /// |after − before|.
+    Change,
+    /// Distance to the nearest known pixel.
+    Distance,
+}
+
+impl Heat {
+    /// The colour of pixels that were not filled: black for the difference, see-through for the
+    /// distance (drawn over the result).
+    fn background(self) -> Color32 {
+        match self {
+            Self::Change => Color32::BLACK,
+            Self::Distance => Color32::TRANSPARENT,
+        }
+    }
+
+    fn name(self) -> &'static str {
+        match self {
+            Self::Change => "difference",
+            Self::Distance => "distance",
+        }
     }
 }
 
@@ -1839,7 +2058,7 @@ fn make_textures(
     };
     let overlay = Tiles::new(ctx, "mask", w, h, OVERLAY_TILE, &|i| canvas::mark(&d.mask, colour, outline, i));
     let after = d.result.as_ref().map(|_| after_tiles(ctx, d));
-    Textures { before, after, difference: None, overlay, proposal: None }
+    Textures { before, after, difference: None, distance: None, overlay, proposal: None }
 }
 
 fn after_tiles(ctx: &egui::Context, d: &Document) -> Tiles {

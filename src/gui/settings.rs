@@ -18,6 +18,9 @@ pub struct Settings {
     #[serde(default)]
     pub outline: bool,
     pub tolerance: f64,
+    /// The fill method, and the scientific profile (no invented texture).
+    pub method: crate::fill::FillMethod,
+    pub scientific: bool,
     pub recent: Vec<PathBuf>,
     pub last_folder: Option<PathBuf>,
     pub window_size: Option<[f32; 2]>,
@@ -30,6 +33,8 @@ impl Default for Settings {
             overlay_rgba: [255, 40, 200, 140],
             outline: false,
             tolerance: 1e-6,
+            method: crate::fill::FillMethod::Harmonic,
+            scientific: false,
             recent: Vec::new(),
             last_folder: None,
             window_size: None,

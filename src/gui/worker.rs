@@ -198,7 +198,7 @@ impl Worker {
             "fill",
             move || repaint(),
             move |tx, cancel| {
-                let solver = match Solver::new(&mask) {
+                let solver = match Solver::for_method(&mask, params.method) {
                     Ok(s) => s,
                     Err(e) => {
                         let _ = tx.send(Message::FillFailed { planes, error: e.to_string() });

@@ -20,7 +20,7 @@ fn run(method: FillMethod, mask: &Mask, plane: &[f32], cycle: Cycle, sweeps: usi
 fn main() {
     let sweeps: usize = std::env::var("SWEEPS").ok().and_then(|s| s.parse().ok()).unwrap_or(2);
     let cycle = if std::env::var("W").is_ok() { Cycle::W } else { Cycle::V };
-    for n in [128usize, 256, 512] {
+    for n in [128usize, 256, 512, 1024] {
         let square = Mask::from_fn(n, n, |x, y| (4..n - 4).contains(&x) && (4..n - 4).contains(&y));
         let plane = synth::smooth_plane(n, n, 3);
         let (hi, ht) = run(FillMethod::Harmonic, &square, &plane, Cycle::V, 2);

@@ -129,12 +129,12 @@ fn direct(mask: &Mask, plane: &[f32]) -> Vec<f64> {
     };
     let mut m_trip = Vec::new();
     let mut known_part = vec![0f64; w * h];
-    for q in 0..w * h {
+    for (q, known) in known_part.iter_mut().enumerate() {
         for (p, c) in lrow(q) {
             if bits[p] {
                 m_trip.push(Triplet::new(q, index[p], c));
             } else {
-                known_part[q] += c * f64::from(plane[p]);
+                *known += c * f64::from(plane[p]);
             }
         }
     }

@@ -223,7 +223,7 @@ pub struct Hierarchy {
 #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
 fn coarsen(fine: &Level, points: &Points, h: usize) -> (Points, Vec<[u32; 4]>, Vec<f64>) {
     let pos: Vec<(u32, u32)> = (0..points.len())
-        .filter(|&i| points.xs[i] % 2 == 0 && points.ys[i] % 2 == 0)
+        .filter(|&i| points.xs[i].is_multiple_of(2) && points.ys[i].is_multiple_of(2))
         .map(|i| (points.xs[i] / 2, points.ys[i] / 2))
         .collect();
     let coarse = Points::new(pos, h.div_ceil(2));
@@ -274,16 +274,15 @@ fn galerkin(fine: &Level, fine_points: &Points, coarse: &Points, parents: &[[u32
                     }
                     let wf = weights[f];
                     let frow = fine.row(f);
-                    for t in 0..fine.k {
-                        let g = fine.nbr[f * fine.k + t];
-                        if g == NONE || frow[t] == 0.0 {
+                    for (&g, &a) in fine.nbr[f * fine.k..(f + 1) * fine.k].iter().zip(frow) {
+                        if g == NONE || a == 0.0 {
                             continue;
                         }
                         let g = g as usize;
                         for &p in &parents[g] {
                             if p != NONE {
                                 let (px, py) = coarse.at(p as usize);
-                                row[square_index((px - cx, py - cy))] += wf * frow[t] * weights[g];
+                                row[square_index((px - cx, py - cy))] += wf * a * weights[g];
                             }
                         }
                     }
@@ -329,8 +328,7 @@ impl Hierarchy {
         let mut levels =
             vec![Level { n: points.len(), k: FINE.len(), nbr, rows, class, parents: Vec::new(), pweight: Vec::new() }];
         let mut lh = h;
-        loop {
-            let Some(fine) = levels.last_mut() else { break };
+        while let Some(fine) = levels.last_mut() {
             if fine.n <= COARSEST_MAX {
                 break;
             }
@@ -362,10 +360,9 @@ impl Hierarchy {
                 for i in 0..n {
                     let row = last.row(i);
                     a[i * n + i] += row[0];
-                    for t in 1..last.k {
-                        let j = last.nbr[i * last.k + t];
+                    for (&j, &v) in last.nbr[i * last.k..(i + 1) * last.k].iter().zip(row).skip(1) {
                         if j != NONE {
-                            a[i * n + j as usize] += row[t];
+                            a[i * n + j as usize] += v;
                         }
                     }
                 }

@@ -105,8 +105,7 @@ fn pyramid<'a>(planes: &[&'a [f32]], mask: &Mask) -> Vec<Level<'a>> {
         planes: planes.iter().map(|p| std::borrow::Cow::Borrowed(*p)).collect(),
         masked: mask.bits().to_vec(),
     }];
-    loop {
-        let Some(fine) = levels.last() else { break };
+    while let Some(fine) = levels.last() {
         if fine.w < 32 || fine.h < 32 {
             break;
         }
@@ -343,6 +342,14 @@ fn place_holes(planes: &[&[f32]], mask: &Mask, holes: &HolePixels, chosen: &[Cho
         .collect()
 }
 
+/// The planes being filled and their size.
+#[derive(Clone, Copy)]
+struct Image<'a> {
+    planes: &'a [&'a mut [f32]],
+    width: usize,
+    height: usize,
+}
+
 /// One hole's filled values, channel after channel, and its convergence record.
 struct HoleResult {
     values: Vec<f32>,
@@ -352,15 +359,14 @@ struct HoleResult {
 /// Solves one hole: the harmonic fill of `f − s` over a cut around it, plus `s`.
 #[allow(clippy::cast_possible_wrap, clippy::cast_sign_loss)]
 fn solve_hole(
-    planes: &[&mut [f32]],
-    width: usize,
-    height: usize,
+    image: Image<'_>,
     pixels: &[u32],
     hole: &Hole,
     offset: Option<(isize, isize)>,
     params: &FillParams,
     progress: &mut (dyn FnMut(&Progress) -> bool + Send),
 ) -> Result<HoleResult, FillError> {
+    let Image { planes, width, height } = image;
     let (x0, y0, cw, ch) =
         super::margin_box((hole.x, hole.y, hole.x + hole.width - 1, hole.y + hole.height - 1), width, height);
     let mut cut_mask = Mask::new(cw, ch);
@@ -451,6 +457,7 @@ pub fn fill(
     let total = order.len();
     let mut results: Vec<Option<HoleResult>> = (0..total).map(|_| None).collect();
     let shared: &[&mut [f32]] = planes;
+    let image = Image { planes: shared, width, height };
     let mut done = 0;
     let mut start = 0;
     while start < total {
@@ -459,16 +466,7 @@ pub fn fill(
             progress(&Progress { cycle: done, max_cycles: total, residual: p.residual, tolerance: p.tolerance })
         };
         if holes.pixels[k].len() >= LARGE_HOLE {
-            let r = solve_hole(
-                shared,
-                width,
-                height,
-                &holes.pixels[k],
-                &holes.holes[k],
-                placements[k].offset,
-                params,
-                &mut tick,
-            )?;
+            let r = solve_hole(image, &holes.pixels[k], &holes.holes[k], placements[k].offset, params, &mut tick)?;
             results[k] = Some(r);
             start += 1;
         } else {
@@ -476,16 +474,7 @@ pub fn fill(
             let chunk: Vec<Result<HoleResult, FillError>> = order[start..end]
                 .par_iter()
                 .map(|&k| {
-                    solve_hole(
-                        shared,
-                        width,
-                        height,
-                        &holes.pixels[k],
-                        &holes.holes[k],
-                        placements[k].offset,
-                        params,
-                        &mut |_| true,
-                    )
+                    solve_hole(image, &holes.pixels[k], &holes.holes[k], placements[k].offset, params, &mut |_| true)
                 })
                 .collect();
             for (&k, r) in order[start..end].iter().zip(chunk) {

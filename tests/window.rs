@@ -495,3 +495,51 @@ fn methods_grain_scientific_and_the_distance_view() {
     settle(&mut h);
     assert_eq!(h.state().last_fill.as_ref().unwrap().method, FillMethod::Biharmonic, "{}", h.state().status);
 }
+
+#[test]
+fn a_dragged_source_is_used_for_its_hole() {
+    use reweave::fill::FillMethod;
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture(dir.path());
+    let mut h =
+        Harness::builder().with_size((1200.0, 1200.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default());
+    open(&mut h, &input);
+    h.get_by_label("Box").click();
+    h.run();
+    drag(&mut h, Pos2::new(4.5, 4.5), Pos2::new(11.5, 9.5), 4);
+    h.run();
+    h.state_mut().method = FillMethod::Guided;
+    h.run();
+    h.get_by_label("Fill").click();
+    settle(&mut h);
+    let automatic = h.state().last_fill.as_ref().unwrap().placements[0];
+    assert!(automatic.offset.is_some() && !automatic.chosen);
+
+    // Drag from inside the hole 30 px right and 20 px down: that is the hole's source now.
+    h.get_by_label("Drag a source").click();
+    h.run();
+    drag(&mut h, Pos2::new(6.5, 6.5), Pos2::new(36.5, 26.5), 5);
+    h.step();
+    settle(&mut h);
+    let app = h.state();
+    assert_eq!(app.chosen_sources.len(), 1, "{}", app.status);
+    let placed = app.last_fill.as_ref().unwrap().placements[0];
+    assert_eq!((placed.offset, placed.chosen), (Some((30, 20)), true), "{}", app.status);
+    // The filled values are the source's texture plus the harmonic correction: compare with a
+    // direct guided fill from the same source.
+    let d = app.doc.as_ref().unwrap();
+    let mut expected: Vec<Vec<f32>> = d.original.planes.clone();
+    let mut views: Vec<&mut [f32]> = expected.iter_mut().map(Vec::as_mut_slice).collect();
+    let params = reweave::fill::FillParams {
+        method: FillMethod::Guided,
+        chosen_sources: app.chosen_sources.clone(),
+        ..Default::default()
+    };
+    reweave::fill::fill(&mut views, &d.mask, &params).unwrap();
+    let result = d.result.as_ref().unwrap();
+    for (a, b) in result.iter().zip(&expected) {
+        for i in 0..a.len() {
+            assert!((a[i] - b[i]).abs() < 1e-3, "pixel {i}: {} vs {}", a[i], b[i]);
+        }
+    }
+}

@@ -26,6 +26,8 @@ pub enum Tool {
     Pick,
     /// Click vertices; close on the first vertex or with Enter (Escape drops it).
     Polygon,
+    /// Guided fill: drag from a hole to where its texture should come from.
+    Source,
 }
 
 /// What the canvas shows.
@@ -206,6 +208,10 @@ pub struct App {
     pub method: crate::fill::FillMethod,
     pub grain: Option<u64>,
     pub scientific: bool,
+    /// Texture sources the user dragged out for the guided fill.
+    pub chosen_sources: Vec<crate::fill::guided::ChosenSource>,
+    /// Where a source drag started (a masked pixel).
+    source_anchor: Option<(usize, usize)>,
     /// The distance map being computed for the last fill.
     depth_rx: Option<std::sync::mpsc::Receiver<(u64, Depth)>>,
     /// Counts fills, so a distance map of an older fill is dropped.
@@ -287,6 +293,8 @@ impl Default for App {
             method: crate::fill::FillMethod::Harmonic,
             grain: None,
             scientific: false,
+            chosen_sources: Vec::new(),
+            source_anchor: None,
             depth_rx: None,
             fill_serial: 0,
             open_field: String::new(),
@@ -855,6 +863,19 @@ impl App {
                 self.method = FillMethod::Harmonic;
             }
         }
+        if self.method == FillMethod::Guided {
+            ui.horizontal(|ui| {
+                ui.selectable_value(&mut self.tool, Tool::Source, "Drag a source").on_hover_text(
+                    "Drag from a hole to where its texture should come from; the hole is filled again from there.",
+                );
+                let n = self.chosen_sources.len();
+                if n > 0 && ui.button(format!("Forget {n} chosen")).clicked() {
+                    self.chosen_sources.clear();
+                }
+            });
+        } else if self.tool == Tool::Source {
+            self.tool = Tool::Brush;
+        }
         if self.method == FillMethod::Guided || self.grain.is_some() {
             ui.colored_label(
                 Color32::from_rgb(230, 170, 40),
@@ -864,7 +885,13 @@ impl App {
     }
 
     fn fill_params(&self) -> FillParams {
-        FillParams { tolerance: self.tolerance, method: self.method, grain: self.grain, ..FillParams::default() }
+        FillParams {
+            tolerance: self.tolerance,
+            method: self.method,
+            grain: self.grain,
+            chosen_sources: self.chosen_sources.clone(),
+            ..FillParams::default()
+        }
     }
 
     /// Starts computing the distance map of the filled mask off the UI thread.
@@ -1062,6 +1089,20 @@ impl App {
                     Stroke::new(1.0, Color32::YELLOW),
                 );
             }
+        } else if self.tool == Tool::Source && !panning {
+            let placements: &[crate::fill::guided::Placement] = match &self.last_fill {
+                Some(r) if r.method == crate::fill::FillMethod::Guided => &r.placements,
+                _ => &[],
+            };
+            let mut tool = SourceTool {
+                view: &self.view,
+                placements,
+                anchor: &mut self.source_anchor,
+                chosen: &mut self.chosen_sources,
+                status: &mut self.status,
+                whole_next: &mut self.whole_next,
+            };
+            tool.ui(ui, &response, &painter, &doc.mask, &mut commands);
         } else if matches!(self.tool, Tool::Box | Tool::Pick) && !panning {
             if self.tool == Tool::Pick
                 && response.clicked()
@@ -1319,6 +1360,21 @@ impl App {
                     filled_now = true;
                     if let Some(d) = &mut self.doc {
                         self.status = format!("filled {} pixels. {CAUTION}", mask.count());
+                        let refused = report.placements.iter().filter(|p| p.chosen && p.offset.is_none()).count();
+                        let unplaced = report.placements.iter().filter(|p| p.offset.is_none()).count();
+                        if refused > 0 {
+                            self.status.push_str(&format!(
+                                " {refused} chosen source{} left the image or covered marked pixels; {} filled smoothly instead.",
+                                if refused == 1 { "" } else { "s" },
+                                if refused == 1 { "its hole was" } else { "their holes were" }
+                            ));
+                        } else if unplaced > 0 {
+                            self.status.push_str(&format!(
+                                " {unplaced} hole{} found no clean source nearby and {} filled smoothly.",
+                                if unplaced == 1 { "" } else { "s" },
+                                if unplaced == 1 { "was" } else { "were" }
+                            ));
+                        }
                         let mut planes = planes;
                         if let Some(v) = d.nodata {
                             raster::nodata::keep_off_nodata(&mut planes, d.original.sample_format, &mask, v);
@@ -1909,6 +1965,95 @@ impl Difference {
             self.tiles.set_tile(t, image);
         }
         !self.todo.is_empty()
+    }
+}
+
+/// The source tool's view of the app: shows where each hole's texture came from and lets the
+/// user drag a hole to another source.
+struct SourceTool<'a> {
+    view: &'a View,
+    placements: &'a [crate::fill::guided::Placement],
+    anchor: &'a mut Option<(usize, usize)>,
+    chosen: &'a mut Vec<crate::fill::guided::ChosenSource>,
+    status: &'a mut String,
+    whole_next: &'a mut bool,
+}
+
+impl SourceTool<'_> {
+    /// Draws the sources and handles a drag.
+    fn ui(
+        &mut self,
+        ui: &egui::Ui,
+        response: &egui::Response,
+        painter: &egui::Painter,
+        mask: &Mask,
+        commands: &mut Vec<Command>,
+    ) {
+        let placements = self.placements;
+        let to_screen = |x: f32, y: f32| self.view.screen_from_image(Pos2::new(x, y));
+        #[allow(clippy::cast_precision_loss)]
+        let hole_rect = |h: &crate::mask::Hole, dx: f32, dy: f32| {
+            Rect::from_min_max(
+                to_screen(h.x as f32 + dx, h.y as f32 + dy),
+                to_screen((h.x + h.width) as f32 + dx, (h.y + h.height) as f32 + dy),
+            )
+        };
+        // Where the texture came from (the largest holes; a dust field would hide the picture).
+        for p in placements.iter().take(200) {
+            if let Some((dx, dy)) = p.offset {
+                #[allow(clippy::cast_precision_loss)]
+                let (dx, dy) = (dx as f32, dy as f32);
+                let (a, b) = (hole_rect(&p.hole, 0.0, 0.0), hole_rect(&p.hole, dx, dy));
+                let colour = if p.chosen { Color32::YELLOW } else { Color32::from_rgb(80, 220, 255) };
+                painter.rect_stroke(b, 0.0, Stroke::new(1.0, colour), egui::StrokeKind::Middle);
+                painter.line_segment([a.center(), b.center()], Stroke::new(1.0, colour));
+            }
+        }
+        let pixel = |p: Pos2| -> Option<(usize, usize)> {
+            let q = self.view.image_from_screen(p);
+            #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss, clippy::cast_precision_loss)]
+            (q.x >= 0.0 && q.y >= 0.0 && q.x < mask.width() as f32 && q.y < mask.height() as f32)
+                .then(|| (q.x as usize, q.y as usize))
+        };
+        if response.drag_started_by(egui::PointerButton::Primary) {
+            let origin = ui.ctx().input(|i| i.pointer.press_origin()).or(response.interact_pointer_pos());
+            *self.anchor = origin.and_then(pixel).filter(|&(x, y)| mask.get(x, y));
+            if self.anchor.is_none() {
+                *self.status = "start the drag on a marked hole".to_owned();
+            }
+        }
+        let Some((ax, ay)) = *self.anchor else { return };
+        let Some(here) = response.interact_pointer_pos() else { return };
+        let q = self.view.image_from_screen(here);
+        #[allow(clippy::cast_precision_loss, clippy::cast_possible_truncation)]
+        let (dx, dy) = ((q.x - ax as f32 - 0.5).round(), (q.y - ay as f32 - 0.5).round());
+        let hole = placements
+            .iter()
+            .map(|p| p.hole)
+            .find(|h| (h.x..h.x + h.width).contains(&ax) && (h.y..h.y + h.height).contains(&ay));
+        let shown = hole.unwrap_or(crate::mask::Hole { x: ax, y: ay, width: 1, height: 1, pixels: 1 });
+        painter.rect_stroke(
+            hole_rect(&shown, dx, dy),
+            0.0,
+            Stroke::new(2.0, Color32::YELLOW),
+            egui::StrokeKind::Middle,
+        );
+        if response.drag_stopped() {
+            *self.anchor = None;
+            #[allow(clippy::cast_possible_truncation)]
+            let offset = (dx as isize, dy as isize);
+            if offset == (0, 0) {
+                return;
+            }
+            // One chosen source per hole: drop an earlier choice made in the same hole.
+            if let Some(h) = hole {
+                self.chosen
+                    .retain(|c| !((h.x..h.x + h.width).contains(&c.at.0) && (h.y..h.y + h.height).contains(&c.at.1)));
+            }
+            self.chosen.push(crate::fill::guided::ChosenSource { at: (ax, ay), offset });
+            *self.whole_next = true;
+            commands.push(Command::Fill);
+        }
     }
 }
 

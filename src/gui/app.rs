@@ -2013,7 +2013,7 @@ impl SourceTool<'_> {
             let q = self.view.image_from_screen(p);
             #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss, clippy::cast_precision_loss)]
             (q.x >= 0.0 && q.y >= 0.0 && q.x < mask.width() as f32 && q.y < mask.height() as f32)
-                .then(|| (q.x as usize, q.y as usize))
+                .then_some((q.x as usize, q.y as usize))
         };
         if response.drag_started_by(egui::PointerButton::Primary) {
             let origin = ui.ctx().input(|i| i.pointer.press_origin()).or(response.interact_pointer_pos());

@@ -172,3 +172,41 @@ fn an_interrupted_batch_leaves_complete_outputs_only_and_a_rerun_finishes() {
 fn listing_or_empty(dir: &Path) -> Vec<String> {
     if dir.exists() { listing(dir) } else { Vec::new() }
 }
+
+#[test]
+fn batch_takes_the_fill_method_and_the_scientific_profile() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    archive(d);
+    let (input, out, mask, reports) = (d.join("in"), d.join("out"), d.join("badpix.png"), d.join("reports"));
+    let base = [
+        "batch",
+        input.to_str().unwrap(),
+        "--mask",
+        mask.to_str().unwrap(),
+        "-o",
+        out.to_str().unwrap(),
+        "--report-dir",
+        reports.to_str().unwrap(),
+    ];
+    let mut refused = base.to_vec();
+    refused.extend(["--scientific", "--method", "guided"]);
+    let o = reweave(&refused);
+    assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("--scientific refuses"));
+    assert!(!out.exists(), "nothing written on a usage error");
+
+    let mut args = base.to_vec();
+    args.extend(["--scientific", "--method", "biharmonic"]);
+    let o = reweave(&args);
+    assert_eq!(o.status.code(), Some(1), "two corrupt frames: {}", String::from_utf8_lossy(&o.stdout));
+    assert_eq!(listing(&out).len(), 48);
+    let json: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(reports.join(listing(&reports)[0].clone())).unwrap()).unwrap();
+    assert_eq!(json["method"], "biharmonic");
+    assert_eq!(json["scientific"], true);
+    // Every frame is a ramp along x, which the biharmonic fill reproduces (a polynomial of degree
+    // 1; ORACLES.md §4) — away from the image's edge columns, where the natural condition applies.
+    let r = raster::load(&out.join("frame-000.png")).unwrap();
+    assert_eq!(r.planes[0][7], 1007.0);
+}

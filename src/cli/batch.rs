@@ -134,6 +134,8 @@ enum Done {
 }
 
 pub(super) fn run(args: &BatchArgs) -> Result<()> {
+    // Options first: a refused combination must not leave an output folder behind.
+    let params: FillParams = args.how.params()?;
     let usage = |m: String| -> anyhow::Error { UsageError(m).into() };
     let mut files = expand(&args.inputs)?;
     if let Some(text) = &args.shard {
@@ -185,7 +187,6 @@ pub(super) fn run(args: &BatchArgs) -> Result<()> {
         Some(p) => Some(MaskFile::load(p)?),
         None => None,
     };
-    let params: FillParams = args.how.params()?;
     let limits = raster::Limits {
         max_pixels: args.max_megapixels.saturating_mul(1_000_000),
         max_bytes: args.max_gigabytes.saturating_mul(1 << 30),

@@ -146,7 +146,7 @@ pub struct FillArgs {
     #[command(flatten)]
     pub how: MethodOptions,
 
-    /// Multigrid cycle shape.
+    /// Multigrid cycle shape (harmonic fill; the biharmonic fill always uses W-cycles).
     #[arg(long, value_enum, default_value = "v")]
     pub cycle: CycleArg,
 

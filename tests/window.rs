@@ -455,9 +455,13 @@ fn methods_grain_scientific_and_the_distance_view() {
     drag(&mut h, Pos2::new(8.5, 5.5), Pos2::new(46.5, 42.5), 6);
     h.run();
 
-    // The guided fill (the method list is a combo box; its choice lands here), with grain.
-    h.state_mut().method = FillMethod::Guided;
+    // Pick the guided fill from the method list (the second list labelled Method; the first is
+    // the detector's), with grain.
+    h.get_all_by_label("Method").last().expect("the method list").click();
     h.run();
+    h.get_by_label("Guided: texture from a matching area").click();
+    h.run();
+    assert_eq!(h.state().method, FillMethod::Guided);
     h.get_by_label("Grain").click();
     h.run();
     assert!(h.state().grain.is_some());
@@ -488,9 +492,20 @@ fn methods_grain_scientific_and_the_distance_view() {
     h.run();
     assert!(h.state().grain.is_none(), "grain stays off in the scientific profile");
 
-    // The biharmonic fill runs from the window too.
-    h.state_mut().method = FillMethod::Biharmonic;
+    h.get_all_by_label("Method").last().expect("the method list").click();
     h.run();
+    h.get_by_label("Guided: texture from a matching area").click();
+    h.run();
+    assert_eq!(h.state().method, FillMethod::Harmonic, "guided is disabled in the scientific profile");
+
+    // The biharmonic fill runs from the window too.
+    if h.query_by_label("Biharmonic: keeps slopes (terrain, gradients)").is_none() {
+        h.get_all_by_label("Method").last().expect("the method list").click();
+        h.run();
+    }
+    h.get_by_label("Biharmonic: keeps slopes (terrain, gradients)").click();
+    h.run();
+    assert_eq!(h.state().method, FillMethod::Biharmonic);
     h.get_by_label("Fill").click();
     settle(&mut h);
     assert_eq!(h.state().last_fill.as_ref().unwrap().method, FillMethod::Biharmonic, "{}", h.state().status);

@@ -837,7 +837,7 @@ impl App {
             FillMethod::Biharmonic => "Biharmonic: keeps slopes (terrain, gradients)",
             FillMethod::Guided => "Guided: texture from a matching area",
         };
-        egui::ComboBox::from_label("Method").selected_text(self.method.name()).show_ui(ui, |ui| {
+        egui::ComboBox::new("fill-method", "Method").selected_text(self.method.name()).show_ui(ui, |ui| {
             for m in [FillMethod::Harmonic, FillMethod::Biharmonic, FillMethod::Guided] {
                 let allowed = !(self.scientific && m.invents_texture());
                 ui.add_enabled_ui(allowed, |ui| ui.selectable_value(&mut self.method, m, label(m)));
@@ -1054,6 +1054,7 @@ impl App {
             (q.x >= 0.0 && q.y >= 0.0 && q.x < size.x && q.y < size.y).then_some((q.x as usize, q.y as usize))
         });
         let mut commands = Vec::new();
+        let mut shapes: Vec<egui::Shape> = Vec::new();
         let pixel_at = |p: Pos2| -> Option<(usize, usize)> {
             #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
             (p.x >= 0.0 && p.y >= 0.0 && p.x < size.x && p.y < size.y).then_some((p.x as usize, p.y as usize))
@@ -1102,7 +1103,7 @@ impl App {
                 status: &mut self.status,
                 whole_next: &mut self.whole_next,
             };
-            tool.ui(ui, &response, &painter, &doc.mask, &mut commands);
+            tool.ui(ui, &response, &mut shapes, &doc.mask, &mut commands);
         } else if matches!(self.tool, Tool::Box | Tool::Pick) && !panning {
             if self.tool == Tool::Pick
                 && response.clicked()
@@ -1309,6 +1310,8 @@ impl App {
                 painter.line_segment([Pos2::new(img.left(), sy), Pos2::new(img.right(), sy)], grid);
             }
         }
+        // The source tool's marks, over the picture.
+        painter.extend(shapes);
         // Brush outline.
         if let Some(p) = hover.filter(|_| matches!(self.tool, Tool::Brush | Tool::Eraser)) {
             painter.circle_stroke(p, self.radius * self.view.zoom, Stroke::new(1.0, Color32::WHITE));
@@ -1985,7 +1988,7 @@ impl SourceTool<'_> {
         &mut self,
         ui: &egui::Ui,
         response: &egui::Response,
-        painter: &egui::Painter,
+        shapes: &mut Vec<egui::Shape>,
         mask: &Mask,
         commands: &mut Vec<Command>,
     ) {
@@ -2005,8 +2008,8 @@ impl SourceTool<'_> {
                 let (dx, dy) = (dx as f32, dy as f32);
                 let (a, b) = (hole_rect(&p.hole, 0.0, 0.0), hole_rect(&p.hole, dx, dy));
                 let colour = if p.chosen { Color32::YELLOW } else { Color32::from_rgb(80, 220, 255) };
-                painter.rect_stroke(b, 0.0, Stroke::new(1.0, colour), egui::StrokeKind::Middle);
-                painter.line_segment([a.center(), b.center()], Stroke::new(1.0, colour));
+                shapes.push(egui::Shape::rect_stroke(b, 0.0, Stroke::new(1.0, colour), egui::StrokeKind::Middle));
+                shapes.push(egui::Shape::line_segment([a.center(), b.center()], Stroke::new(1.0, colour)));
             }
         }
         let pixel = |p: Pos2| -> Option<(usize, usize)> {
@@ -2032,12 +2035,12 @@ impl SourceTool<'_> {
             .map(|p| p.hole)
             .find(|h| (h.x..h.x + h.width).contains(&ax) && (h.y..h.y + h.height).contains(&ay));
         let shown = hole.unwrap_or(crate::mask::Hole { x: ax, y: ay, width: 1, height: 1, pixels: 1 });
-        painter.rect_stroke(
+        shapes.push(egui::Shape::rect_stroke(
             hole_rect(&shown, dx, dy),
             0.0,
             Stroke::new(2.0, Color32::YELLOW),
             egui::StrokeKind::Middle,
-        );
+        ));
         if response.drag_stopped() {
             *self.anchor = None;
             #[allow(clippy::cast_possible_truncation)]

@@ -487,30 +487,40 @@ fn check_storable(raster: &Raster, format: FileFormat, path: &Path) -> Result<()
 }
 
 static TEMP_COUNTER: AtomicU64 = AtomicU64::new(0);
+/// Temporary files being written right now (see [`remove_temporary_files`]), and whether new
+/// ones are refused because the process is ending.
+static IN_FLIGHT: std::sync::Mutex<(Vec<PathBuf>, bool)> = std::sync::Mutex::new((Vec::new(), false));
 
-/// The temporary name a file is written under before it is renamed to `path`.
-/// Temporary files being written right now (see [`remove_temporary_files`]).
-static IN_FLIGHT: std::sync::Mutex<Vec<PathBuf>> = std::sync::Mutex::new(Vec::new());
-
-/// Removes every temporary file a [`write_atomic`] in this process is writing. For an interrupt
-/// handler that then ends the process: finished outputs are complete (they were renamed into
-/// place only once written), and nothing half-written is left behind.
+/// Removes every temporary file a [`write_atomic`] in this process is writing, and refuses new
+/// ones from then on. For an interrupt handler that then ends the process: finished outputs are
+/// complete (they were renamed into place only once written), and nothing half-written is left
+/// behind — a temporary file is created and recorded under the same lock, so none can appear
+/// between this cleanup and the exit.
 pub fn remove_temporary_files() {
     let mut in_flight = IN_FLIGHT.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
-    for path in in_flight.drain(..) {
+    in_flight.1 = true;
+    for path in in_flight.0.drain(..) {
         let _ = std::fs::remove_file(path);
     }
 }
 
-fn track(tmp: &Path, writing: bool) {
+/// Creates the temporary file `tmp` and records it, unless the process is ending.
+fn create_tracked(tmp: &Path) -> Result<File, String> {
     let mut in_flight = IN_FLIGHT.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
-    if writing {
-        in_flight.push(tmp.to_owned());
-    } else {
-        in_flight.retain(|p| p != tmp);
+    if in_flight.1 {
+        return Err("reweave is being interrupted".to_owned());
     }
+    let file = File::options().write(true).create_new(true).open(tmp).map_err(|e| e.to_string())?;
+    in_flight.0.push(tmp.to_owned());
+    Ok(file)
 }
 
+fn untrack(tmp: &Path) {
+    let mut in_flight = IN_FLIGHT.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
+    in_flight.0.retain(|p| p != tmp);
+}
+
+/// The temporary name a file is written under before it is renamed to `path`.
 fn temp_path(path: &Path) -> PathBuf {
     let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
     let n = TEMP_COUNTER.fetch_add(1, Ordering::Relaxed);
@@ -531,8 +541,7 @@ pub fn write_atomic(
         return Err(fail("it is a folder".to_owned()));
     }
     let tmp = temp_path(path);
-    let file = File::options().write(true).create_new(true).open(&tmp).map_err(|e| fail(e.to_string()))?;
-    track(&tmp, true);
+    let file = create_tracked(&tmp).map_err(fail)?;
     let mut w = BufWriter::new(file);
     let result = write(&mut w)
         .and_then(|()| w.flush().map_err(|e| e.to_string()))
@@ -548,7 +557,7 @@ pub fn write_atomic(
             fail(e.to_string())
         }),
     };
-    track(&tmp, false);
+    untrack(&tmp);
     outcome
 }
 

@@ -179,3 +179,47 @@ fn a_write_that_fails_half_way_leaves_no_file() {
     assert_eq!(std::fs::read(&target).unwrap(), b"earlier result");
     assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 1);
 }
+
+/// The other methods on the same degenerate inputs: they fill (finite values, known pixels
+/// unchanged, constants stay constant) or fail with the same clear errors.
+#[test]
+fn biharmonic_and_guided_fill_degenerate_inputs_or_say_why() {
+    use reweave::fill::{FillMethod, fill};
+    for method in [FillMethod::Biharmonic, FillMethod::Guided] {
+        let params = FillParams { method, tolerance: 1e-10, ..FillParams::default() };
+        // Nothing to fill from.
+        let mut one = [7.0f32];
+        assert_eq!(
+            fill(&mut [&mut one[..]], &Mask::from_fn(1, 1, |_, _| true), &params).unwrap_err(),
+            FillError::NoKnownPixels
+        );
+        assert_eq!(one, [7.0]);
+        // Thin images, one known pixel, a mask around a known block, isolated pixels: constant
+        // data stays constant (both equations reproduce constants; common practice).
+        let cases: Vec<(usize, usize, Mask)> = vec![
+            (1, 40, Mask::from_fn(1, 40, |_, y| (5..35).contains(&y))),
+            (40, 1, Mask::from_fn(40, 1, |x, _| x != 0 && x != 39)),
+            (9, 7, Mask::from_fn(9, 7, |x, y| (x, y) != (4, 3))),
+            (12, 12, Mask::from_fn(12, 12, |x, y| !(4..8).contains(&x) || !(4..8).contains(&y))),
+            (20, 20, Mask::from_fn(20, 20, |x, y| (x + 3 * y) % 7 == 0)),
+        ];
+        for (w, h, mask) in cases {
+            let mut plane: Vec<f32> = (0..w * h).map(|i| if mask.bits()[i] { f32::NAN } else { 42.5 }).collect();
+            let report = fill(&mut [&mut plane[..]], &mask, &params)
+                .unwrap_or_else(|e| panic!("{} on {w}×{h}: {e}", method.name()));
+            assert_eq!(report.unknowns, mask.count());
+            for (i, v) in plane.iter().enumerate() {
+                assert!((v - 42.5).abs() < 1e-4, "{} on {w}×{h}: pixel {i} = {v}", method.name());
+            }
+        }
+        // A NaN next to a hole is named, and nothing changes.
+        let (w, h) = (10, 10);
+        let mask = Mask::from_fn(w, h, |x, y| (4..6).contains(&x) && (4..6).contains(&y));
+        let mut plane: Vec<f32> = vec![1.0; w * h];
+        plane[4 * w + 3] = f32::NAN;
+        let before = plane.clone();
+        let err = fill(&mut [&mut plane[..]], &mask, &params).unwrap_err();
+        assert_eq!(err, FillError::NonFiniteRim { x: 3, y: 4 }, "{}", method.name());
+        assert!(plane.iter().zip(&before).all(|(a, b)| a.to_bits() == b.to_bits()));
+    }
+}

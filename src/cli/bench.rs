@@ -7,14 +7,15 @@ use clap::Args;
 use serde_json::json;
 
 use super::UsageError;
-use crate::fill::{FillParams, Solver, Start};
+use crate::fill::{FillMethod, FillParams, Solver, Start};
 use crate::synth::{MaskFamily, smooth_plane};
 
 /// Time setup and solve on seeded synthetic masks: scratches (thin polylines, about 2% of the
 /// pixels), deadpix (0.1% single pixels, dead columns and a row), blob (a disk of radius 0.2·N and
 /// five small ones), dropout (half the pixels at random), frame (all but a 2-pixel border).
 #[derive(Debug, Args)]
-#[command(after_help = "Example:\n  reweave bench --size 2048 --case frame --case blob --channels 3")]
+#[command(after_help = "Examples:\n  reweave bench --size 2048 --case frame --case blob --channels 3\n  \
+reweave bench --size 1024 --method harmonic --method biharmonic")]
 pub struct BenchArgs {
     /// Image side N (repeat for several); default 1024, 2048 and 4096.
     #[arg(long, value_name = "N")]
@@ -44,6 +45,9 @@ pub struct BenchArgs {
     /// Seed of the generated masks and images.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// Fill method (repeat for several, to compare them on the same masks); default harmonic.
+    #[arg(long, value_enum, value_name = "METHOD")]
+    pub method: Vec<super::fill::MethodArg>,
 }
 
 /// Peak resident memory of this process since the last reset, in bytes (Linux only).
@@ -84,65 +88,78 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
         post_smooth,
         ..FillParams::default()
     };
+    let methods: Vec<FillMethod> = if args.method.is_empty() {
+        vec![FillMethod::Harmonic]
+    } else {
+        args.method.iter().map(|&m| super::fill::MethodOptions::method_of(m)).collect()
+    };
     for &n in &sizes {
         for &case in &cases {
-            let mask = case.mask(n, args.seed);
-            let originals: Vec<Vec<f32>> =
-                (0..args.channels).map(|c| smooth_plane(n, n, args.seed + c as u64)).collect();
-            if let Some(dir) = &args.save_case {
-                std::fs::create_dir_all(dir)?;
-                let stem = format!("{}-{n}", case.name());
-                crate::raster::save_mask(&mask, &dir.join(format!("{stem}-mask.png")))?;
-                let mut r =
-                    crate::raster::Raster::new(n, n, crate::raster::Layout::Gray, crate::raster::SampleFormat::F32);
-                r.planes[0].clone_from(&originals[0]);
-                crate::raster::save(&r, &dir.join(format!("{stem}.tif")))?;
-            }
-            let mut best: Option<(f64, f64, crate::fill::FillReport, usize, u64)> = None;
-            let mut storage = String::new();
-            for _ in 0..args.repeat.max(1) {
-                let mut planes = originals.clone();
-                let base = current_rss().unwrap_or(0);
-                reset_peak();
-                let t0 = Instant::now();
-                let solver = Solver::new(&mask)?;
-                let setup = t0.elapsed().as_secs_f64();
-                let mut views: Vec<&mut [f32]> = planes.iter_mut().map(Vec::as_mut_slice).collect();
-                let t1 = Instant::now();
-                let report = solver.solve(&mut views, &params, Start::FullMultigrid, &mut |_| true)?;
-                let solve = t1.elapsed().as_secs_f64();
-                let peak = peak_rss().unwrap_or(0).saturating_sub(base);
-                let hier = solver.memory_bytes();
-                let grids = solver.level_sizes().iter().filter(|(grid, _)| *grid).count();
-                let lists = solver.level_sizes().len() - grids;
-                storage = format!("{grids} grid, {lists} compact");
-                if best.as_ref().is_none_or(|b| setup + solve < b.0 + b.1) {
-                    best = Some((setup, solve, report, hier, peak));
+            for &method in &methods {
+                let params = FillParams { method, ..params.clone() };
+                let mask = case.mask(n, args.seed);
+                let originals: Vec<Vec<f32>> =
+                    (0..args.channels).map(|c| smooth_plane(n, n, args.seed + c as u64)).collect();
+                if let Some(dir) = &args.save_case {
+                    std::fs::create_dir_all(dir)?;
+                    let stem = format!("{}-{n}", case.name());
+                    crate::raster::save_mask(&mask, &dir.join(format!("{stem}-mask.png")))?;
+                    let mut r =
+                        crate::raster::Raster::new(n, n, crate::raster::Layout::Gray, crate::raster::SampleFormat::F32);
+                    r.planes[0].clone_from(&originals[0]);
+                    crate::raster::save(&r, &dir.join(format!("{stem}.tif")))?;
                 }
+                let mut best: Option<(f64, f64, crate::fill::FillReport, usize, u64)> = None;
+                let mut storage = String::new();
+                for _ in 0..args.repeat.max(1) {
+                    let mut planes = originals.clone();
+                    let base = current_rss().unwrap_or(0);
+                    reset_peak();
+                    let t0 = Instant::now();
+                    let solver = Solver::for_method(&mask, method)?;
+                    let setup = t0.elapsed().as_secs_f64();
+                    let mut views: Vec<&mut [f32]> = planes.iter_mut().map(Vec::as_mut_slice).collect();
+                    let t1 = Instant::now();
+                    let report = solver.solve(&mut views, &params, Start::FullMultigrid, &mut |_| true)?;
+                    let solve = t1.elapsed().as_secs_f64();
+                    let peak = peak_rss().unwrap_or(0).saturating_sub(base);
+                    let hier = solver.memory_bytes();
+                    let grids = solver.level_sizes().iter().filter(|(grid, _)| *grid).count();
+                    let lists = solver.level_sizes().len() - grids;
+                    storage = match method {
+                        FillMethod::Harmonic => format!("{grids} grid, {lists} compact"),
+                        FillMethod::Biharmonic => "compact".to_owned(),
+                        FillMethod::Guided => "a cut per hole".to_owned(),
+                    };
+                    if best.as_ref().is_none_or(|b| setup + solve < b.0 + b.1) {
+                        best = Some((setup, solve, report, hier, peak));
+                    }
+                }
+                let Some((setup, solve, report, hier, peak)) = best else { continue };
+                let unknowns = report.unknowns;
+                let image_bytes = (n * n * args.channels * 4) as f64;
+                let line = json!({
+                    "case": case.name(),
+                    "method": method.name(),
+                    "size": n,
+                    "channels": args.channels,
+                    "unknowns": unknowns,
+                    "levels": report.levels,
+                    "cycles": report.channels.iter().map(|c| c.cycles).max().unwrap_or(0),
+                    "residual": report.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max),
+                    "setup_s": round(setup, 4),
+                    "solve_s": round(solve, 4),
+                    "total_s": round(setup + solve, 4),
+                    "ns_per_unknown": round((setup + solve) * 1e9 / unknowns.max(1) as f64, 1),
+                    "hierarchy_mb": round(hier as f64 / 1e6, 1),
+                    "peak_extra_mb": round(peak as f64 / 1e6, 1),
+                    "peak_over_image": round(peak as f64 / image_bytes, 2),
+                    "storage": storage,
+                    "history": report.channels[0].history.iter().map(|r| format!("{r:.1e}")).collect::<Vec<_>>(),
+                    "threads": if args.threads == 0 { rayon::current_num_threads() } else { args.threads },
+                });
+                println!("{line}");
             }
-            let Some((setup, solve, report, hier, peak)) = best else { continue };
-            let unknowns = report.unknowns;
-            let image_bytes = (n * n * args.channels * 4) as f64;
-            let line = json!({
-                "case": case.name(),
-                "size": n,
-                "channels": args.channels,
-                "unknowns": unknowns,
-                "levels": report.levels,
-                "cycles": report.channels.iter().map(|c| c.cycles).max().unwrap_or(0),
-                "residual": report.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max),
-                "setup_s": round(setup, 4),
-                "solve_s": round(solve, 4),
-                "total_s": round(setup + solve, 4),
-                "ns_per_unknown": round((setup + solve) * 1e9 / unknowns.max(1) as f64, 1),
-                "hierarchy_mb": round(hier as f64 / 1e6, 1),
-                "peak_extra_mb": round(peak as f64 / 1e6, 1),
-                "peak_over_image": round(peak as f64 / image_bytes, 2),
-                "storage": storage,
-                "history": report.channels[0].history.iter().map(|r| format!("{r:.1e}")).collect::<Vec<_>>(),
-                "threads": if args.threads == 0 { rayon::current_num_threads() } else { args.threads },
-            });
-            println!("{line}");
         }
     }
     Ok(())

@@ -49,6 +49,14 @@ pub struct MethodOptions {
 }
 
 impl MethodOptions {
+    pub(crate) fn method_of(m: MethodArg) -> FillMethod {
+        match m {
+            MethodArg::Harmonic => FillMethod::Harmonic,
+            MethodArg::Biharmonic => FillMethod::Biharmonic,
+            MethodArg::Guided => FillMethod::Guided,
+        }
+    }
+
     /// The fill parameters, or a usage error for a combination the scientific profile refuses.
     pub(crate) fn params(&self) -> Result<FillParams> {
         let usage = |m: String| -> anyhow::Error { UsageError(m).into() };
@@ -66,11 +74,7 @@ impl MethodOptions {
             return Err(usage(format!("--tolerance must be between 0 and 1 (got {})", self.tolerance)));
         }
         Ok(FillParams {
-            method: match self.method {
-                MethodArg::Harmonic => FillMethod::Harmonic,
-                MethodArg::Biharmonic => FillMethod::Biharmonic,
-                MethodArg::Guided => FillMethod::Guided,
-            },
+            method: Self::method_of(self.method),
             tolerance: self.tolerance,
             max_cycles: self.max_cycles,
             grain: self.grain,

@@ -101,6 +101,9 @@ pub struct Report {
     /// (deepest first, at most [`HOLE_LIST_MAX`]): there a smooth fill only interpolates the rim.
     pub deep_holes: Vec<crate::mask::distance::Depth>,
     pub deep_hole_limit_px: f32,
+    /// What the deep holes mean for the result, when there are any.
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub deep_hole_warning: Option<String>,
     pub method: String,
     /// Whether the scientific profile (no invented texture) was in force.
     pub scientific: bool,
@@ -173,6 +176,7 @@ impl Report {
             skipped_holes: Vec::new(),
             deep_holes: Vec::new(),
             deep_hole_limit_px: DEEP_HOLE_PX,
+            deep_hole_warning: None,
             skipped_pixels: 0,
             notes: Vec::new(),
             method: fill.method.name().to_owned(),
@@ -193,6 +197,27 @@ impl Report {
     pub fn to_json(&self) -> String {
         serde_json::to_string_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}"))
     }
+}
+
+/// The warning about holes deeper than [`DEEP_HOLE_PX`] (deepest first), for the command line and
+/// the report; `None` when there is none.
+#[must_use]
+pub fn deep_hole_warning(deep: &[crate::mask::distance::Depth], method: crate::fill::FillMethod) -> Option<String> {
+    let d = deep.first()?;
+    let n = deep.len();
+    Some(format!(
+        "{n} hole{} reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.0} px, at ({}, {})): {}",
+        if n == 1 { "" } else { "s" },
+        if n == 1 { "es" } else { "" },
+        d.pixels,
+        d.x,
+        d.y,
+        if method == crate::fill::FillMethod::Guided {
+            "the texture there is copied from elsewhere, and only the rim is real"
+        } else {
+            "a smooth fill only interpolates the rim there and texture is not reconstructed; for photographs, the guided fill (--method guided) carries texture in"
+        }
+    ))
 }
 
 /// The caution for fills that add detail nobody measured.

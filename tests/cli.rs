@@ -327,6 +327,8 @@ fn distance_map_and_deep_hole_warning() {
     let deep = &json["deep_holes"][0];
     assert!((19.0..=21.0).contains(&deep["pixels"].as_f64().unwrap()), "{json}");
     assert_eq!((deep["x"].as_u64(), deep["y"].as_u64()), (Some(32), Some(32)));
+    let warning = json["deep_hole_warning"].as_str().unwrap_or_default();
+    assert!(warning.contains("more than 16 px") && warning.contains("guided"), "{json}");
 }
 
 #[test]

@@ -218,22 +218,9 @@ impl Job<'_> {
             let distance = crate::mask::distance::distance_to_known(&mask);
             (crate::mask::distance::holes_deeper_than(&mask, &distance, DEEP_HOLE_PX), Some(distance))
         };
-        if let Some(d) = deep.first() {
-            say(format!(
-                "warning: {} hole{} of '{}' reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.0} px, at ({}, {})): {}",
-                deep.len(),
-                if deep.len() == 1 { "" } else { "s" },
-                input.display(),
-                if deep.len() == 1 { "es" } else { "" },
-                d.pixels,
-                d.x,
-                d.y,
-                if self.params.method == FillMethod::Guided {
-                    "the texture there is copied from elsewhere, and only the rim is real"
-                } else {
-                    "a smooth fill only interpolates the rim there and texture is not reconstructed; for photographs, --method guided carries texture in"
-                }
-            ));
+        let deep_warning = crate::report::deep_hole_warning(&deep, self.params.method);
+        if let Some(w) = &deep_warning {
+            say(format!("warning: '{}': {w}", input.display()));
         }
 
         let t_save = Instant::now();
@@ -285,6 +272,7 @@ impl Job<'_> {
             report.skipped_pixels = skipped.iter().map(|h| h.pixels).sum();
             report.skipped_holes = skipped.iter().take(HOLE_LIST_MAX).copied().collect();
             report.deep_holes = deep.iter().take(HOLE_LIST_MAX).copied().collect();
+            report.deep_hole_warning = deep_warning;
             report.notes = notes;
             report.scientific = self.scientific;
             report.seconds.load = load_seconds;

@@ -1528,6 +1528,10 @@ impl App {
         report.output = output;
         report.nodata = d.nodata.map(|v| v.to_string());
         report.nodata_pixels = d.nodata_pixels;
+        if let Some(depth) = &d.depth {
+            report.deep_holes = depth.deep.iter().take(crate::report::HOLE_LIST_MAX).copied().collect();
+            report.deep_hole_warning = crate::report::deep_hole_warning(&depth.deep, fill.method);
+        }
         report.skipped_pixels = d.skipped.iter().map(|h| h.pixels).sum();
         report.skipped_holes = d.skipped.iter().take(crate::report::HOLE_LIST_MAX).copied().collect();
         let json = report.to_json();

@@ -202,11 +202,15 @@ impl Report {
 /// The warning about holes deeper than [`DEEP_HOLE_PX`] (deepest first), for the command line and
 /// the report; `None` when there is none.
 #[must_use]
-pub fn deep_hole_warning(deep: &[crate::mask::distance::Depth], method: crate::fill::FillMethod) -> Option<String> {
+pub fn deep_hole_warning(
+    deep: &[crate::mask::distance::Depth],
+    method: crate::fill::FillMethod,
+    scientific: bool,
+) -> Option<String> {
     let d = deep.first()?;
     let n = deep.len();
     Some(format!(
-        "{n} hole{} reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.0} px, at ({}, {})): {}",
+        "{n} hole{} reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.1} px, at ({}, {})): {}",
         if n == 1 { "" } else { "s" },
         if n == 1 { "es" } else { "" },
         d.pixels,
@@ -214,6 +218,8 @@ pub fn deep_hole_warning(deep: &[crate::mask::distance::Depth], method: crate::f
         d.y,
         if method == crate::fill::FillMethod::Guided {
             "the texture there is copied from elsewhere, and only the rim is real"
+        } else if scientific {
+            "a smooth fill only interpolates the rim there; treat those values as the least reliable"
         } else {
             "a smooth fill only interpolates the rim there and texture is not reconstructed; for photographs, the guided fill (--method guided) carries texture in"
         }

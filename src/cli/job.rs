@@ -218,7 +218,7 @@ impl Job<'_> {
             let distance = crate::mask::distance::distance_to_known(&mask);
             (crate::mask::distance::holes_deeper_than(&mask, &distance, DEEP_HOLE_PX), Some(distance))
         };
-        let deep_warning = crate::report::deep_hole_warning(&deep, self.params.method);
+        let deep_warning = crate::report::deep_hole_warning(&deep, self.params.method, self.scientific);
         if let Some(w) = &deep_warning {
             say(format!("warning: '{}': {w}", input.display()));
         }

@@ -1530,7 +1530,7 @@ impl App {
         report.nodata_pixels = d.nodata_pixels;
         if let Some(depth) = &d.depth {
             report.deep_holes = depth.deep.iter().take(crate::report::HOLE_LIST_MAX).copied().collect();
-            report.deep_hole_warning = crate::report::deep_hole_warning(&depth.deep, fill.method);
+            report.deep_hole_warning = crate::report::deep_hole_warning(&depth.deep, fill.method, self.scientific);
         }
         report.skipped_pixels = d.skipped.iter().map(|h| h.pixels).sum();
         report.skipped_holes = d.skipped.iter().take(crate::report::HOLE_LIST_MAX).copied().collect();

@@ -443,6 +443,8 @@ pub struct Solver {
     biharmonic: Option<biharmonic::Hierarchy>,
     /// The mask (guided fill and grain need the holes themselves).
     mask: Mask,
+    /// Masked pixels.
+    unknowns: usize,
     width: usize,
     height: usize,
     setup_seconds: f64,
@@ -463,22 +465,7 @@ impl Solver {
     /// # Errors
     /// [`FillError::NoKnownPixels`] when every pixel is masked.
     pub fn with_structure(mask: &Mask, structure: Structure) -> Result<Self, FillError> {
-        let t0 = Instant::now();
-        let (width, height) = (mask.width(), mask.height());
-        let count = mask.bits().par_iter().filter(|&&b| b).count();
-        if count > 0 && count == width * height {
-            return Err(FillError::NoKnownPixels);
-        }
-        let parts = plan(mask, structure);
-        Ok(Self {
-            method: FillMethod::Harmonic,
-            parts,
-            biharmonic: None,
-            mask: mask.clone(),
-            width,
-            height,
-            setup_seconds: t0.elapsed().as_secs_f64(),
-        })
+        Self::build(mask, FillMethod::Harmonic, structure)
     }
 
     /// Builds what `method` needs for `mask`: the harmonic hierarchy, the biharmonic one, or
@@ -487,37 +474,31 @@ impl Solver {
     /// # Errors
     /// [`FillError::NoKnownPixels`] when every pixel is masked.
     pub fn for_method(mask: &Mask, method: FillMethod) -> Result<Self, FillError> {
-        match method {
-            FillMethod::Harmonic => Self::new(mask),
-            FillMethod::Biharmonic => {
-                let h = biharmonic::Hierarchy::new(mask)?;
-                let setup_seconds = h.setup_seconds();
-                Ok(Self {
-                    method,
-                    parts: Vec::new(),
-                    biharmonic: Some(h),
-                    mask: mask.clone(),
-                    width: mask.width(),
-                    height: mask.height(),
-                    setup_seconds,
-                })
-            }
-            FillMethod::Guided => {
-                let count = mask.count();
-                if count > 0 && count == mask.width() * mask.height() {
-                    return Err(FillError::NoKnownPixels);
-                }
-                Ok(Self {
-                    method,
-                    parts: Vec::new(),
-                    biharmonic: None,
-                    mask: mask.clone(),
-                    width: mask.width(),
-                    height: mask.height(),
-                    setup_seconds: 0.0,
-                })
-            }
+        Self::build(mask, method, Structure::Auto)
+    }
+
+    fn build(mask: &Mask, method: FillMethod, structure: Structure) -> Result<Self, FillError> {
+        let t0 = Instant::now();
+        let (width, height) = (mask.width(), mask.height());
+        let unknowns = mask.bits().par_iter().filter(|&&b| b).count();
+        if unknowns > 0 && unknowns == width * height {
+            return Err(FillError::NoKnownPixels);
         }
+        let (parts, biharmonic) = match method {
+            FillMethod::Harmonic => (plan(mask, structure), None),
+            FillMethod::Biharmonic => (Vec::new(), Some(biharmonic::Hierarchy::new(mask)?)),
+            FillMethod::Guided => (Vec::new(), None),
+        };
+        Ok(Self {
+            method,
+            parts,
+            biharmonic,
+            mask: mask.clone(),
+            unknowns,
+            width,
+            height,
+            setup_seconds: t0.elapsed().as_secs_f64(),
+        })
     }
 
     /// The method this solver was built for.
@@ -529,10 +510,7 @@ impl Solver {
     /// Number of unknowns (masked pixels).
     #[must_use]
     pub fn unknowns(&self) -> usize {
-        match self.method {
-            FillMethod::Harmonic => self.parts.iter().map(Part::unknowns).sum(),
-            _ => self.mask.count(),
-        }
+        self.unknowns
     }
 
     /// Multigrid levels of the deepest part (0 for an empty mask).
@@ -603,68 +581,30 @@ impl Solver {
         if params.method != self.method {
             return Err(FillError::WrongMethod { built: self.method, asked: params.method });
         }
+        let t0 = Instant::now();
         let mut report = match self.method {
-            FillMethod::Harmonic => self.solve_harmonic(planes, params, start, progress)?,
-            FillMethod::Biharmonic => {
-                let t0 = Instant::now();
+            FillMethod::Guided => in_pool(params.threads, || guided::fill(planes, &self.mask, params, progress))?,
+            method => {
                 let mut report = FillReport {
-                    method: self.method,
+                    method,
                     unknowns: self.unknowns(),
                     levels: self.depth(),
+                    channels: vec![ChannelReport::default(); planes.len()],
                     setup_seconds: self.setup_seconds,
                     ..FillReport::default()
                 };
                 if let Some(b) = &self.biharmonic {
-                    let mut run = || b.solve(planes, &self.mask, params, start, progress);
-                    report.channels = if params.threads == 0 {
-                        run()?
-                    } else {
-                        match rayon::ThreadPoolBuilder::new().num_threads(params.threads).build() {
-                            Ok(pool) => pool.install(run)?,
-                            Err(_) => run()?,
-                        }
-                    };
+                    report.channels = in_pool(params.threads, || b.solve(planes, &self.mask, params, start, progress))?;
+                } else if !self.parts.is_empty() {
+                    report.channels = in_pool(params.threads, || self.solve_parts(planes, params, start, progress))?;
                 }
                 report.solve_seconds = t0.elapsed().as_secs_f64();
                 report
             }
-            FillMethod::Guided => guided::fill(planes, &self.mask, params, progress)?,
         };
         if let Some(seed) = params.grain {
             report.grain = Some(grain::add(planes, &self.mask, seed));
         }
-        Ok(report)
-    }
-
-    fn solve_harmonic(
-        &self,
-        planes: &mut [&mut [f32]],
-        params: &FillParams,
-        start: Start,
-        progress: &mut (dyn FnMut(&Progress) -> bool + Send),
-    ) -> Result<FillReport, FillError> {
-        let t0 = Instant::now();
-        let mut report = FillReport {
-            method: params.method,
-            unknowns: self.unknowns(),
-            levels: self.depth(),
-            channels: vec![ChannelReport::default(); planes.len()],
-            setup_seconds: self.setup_seconds,
-            ..FillReport::default()
-        };
-        if self.parts.is_empty() {
-            return Ok(report);
-        }
-        let mut run = || self.solve_parts(planes, params, start, progress);
-        report.channels = if params.threads == 0 {
-            run()?
-        } else {
-            match rayon::ThreadPoolBuilder::new().num_threads(params.threads).build() {
-                Ok(pool) => pool.install(run)?,
-                Err(_) => run()?,
-            }
-        };
-        report.solve_seconds = t0.elapsed().as_secs_f64();
         Ok(report)
     }
 
@@ -723,6 +663,17 @@ impl Solver {
             }
         }
         Ok(reports)
+    }
+}
+
+/// Runs `run` on a pool of `threads` workers (0: rayon's global pool, all cores).
+fn in_pool<T: Send>(threads: usize, run: impl FnOnce() -> T + Send) -> T {
+    if threads == 0 {
+        return run();
+    }
+    match rayon::ThreadPoolBuilder::new().num_threads(threads).build() {
+        Ok(pool) => pool.install(run),
+        Err(_) => run(),
     }
 }
 

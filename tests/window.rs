@@ -36,6 +36,11 @@ fn harness() -> Harness<'static, App> {
     Harness::builder().with_size((1200.0, 800.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default())
 }
 
+/// A window tall enough that the whole tools panel shows without scrolling.
+fn tall_harness() -> Harness<'static, App> {
+    Harness::builder().with_size((1200.0, 1200.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default())
+}
+
 /// Steps until background work is done (at most about 10 s).
 fn settle(h: &mut Harness<'_, App>) {
     for _ in 0..1000 {
@@ -445,9 +450,7 @@ fn methods_grain_scientific_and_the_distance_view() {
     use reweave::fill::FillMethod;
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(dir.path());
-    // Tall enough that the whole tools panel shows without scrolling.
-    let mut h =
-        Harness::builder().with_size((1200.0, 1200.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default());
+    let mut h = tall_harness();
     open(&mut h, &input);
     // A wide box: its middle is about 18 px from any known pixel, deeper than the 16 px limit.
     h.get_by_label("Box").click();
@@ -462,7 +465,7 @@ fn methods_grain_scientific_and_the_distance_view() {
     h.get_by_label("Guided: texture from a matching area").click();
     h.run();
     assert_eq!(h.state().method, FillMethod::Guided);
-    h.get_by_label("Grain").click();
+    h.get_by_label("Matched noise").click();
     h.run();
     assert!(h.state().grain.is_some());
     assert!(h.query_by_label_contains("never measured").is_some(), "the texture caution is shown");
@@ -488,7 +491,7 @@ fn methods_grain_scientific_and_the_distance_view() {
     h.run();
     assert_eq!(h.state().method, FillMethod::Harmonic);
     assert!(h.state().grain.is_none());
-    h.get_by_label("Grain").click();
+    h.get_by_label("Matched noise").click();
     h.run();
     assert!(h.state().grain.is_none(), "grain stays off in the scientific profile");
 
@@ -516,8 +519,7 @@ fn a_dragged_source_is_used_for_its_hole() {
     use reweave::fill::FillMethod;
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(dir.path());
-    let mut h =
-        Harness::builder().with_size((1200.0, 1200.0)).build_ui_state(|ui, app: &mut App| app.ui(ui), App::default());
+    let mut h = tall_harness();
     open(&mut h, &input);
     h.get_by_label("Box").click();
     h.run();

@@ -845,8 +845,8 @@ impl App {
         });
         ui.horizontal(|ui| {
             let mut on = self.grain.is_some();
-            ui.add_enabled(!self.scientific, egui::Checkbox::new(&mut on, "Grain"))
-                .on_hover_text("Noise like the surroundings' added to filled pixels; the seed makes it repeatable.");
+            ui.add_enabled(!self.scientific, egui::Checkbox::new(&mut on, "Matched noise"))
+                .on_hover_text("Adds noise like that of each hole's surroundings to the filled pixels (the command line's --grain); the seed makes it repeatable.");
             let mut seed = self.grain.unwrap_or(1);
             let label = ui.label("seed");
             ui.add_enabled(on && !self.scientific, egui::DragValue::new(&mut seed)).labelled_by(label.id);

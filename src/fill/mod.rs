@@ -486,7 +486,7 @@ impl Solver {
         }
         let (parts, biharmonic) = match method {
             FillMethod::Harmonic => (plan(mask, structure), None),
-            FillMethod::Biharmonic => (Vec::new(), Some(biharmonic::Hierarchy::new(mask)?)),
+            FillMethod::Biharmonic => (Vec::new(), Some(biharmonic::Hierarchy::with_structure(mask, structure)?)),
             FillMethod::Guided => (Vec::new(), None),
         };
         Ok(Self {

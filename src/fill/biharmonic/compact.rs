@@ -1,0 +1,355 @@
+//! Index-list storage of the biharmonic hierarchy, for masks whose unknowns are a small share of
+//! their bounding box (scratches, scattered pixels): points sorted row-major with their
+//! neighbours' indices, so work and memory follow the unknowns however they are spread.
+
+use rayon::prelude::*;
+
+use super::{
+    COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, LevelWork, MIN_REDUCTION, NONE,
+    dense_coarsest, fine_row, square_index,
+};
+use crate::fill::{Cycle, FillParams};
+
+/// One level: points sorted row-major, their neighbours and operator rows, and the transfer to
+/// the next coarser level.
+#[derive(Debug)]
+pub(super) struct Level {
+    pub(super) n: usize,
+    /// Stencil slots per point (13 on level 0, 25 above).
+    k: usize,
+    nbr: Vec<u32>,
+    /// Operator rows, `k` entries each, slot 0 the diagonal: one per point on coarse levels, one
+    /// per image-edge class on level 0 (`class` picks it).
+    rows: Vec<f64>,
+    class: Vec<u8>,
+    /// Up to four parents on the next coarser level and their common weight (empty on the
+    /// coarsest level).
+    parents: Vec<[u32; 4]>,
+    pweight: Vec<f64>,
+}
+
+impl Level {
+    fn row(&self, i: usize) -> &[f64] {
+        let r = if self.class.is_empty() { i } else { usize::from(self.class[i]) };
+        &self.rows[r * self.k..(r + 1) * self.k]
+    }
+
+    /// `y` where the result lands, `A·u` for the points' rows.
+    pub(super) fn apply(&self, u: &[f64], out: &mut [f64]) {
+        out.par_iter_mut().enumerate().with_min_len(4096).for_each(|(i, o)| {
+            *o = self.row(i)[0] * u[i] + self.off_diagonal(i, u);
+        });
+    }
+
+    /// `Σ a_ij·u_j` over the neighbours of point `i`, in four partial sums (a single running
+    /// sum made the sweep wait on each multiply-add in turn).
+    #[inline]
+    fn off_diagonal(&self, i: usize, u: &[f64]) -> f64 {
+        let row = self.row(i);
+        let nb = &self.nbr[i * self.k..(i + 1) * self.k];
+        let term = |t: usize| {
+            let q = nb[t];
+            if q == NONE { 0.0 } else { row[t] * u[q as usize] }
+        };
+        let (mut a0, mut a1, mut a2, mut a3) = (0f64, 0f64, 0f64, 0f64);
+        let mut t = 1;
+        while t + 3 < self.k {
+            a0 += term(t);
+            a1 += term(t + 1);
+            a2 += term(t + 2);
+            a3 += term(t + 3);
+            t += 4;
+        }
+        while t < self.k {
+            a0 += term(t);
+            t += 1;
+        }
+        (a0 + a1) + (a2 + a3)
+    }
+
+    fn relax(&self, i: usize, u: &mut [f64], b: &[f64]) {
+        u[i] = (b[i] - self.off_diagonal(i, u)) / self.row(i)[0];
+    }
+
+    fn sweep(&self, u: &mut [f64], b: &[f64], backward: bool) {
+        if backward {
+            for i in (0..self.n).rev() {
+                self.relax(i, u, b);
+            }
+        } else {
+            for i in 0..self.n {
+                self.relax(i, u, b);
+            }
+        }
+    }
+}
+
+/// Points of a level in row-major order with a per-row index, for lookups by position.
+struct Points {
+    xs: Vec<u32>,
+    ys: Vec<u32>,
+    row_start: Vec<usize>,
+}
+
+impl Points {
+    fn new(pos: Vec<(u32, u32)>, h: usize) -> Self {
+        let mut row_start = vec![0usize; h + 1];
+        for &(_, y) in &pos {
+            row_start[y as usize + 1] += 1;
+        }
+        for y in 0..h {
+            row_start[y + 1] += row_start[y];
+        }
+        Self { xs: pos.iter().map(|p| p.0).collect(), ys: pos.iter().map(|p| p.1).collect(), row_start }
+    }
+
+    fn len(&self) -> usize {
+        self.xs.len()
+    }
+
+    #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+    fn find(&self, x: i64, y: i64) -> u32 {
+        if x < 0 || y < 0 || y as usize + 1 >= self.row_start.len() {
+            return NONE;
+        }
+        let (a, b) = (self.row_start[y as usize], self.row_start[y as usize + 1]);
+        match self.xs[a..b].binary_search(&(x as u32)) {
+            Ok(k) => crate::mask::index_u32(a + k),
+            Err(_) => NONE,
+        }
+    }
+
+    fn at(&self, i: usize) -> (i64, i64) {
+        (i64::from(self.xs[i]), i64::from(self.ys[i]))
+    }
+}
+
+fn neighbours(points: &Points, offsets: &[(i64, i64)]) -> Vec<u32> {
+    (0..points.len())
+        .into_par_iter()
+        .flat_map_iter(|i| {
+            let (x, y) = points.at(i);
+            offsets.iter().map(move |&(dx, dy)| points.find(x + dx, y + dy))
+        })
+        .collect()
+}
+
+#[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
+fn coarsen(fine: &Level, points: &Points, h: usize) -> (Points, Vec<[u32; 4]>, Vec<f64>) {
+    let pos: Vec<(u32, u32)> = (0..points.len())
+        .filter(|&i| points.xs[i].is_multiple_of(2) && points.ys[i].is_multiple_of(2))
+        .map(|i| (points.xs[i] / 2, points.ys[i] / 2))
+        .collect();
+    let coarse = Points::new(pos, h.div_ceil(2));
+    let (parents, weights): (Vec<[u32; 4]>, Vec<f64>) = (0..fine.n)
+        .into_par_iter()
+        .map(|i| {
+            let (x, y) = points.at(i);
+            let xs: &[i64] = if x % 2 == 0 { &[x / 2, x / 2] } else { &[(x - 1) / 2, (x + 1) / 2] };
+            let ys: &[i64] = if y % 2 == 0 { &[y / 2, y / 2] } else { &[(y - 1) / 2, (y + 1) / 2] };
+            let nominal = (if x % 2 == 0 { 1.0 } else { 2.0 }) * (if y % 2 == 0 { 1.0 } else { 2.0 });
+            let mut p = [NONE; 4];
+            let mut k = 0;
+            for (j, &py) in ys.iter().enumerate() {
+                if j == 1 && y % 2 == 0 {
+                    break;
+                }
+                for (m, &px) in xs.iter().enumerate() {
+                    if m == 1 && x % 2 == 0 {
+                        break;
+                    }
+                    p[k] = coarse.find(px, py);
+                    k += 1;
+                }
+            }
+            (p, 1.0 / nominal)
+        })
+        .unzip();
+    (coarse, parents, weights)
+}
+
+/// The Galerkin operator `Pᵀ·A·P` on the coarse points, one 5×5 row each.
+#[allow(clippy::cast_possible_wrap)]
+fn galerkin(fine: &Level, fine_points: &Points, coarse: &Points, parents: &[[u32; 4]], weights: &[f64]) -> Vec<f64> {
+    (0..coarse.len())
+        .into_par_iter()
+        .flat_map_iter(|c| {
+            let (cx, cy) = coarse.at(c);
+            let mut row = [0f64; 25];
+            for dy in -1..=1 {
+                for dx in -1..=1 {
+                    let f = fine_points.find(2 * cx + dx, 2 * cy + dy);
+                    if f == NONE {
+                        continue;
+                    }
+                    let f = f as usize;
+                    if !parents[f].contains(&crate::mask::index_u32(c)) {
+                        continue;
+                    }
+                    let wf = weights[f];
+                    let frow = fine.row(f);
+                    for (&g, &a) in fine.nbr[f * fine.k..(f + 1) * fine.k].iter().zip(frow) {
+                        if g == NONE || a == 0.0 {
+                            continue;
+                        }
+                        let g = g as usize;
+                        for &p in &parents[g] {
+                            if p != NONE {
+                                let (px, py) = coarse.at(p as usize);
+                                row[square_index((px - cx, py - cy))] += wf * a * weights[g];
+                            }
+                        }
+                    }
+                }
+            }
+            COARSE.iter().map(move |&o| row[square_index(o)]).collect::<Vec<_>>()
+        })
+        .collect()
+}
+
+/// The levels of one mask, finest first.
+#[derive(Debug)]
+pub(super) struct Levels {
+    pub(super) levels: Vec<Level>,
+    coarsest: Coarsest,
+}
+
+impl Levels {
+    /// The hierarchy of the unknowns at `pos` (row-major) in a `w × h` image.
+    #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap)]
+    pub(super) fn new(pos: Vec<(u32, u32)>, w: usize, h: usize) -> Self {
+        let mut points = Points::new(pos, h);
+        // Level 0: one row per image-edge class (distances to the four edges, capped at 2).
+        let clamp = |v: i64| v.min(2) as usize;
+        let mut class_of = [u8::MAX; 81];
+        let mut rows = Vec::new();
+        let mut class = Vec::with_capacity(points.len());
+        for i in 0..points.len() {
+            let (x, y) = points.at(i);
+            let key = clamp(x) + 3 * clamp(w as i64 - 1 - x) + 9 * clamp(y) + 27 * clamp(h as i64 - 1 - y);
+            if class_of[key] == u8::MAX {
+                class_of[key] = (rows.len() / FINE.len()) as u8;
+                let square = fine_row(x, y, w as i64, h as i64);
+                rows.extend(FINE.iter().map(|&o| square[square_index(o)]));
+            }
+            class.push(class_of[key]);
+        }
+        let nbr = neighbours(&points, &FINE);
+        let mut levels =
+            vec![Level { n: points.len(), k: FINE.len(), nbr, rows, class, parents: Vec::new(), pweight: Vec::new() }];
+        let mut lh = h;
+        while let Some(fine) = levels.last_mut() {
+            if fine.n <= COARSEST_MAX {
+                break;
+            }
+            let (coarse, parents, weights) = coarsen(fine, &points, lh);
+            #[allow(clippy::cast_precision_loss)]
+            if coarse.len() == 0 || coarse.len() as f64 > MIN_REDUCTION * fine.n as f64 {
+                break;
+            }
+            let rows = galerkin(fine, &points, &coarse, &parents, &weights);
+            fine.parents = parents;
+            fine.pweight = weights;
+            let nbr = neighbours(&coarse, &COARSE);
+            levels.push(Level {
+                n: coarse.len(),
+                k: COARSE.len(),
+                nbr,
+                rows,
+                class: Vec::new(),
+                parents: Vec::new(),
+                pweight: Vec::new(),
+            });
+            points = coarse;
+            lh = lh.div_ceil(2);
+        }
+        let coarsest = match levels.last() {
+            Some(last) if last.n <= DENSE_MAX => dense_coarsest(last.n, |i, add| {
+                let row = last.row(i);
+                for (&j, &v) in last.nbr[i * last.k..(i + 1) * last.k].iter().zip(row) {
+                    if j != NONE {
+                        add(j as usize, v);
+                    }
+                }
+            }),
+            _ => Coarsest::Relax,
+        };
+        Self { levels, coarsest }
+    }
+
+    /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork], params: &FillParams, kind: Cycle) {
+        let level = &self.levels[l];
+        let (head, tail) = work.split_at_mut(l + 1);
+        let w = &mut head[l];
+        w.u.fill(0.0);
+        if l + 1 == self.levels.len() {
+            match &self.coarsest {
+                Coarsest::Dense(ch) => {
+                    w.u.copy_from_slice(&w.b);
+                    ch.solve_in_place(&mut w.u);
+                }
+                Coarsest::Relax => {
+                    for _ in 0..COARSEST_SWEEPS {
+                        level.sweep(&mut w.u, &w.b, false);
+                        level.sweep(&mut w.u, &w.b, true);
+                    }
+                }
+            }
+            return;
+        }
+        let sweeps = if l == 0 { params.pre_smooth.max(1) } else { COARSE_SWEEPS };
+        for _ in 0..sweeps {
+            level.sweep(&mut w.u, &w.b, false);
+        }
+        level.apply(&w.u, &mut w.r);
+        let next = &mut tail[0];
+        next.b.fill(0.0);
+        for i in 0..level.n {
+            let r = w.b[i] - w.r[i];
+            for &p in &level.parents[i] {
+                if p != NONE {
+                    next.b[p as usize] += level.pweight[i] * r;
+                }
+            }
+        }
+        let (first, second) = match kind {
+            Cycle::V => (Cycle::V, None),
+            Cycle::W => (Cycle::W, Some(Cycle::W)),
+            Cycle::F => (Cycle::F, Some(Cycle::V)),
+        };
+        self.cycle(l + 1, work, params, first);
+        if let Some(second) = second
+            && l + 2 < self.levels.len()
+        {
+            // A second visit, on what the first left of the coarse residual.
+            let coarse = &self.levels[l + 1];
+            let next = &mut work[l + 1];
+            next.keep.copy_from_slice(&next.u);
+            coarse.apply(&next.u, &mut next.r);
+            for (b, ax) in next.b.iter_mut().zip(&next.r) {
+                *b -= ax;
+            }
+            self.cycle(l + 1, work, params, second);
+            let next = &mut work[l + 1];
+            for (u, k) in next.u.iter_mut().zip(&next.keep) {
+                *u += k;
+            }
+        }
+        let (head, tail) = work.split_at_mut(l + 1);
+        let (w, next) = (&mut head[l], &tail[0]);
+        for i in 0..level.n {
+            let mut e = 0.0;
+            for &p in &level.parents[i] {
+                if p != NONE {
+                    e += next.u[p as usize];
+                }
+            }
+            w.u[i] += level.pweight[i] * e;
+        }
+        for _ in 0..sweeps {
+            level.sweep(&mut w.u, &w.b, true);
+        }
+    }
+}
+

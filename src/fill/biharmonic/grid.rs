@@ -1,0 +1,729 @@
+//! Grid storage of the biharmonic hierarchy, for masks whose unknowns fill a good share of their
+//! bounding box (wide holes, dropout).
+//!
+//! Every level is a grid over its points' bounding box with two empty cells around it (the reach
+//! of the 5×5 stencils); cells that are not points hold zero in every vector. So a stencil reads
+//! its neighbours at fixed offsets instead of through index lists, interpolation leaves out
+//! missing parents by reading their zeros, and restriction gathers from the children's cells.
+//! Rows of the operator are stored once per kind: on the finest level one per image-edge class,
+//! on coarse levels one shared row for every point whose Galerkin row sees only interior points
+//! of the finer level (most of a wide hole) and one of its own for the rest.
+
+use std::ops::Range;
+
+use rayon::prelude::*;
+
+use super::{
+    COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, Layout, LevelWork,
+    MIN_REDUCTION, dense_coarsest, fine_row, square_index,
+};
+use crate::fill::{Cycle, FillParams};
+
+/// Empty cells around the points' bounding box.
+const PAD: i64 = 2;
+
+/// Interpolation weight of a coordinate: 1 on a coarse line, ½ between two.
+fn weight(v: i64) -> f64 {
+    if v.rem_euclid(2) == 0 { 1.0 } else { 0.5 }
+}
+
+/// The coarse coordinates a fine coordinate interpolates from.
+fn parents(v: i64) -> ([i64; 2], usize) {
+    if v.rem_euclid(2) == 0 { ([v / 2, v / 2], 1) } else { ([(v - 1).div_euclid(2), (v + 1).div_euclid(2)], 2) }
+}
+
+#[derive(Debug)]
+struct Level {
+    /// Level coordinates of cell 0, cells per grid row.
+    x0: i64,
+    y0: i64,
+    stride: usize,
+    /// The points' bounding box (level coordinates, inclusive).
+    bbox: (i64, i64, i64, i64),
+    /// Point index + 1 of every cell, 0 where the cell is not a point.
+    index: Vec<u32>,
+    /// Row-major runs of points: first cell, end cell, first point (the layout's spans). Once
+    /// the rows are set, a run is either all interior points (`interior`) or all others.
+    runs: Vec<(usize, usize, usize)>,
+    interior: Vec<bool>,
+    /// Ranges of `runs` a sweep relaxes in parallel: bands of rows, then the two-row seams
+    /// between them.
+    bands: Vec<Range<usize>>,
+    seams: Vec<Range<usize>>,
+    layout: Layout,
+    n: usize,
+    /// Stencil offsets in level coordinates (centre first) and in cells.
+    offsets: &'static [(i64, i64)],
+    cell_off: Vec<isize>,
+    /// Each point's row in `table` (`offsets.len()` coefficients a row; row 0 the interior row).
+    row: Vec<u32>,
+    table: Vec<f64>,
+    inv_diag: Vec<f64>,
+    /// The shared row as (coefficient, cell offset) terms.
+    shared_terms: Vec<(f64, isize)>,
+    /// For forward and backward sweeps: the slots of the nearer and farther same-row neighbours
+    /// relaxed before a point, and the shared row's other off-diagonal terms.
+    recurrence: [(usize, usize, Vec<(f64, isize)>); 2],
+}
+
+impl Level {
+    /// A level whose points are the `runs` (`y`, `x` from, `x` to exclusive), row-major, on a grid
+    /// that covers `bbox` (inclusive) with [`PAD`] empty cells around.
+    #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
+    fn new(runs_xy: &[(i64, i64, i64)], bbox: (i64, i64, i64, i64), offsets: &'static [(i64, i64)]) -> Self {
+        let (x0, y0) = (bbox.0 - PAD, bbox.1 - PAD);
+        let stride = (bbox.2 - bbox.0 + 1 + 2 * PAD) as usize;
+        let rows = (bbox.3 - bbox.1 + 1 + 2 * PAD) as usize;
+        // Zeroed allocations are mapped lazily: cells never written cost no memory.
+        let mut index = vec![0u32; stride * rows];
+        let mut runs = Vec::with_capacity(runs_xy.len());
+        let mut n = 0usize;
+        let mut points = (i64::MAX, i64::MAX, i64::MIN, i64::MIN);
+        for &(y, a, b) in runs_xy {
+            let s = (y - y0) as usize * stride + (a - x0) as usize;
+            let len = (b - a) as usize;
+            for (k, cell) in index[s..s + len].iter_mut().enumerate() {
+                *cell = crate::mask::index_u32(n + k + 1);
+            }
+            runs.push((s, s + len, n));
+            n += len;
+            points = (points.0.min(a), points.1.min(y), points.2.max(b - 1), points.3.max(y));
+        }
+        let cell_off = offsets.iter().map(|&(dx, dy)| dy as isize * stride as isize + dx as isize).collect();
+        let layout = Layout::new(runs.iter().map(|&(s, e, _)| (s, e)).collect());
+        let (bands, seams) = bands(&runs, stride, rows);
+        Self {
+            x0,
+            y0,
+            stride,
+            bbox: points,
+            index,
+            interior: vec![false; runs.len()],
+            runs,
+            bands,
+            seams,
+            layout,
+            n,
+            offsets,
+            cell_off,
+            row: Vec::new(),
+            table: Vec::new(),
+            inv_diag: Vec::new(),
+            shared_terms: Vec::new(),
+            recurrence: [(0, 0, Vec::new()), (0, 0, Vec::new())],
+        }
+    }
+
+    fn k(&self) -> usize {
+        self.offsets.len()
+    }
+
+    /// The cell of level coordinates `(x, y)`, if on the grid.
+    #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
+    fn cell(&self, x: i64, y: i64) -> Option<usize> {
+        let (cx, cy) = (x - self.x0, y - self.y0);
+        (cx >= 0 && cy >= 0 && (cx as usize) < self.stride && (cy as usize) < self.index.len() / self.stride)
+            .then(|| cy as usize * self.stride + cx as usize)
+    }
+
+    /// The point at `(x, y)`.
+    fn point(&self, x: i64, y: i64) -> Option<usize> {
+        self.cell(x, y).and_then(|c| self.index[c].checked_sub(1)).map(|p| p as usize)
+    }
+
+    /// Level coordinates of cell `c`.
+    #[allow(clippy::cast_possible_wrap)]
+    fn at(&self, c: usize) -> (i64, i64) {
+        (self.x0 + (c % self.stride) as i64, self.y0 + (c / self.stride) as i64)
+    }
+
+    fn row_of(&self, p: usize) -> &[f64] {
+        let k = self.k();
+        let r = self.row[p] as usize;
+        &self.table[r * k..(r + 1) * k]
+    }
+
+    fn set_rows(&mut self, row: Vec<u32>, table: Vec<f64>) {
+        let k = self.k();
+        self.inv_diag = table.chunks_exact(k).map(|r| 1.0 / r[0]).collect();
+        self.shared_terms = table[..k].iter().copied().zip(self.cell_off.iter().copied()).collect();
+        let slot = |o: (i64, i64)| self.offsets.iter().position(|&q| q == o).expect("same-row neighbours");
+        self.recurrence = [((-1, 0), (-2, 0)), ((1, 0), (2, 0))].map(|(near, far)| {
+            let (near, far) = (slot(near), slot(far));
+            let terms = (1..k).filter(|&t| t != near && t != far).map(|t| self.shared_terms[t]).collect();
+            (near, far, terms)
+        });
+        // Split the runs where points change between interior and other.
+        let mut runs = Vec::with_capacity(self.runs.len());
+        let mut interior = Vec::with_capacity(self.runs.len());
+        for &(s, e, p0) in &self.runs {
+            let mut a = s;
+            while a < e {
+                let inner = row[p0 + a - s] == 0;
+                let len = row[p0 + a - s..p0 + e - s].iter().take_while(|&&r| (r == 0) == inner).count();
+                runs.push((a, a + len, p0 + a - s));
+                interior.push(inner);
+                a += len;
+            }
+        }
+        self.layout = Layout::new(runs.iter().map(|&(s, e, _)| (s, e)).collect());
+        (self.bands, self.seams) = bands(&runs, self.stride, self.index.len() / self.stride);
+        self.runs = runs;
+        self.interior = interior;
+        self.row = row;
+        self.table = table;
+    }
+
+    /// `out = b − A·u` (or `A·u` without `b`) at the points.
+    fn residual(&self, u: &[f64], b: Option<&[f64]>, out: &mut [f64]) {
+        match self.k() {
+            13 => self.residual_k::<13>(u, b, out),
+            _ => self.residual_k::<25>(u, b, out),
+        }
+    }
+
+    fn residual_k<const K: usize>(&self, u: &[f64], b: Option<&[f64]>, out: &mut [f64]) {
+        let off: &[isize; K] = self.cell_off.as_slice().try_into().expect("stencil size");
+        let all = &self.shared_terms;
+        self.layout.for_each_mut(out, |span, s, out| {
+            let p0 = self.runs[span].2;
+            if self.interior[span] {
+                // The shared row, vectorised over the run.
+                for (q, seg) in out.chunks_mut(CHUNK).enumerate() {
+                    let (k, n) = (q * CHUNK, seg.len());
+                    match b {
+                        Some(b) => seg.copy_from_slice(&b[s + k..s + k + n]),
+                        None => seg.fill(0.0),
+                    }
+                    subtract_terms(seg, |o| &u[(s + k).wrapping_add_signed(o)..][..n], all);
+                    if b.is_none() {
+                        seg.iter_mut().for_each(|v| *v = -*v);
+                    }
+                }
+            } else {
+                for (j, o) in out.iter_mut().enumerate() {
+                    let (c, r) = (s + j, self.row[p0 + j] as usize);
+                    let a: &[f64; K] = self.table[r * K..(r + 1) * K].try_into().expect("row");
+                    let au = a[0] * u[c] + off_diagonal(a, |i| u[i], c, off);
+                    *o = b.map_or(au, |b| b[c] - au);
+                }
+            }
+        });
+    }
+
+    /// One lexicographic Gauss-Seidel sweep, forward or backward: the bands in parallel, then
+    /// the seams between them (backward: the other way round, so the pair is symmetric).
+    fn sweep(&self, u: &mut [f64], b: &[f64], backward: bool) {
+        let shared = Shared(u.as_mut_ptr(), u.len());
+        let phase = |parts: &[Range<usize>]| {
+            let task = |runs: &Range<usize>| {
+                let runs = runs.clone();
+                // SAFETY: the parts of one phase are at least three grid rows apart, beyond the
+                // stencils' reach of two, so no task reads or writes a row another task writes.
+                unsafe {
+                    match self.k() {
+                        13 => self.sweep_runs::<13>(shared, b, runs, backward),
+                        _ => self.sweep_runs::<25>(shared, b, runs, backward),
+                    }
+                }
+            };
+            if parts.len() > 1 {
+                parts.par_iter().for_each(task);
+            } else {
+                parts.iter().for_each(task);
+            }
+        };
+        if backward {
+            phase(&self.seams);
+            phase(&self.bands);
+        } else {
+            phase(&self.bands);
+            phase(&self.seams);
+        }
+    }
+
+    /// Relaxes the points of `runs` (indices) in order (or in reverse). On a run of interior points
+    /// every term but the two same-row neighbours already visited is known before the stretch is
+    /// relaxed, so those terms are summed over it at once (vectorised) and only a two-term
+    /// recurrence runs point by point.
+    ///
+    /// # Safety
+    /// `u` is valid for the level's grid, and no other thread accesses the rows of `runs` or
+    /// writes the rows within two of them.
+    unsafe fn sweep_runs<const K: usize>(&self, u: Shared, b: &[f64], runs: Range<usize>, backward: bool) {
+        let off: &[isize; K] = self.cell_off.as_slice().try_into().expect("stencil size");
+        let (near, far, terms) = &self.recurrence[usize::from(backward)];
+        let (near, far) = (*near, *far);
+        let inv = self.inv_diag[0];
+        let (a_near, a_far) = (self.table[near] * inv, self.table[far] * inv);
+        // SAFETY (all accesses below): cells of this task's rows and their stencil neighbours,
+        // inside the grid because points are at least two cells from its edge.
+        let relax = |c: usize, p: usize| {
+            let r = self.row[p] as usize;
+            let a: &[f64; K] = self.table[r * K..(r + 1) * K].try_into().expect("row");
+            let v = (b[c] - off_diagonal(a, |i| unsafe { u.get(i) }, c, off)) * self.inv_diag[r];
+            unsafe { u.set(c, v) };
+        };
+        let mut rest = [0f64; CHUNK];
+        // Relaxes the interior points `c0..c0 + len` in the sweep's direction.
+        let mut interior = |c0: usize, len: usize| {
+            let chunks = len.div_ceil(CHUNK);
+            for q in 0..chunks {
+                let k = if backward { chunks - 1 - q } else { q };
+                let (a, z) = (c0 + k * CHUNK, (c0 + (k + 1) * CHUNK).min(c0 + len));
+                let rest = &mut rest[..z - a];
+                rest.copy_from_slice(&b[a..z]);
+                subtract_terms(rest, |o| unsafe { u.slice(a.wrapping_add_signed(o), z - a) }, terms);
+                if backward {
+                    let (mut n1, mut n2) = unsafe { (u.get(z), u.get(z + 1)) };
+                    for (c, r) in (a..z).zip(rest.iter()).rev() {
+                        let v = (r * inv - a_far * n2) - a_near * n1;
+                        unsafe { u.set(c, v) };
+                        (n2, n1) = (n1, v);
+                    }
+                } else {
+                    let (mut n1, mut n2) = unsafe { (u.get(a - 1), u.get(a - 2)) };
+                    for (c, r) in (a..z).zip(rest.iter()) {
+                        let v = (r * inv - a_far * n2) - a_near * n1;
+                        unsafe { u.set(c, v) };
+                        (n2, n1) = (n1, v);
+                    }
+                }
+            }
+        };
+        let mut run = |k: usize| {
+            let (s, e, p0) = self.runs[k];
+            if self.interior[k] {
+                interior(s, e - s);
+            } else if backward {
+                for c in (s..e).rev() {
+                    relax(c, p0 + c - s);
+                }
+            } else {
+                for c in s..e {
+                    relax(c, p0 + c - s);
+                }
+            }
+        };
+        if backward {
+            runs.rev().for_each(&mut run);
+        } else {
+            runs.for_each(&mut run);
+        }
+    }
+}
+
+/// A level's vector shared by the tasks of one sweep phase, which touch disjoint rows.
+#[derive(Clone, Copy)]
+struct Shared(*mut f64, usize);
+// SAFETY: see `Level::sweep`: the tasks of a phase never touch a row another task writes.
+unsafe impl Send for Shared {}
+// SAFETY: as above.
+unsafe impl Sync for Shared {}
+
+impl Shared {
+    /// # Safety
+    /// `c` is in bounds and no other thread writes it.
+    unsafe fn get(self, c: usize) -> f64 {
+        debug_assert!(c < self.1);
+        // SAFETY: the caller's contract.
+        unsafe { *self.0.add(c) }
+    }
+
+    /// # Safety
+    /// `c` is in bounds and no other thread reads or writes it.
+    unsafe fn set(self, c: usize, v: f64) {
+        debug_assert!(c < self.1);
+        // SAFETY: the caller's contract.
+        unsafe { *self.0.add(c) = v };
+    }
+
+    /// # Safety
+    /// `c..c + n` is in bounds and nothing writes it while the slice lives.
+    unsafe fn slice<'a>(self, c: usize, n: usize) -> &'a [f64] {
+        debug_assert!(c + n <= self.1);
+        // SAFETY: the caller's contract.
+        unsafe { std::slice::from_raw_parts(self.0.add(c), n) }
+    }
+}
+
+/// Points summed at once on a stretch of interior points.
+const CHUNK: usize = 64;
+
+/// `acc[j] −= Σ a·u_o[j]` over the `(a, o)` terms, where `slice(o)` is `u` shifted by `o` cells,
+/// two terms a pass.
+fn subtract_terms<'a>(acc: &mut [f64], slice: impl Fn(isize) -> &'a [f64], terms: &[(f64, isize)]) {
+    let mut pairs = terms.chunks_exact(2);
+    for pair in &mut pairs {
+        let ((a1, o1), (a2, o2)) = (pair[0], pair[1]);
+        for ((x, p), q) in acc.iter_mut().zip(slice(o1)).zip(slice(o2)) {
+            *x -= a1 * p + a2 * q;
+        }
+    }
+    for &(a, o) in pairs.remainder() {
+        for (x, p) in acc.iter_mut().zip(slice(o)) {
+            *x -= a * p;
+        }
+    }
+}
+
+/// `Σ a_t·u(c + off_t)` over the neighbours, in four partial sums.
+#[inline]
+fn off_diagonal<const K: usize>(a: &[f64; K], u: impl Fn(usize) -> f64, c: usize, off: &[isize; K]) -> f64 {
+    let at = |t: usize| a[t] * u(c.wrapping_add_signed(off[t]));
+    let (mut s0, mut s1, mut s2, mut s3) = (0f64, 0f64, 0f64, 0f64);
+    let mut t = 1;
+    while t + 3 < K {
+        s0 += at(t);
+        s1 += at(t + 1);
+        s2 += at(t + 2);
+        s3 += at(t + 3);
+        t += 4;
+    }
+    while t < K {
+        s0 += at(t);
+        t += 1;
+    }
+    (s0 + s1) + (s2 + s3)
+}
+
+/// Rows a band has at least.
+const BAND_ROWS: usize = 48;
+/// Bands a sweep has at most (a fixed split, so results do not depend on the thread count).
+const MAX_BANDS: usize = 8;
+/// Rows between bands: the stencils reach two rows.
+const SEAM_ROWS: usize = 2;
+
+/// Splits `runs` (row-major on a grid of `rows` rows of `stride` cells) into bands of rows and
+/// the seams between them.
+fn bands(runs: &[(usize, usize, usize)], stride: usize, rows: usize) -> (Vec<Range<usize>>, Vec<Range<usize>>) {
+    let count = (rows / BAND_ROWS).clamp(1, MAX_BANDS);
+    let first_run = |row: usize| runs.partition_point(|&(s, _, _)| s < row * stride);
+    let mut bands = Vec::with_capacity(count);
+    let mut seams = Vec::with_capacity(count - 1);
+    let mut start = 0;
+    for k in 1..=count {
+        let cut = k * rows / count;
+        if k == count {
+            bands.push(first_run(start)..runs.len());
+        } else {
+            bands.push(first_run(start)..first_run(cut));
+            seams.push(first_run(cut)..first_run(cut + SEAM_ROWS));
+            start = cut + SEAM_ROWS;
+        }
+    }
+    (bands, seams)
+}
+
+/// The finest level of a `w × h` image's mask given by its row runs.
+#[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap)]
+fn finest(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Level {
+    let runs_xy: Vec<(i64, i64, i64)> = runs
+        .iter()
+        .enumerate()
+        .flat_map(|(y, row)| row.iter().map(move |&(a, b)| (y as i64, i64::from(a), i64::from(b))))
+        .collect();
+    let bbox = runs_xy.iter().fold((i64::MAX, i64::MAX, i64::MIN, i64::MIN), |b, &(y, a, e)| {
+        (b.0.min(a), b.1.min(y), b.2.max(e - 1), b.3.max(y))
+    });
+    let mut level = Level::new(&runs_xy, bbox, &FINE);
+    let (w, h) = (w as i64, h as i64);
+    // One row per image-edge class (distances to the four edges, capped at 2); the interior
+    // class is row 0.
+    let clamp = |v: i64| v.min(2) as usize;
+    let mut class_of = [u32::MAX; 81];
+    class_of[80] = 0;
+    let mut table: Vec<f64> = {
+        let square = fine_row(2, 2, 5, 5);
+        FINE.iter().map(|&o| square[square_index(o)]).collect()
+    };
+    let mut row = Vec::with_capacity(level.n);
+    for &(y, a, b) in &runs_xy {
+        let yk = 9 * clamp(y) + 27 * clamp(h - 1 - y);
+        for x in a..b {
+            let key = clamp(x) + 3 * clamp(w - 1 - x) + yk;
+            if class_of[key] == u32::MAX {
+                class_of[key] = (table.len() / FINE.len()) as u32;
+                let square = fine_row(x, y, w, h);
+                table.extend(FINE.iter().map(|&o| square[square_index(o)]));
+            }
+            row.push(class_of[key]);
+        }
+    }
+    level.set_rows(row, table);
+    level
+}
+
+/// The level below `fine`: its points with both coordinates even, Galerkin rows `Pᵀ·A·P`.
+fn coarsen(fine: &Level) -> Level {
+    let mut runs_xy = Vec::new();
+    for &(s, e, _) in &fine.runs {
+        let ((a, y), b) = (fine.at(s), fine.at(e - 1).0 + 1);
+        if y.rem_euclid(2) != 0 {
+            continue;
+        }
+        let (ca, cb) = ((a + 1).div_euclid(2), (b - 1).div_euclid(2) + 1);
+        if ca < cb {
+            runs_xy.push((y.div_euclid(2), ca, cb));
+        }
+    }
+    // Cover every parent of a fine point, not just the coarse points.
+    let fb = fine.bbox;
+    let bbox = (fb.0.div_euclid(2), fb.1.div_euclid(2), fb.2.div_euclid(2) + 1, fb.3.div_euclid(2) + 1);
+    let mut coarse = Level::new(&runs_xy, bbox, &COARSE);
+    // Interior fine points in a row to the right of each (itself included), within its run.
+    let mut interior_right = vec![0u32; fine.n];
+    for &(s, e, p0) in &fine.runs {
+        let mut count = 0u32;
+        for p in (p0..p0 + e - s).rev() {
+            count = if fine.row[p] == 0 { count + 1 } else { 0 };
+            interior_right[p] = count;
+        }
+    }
+    // A coarse point whose 9×9 fine neighbourhood is all interior points has the shared row.
+    let shared = |x: i64, y: i64| {
+        (-4..=4).all(|dy| fine.point(2 * x - 4, 2 * y + dy).is_some_and(|p| interior_right[p] >= 9))
+    };
+    let rows: Vec<Option<[f64; 25]>> = coarse
+        .runs
+        .par_iter()
+        .flat_map_iter(|&(s, e, _)| {
+            let coarse = &coarse;
+            (s..e).map(move |c| {
+                let (x, y) = coarse.at(c);
+                (!shared(x, y)).then(|| galerkin_row(fine, coarse, x, y))
+            })
+        })
+        .collect();
+    let mut table = vec![0f64; COARSE.len()];
+    let mut shared_done = false;
+    let mut row = Vec::with_capacity(coarse.n);
+    let mut next = 1u32;
+    for (p, r) in rows.iter().enumerate() {
+        match r {
+            Some(square) => {
+                table.extend(COARSE.iter().map(|&o| square[square_index(o)]));
+                row.push(next);
+                next += 1;
+            }
+            None => {
+                if !shared_done {
+                    let c = coarse.runs.partition_point(|&(_, _, p0)| p0 <= p) - 1;
+                    let (s, _, p0) = coarse.runs[c];
+                    let (x, y) = coarse.at(s + p - p0);
+                    let square = galerkin_row(fine, &coarse, x, y);
+                    for (t, &o) in COARSE.iter().enumerate() {
+                        table[t] = square[square_index(o)];
+                    }
+                    shared_done = true;
+                }
+                row.push(0);
+            }
+        }
+    }
+    if !shared_done {
+        // No point uses row 0; a unit diagonal keeps its inverse finite.
+        table[0] = 1.0;
+    }
+    coarse.set_rows(row, table);
+    coarse
+}
+
+/// Row `(x, y)` of `Pᵀ·A·P` on the 5×5 square: `Σ w_f·a_fg·w_g` over the fine children `f` of
+/// the point, their neighbours `g` and the parents of `g`.
+fn galerkin_row(fine: &Level, coarse: &Level, x: i64, y: i64) -> [f64; 25] {
+    let mut row = [0f64; 25];
+    for dy in -1..=1 {
+        for dx in -1..=1 {
+            let (fx, fy) = (2 * x + dx, 2 * y + dy);
+            let Some(f) = fine.point(fx, fy) else { continue };
+            let wf = weight(fx) * weight(fy);
+            for (&a, &(ox, oy)) in fine.row_of(f).iter().zip(fine.offsets) {
+                let (gx, gy) = (fx + ox, fy + oy);
+                if a == 0.0 || fine.point(gx, gy).is_none() {
+                    continue;
+                }
+                let wg = wf * a * weight(gx) * weight(gy);
+                let ((px, nx), (py, ny)) = (parents(gx), parents(gy));
+                for &qy in &py[..ny] {
+                    for &qx in &px[..nx] {
+                        if coarse.point(qx, qy).is_some() {
+                            row[square_index((qx - x, qy - y))] += wg;
+                        }
+                    }
+                }
+            }
+        }
+    }
+    row
+}
+
+/// The levels of one mask, finest first.
+#[derive(Debug)]
+pub(super) struct Levels {
+    levels: Vec<Level>,
+    coarsest: Coarsest,
+}
+
+impl Levels {
+    pub(super) fn new(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Self {
+        let mut levels = vec![finest(runs, w, h)];
+        while let Some(fine) = levels.last() {
+            if fine.n <= COARSEST_MAX {
+                break;
+            }
+            let coarse = coarsen(fine);
+            #[allow(clippy::cast_precision_loss)]
+            if coarse.n == 0 || coarse.n as f64 > MIN_REDUCTION * fine.n as f64 {
+                break;
+            }
+            levels.push(coarse);
+        }
+        let coarsest = match levels.last() {
+            Some(last) if last.n <= DENSE_MAX => dense_coarsest(last.n, |i, add| {
+                let c = last.runs.partition_point(|&(_, _, p0)| p0 <= i) - 1;
+                let (s, _, p0) = last.runs[c];
+                let cell = s + i - p0;
+                for (&a, &o) in last.row_of(i).iter().zip(&last.cell_off) {
+                    let j = last.index[cell.wrapping_add_signed(o)];
+                    if j > 0 {
+                        add(j as usize - 1, a);
+                    }
+                }
+            }),
+            _ => Coarsest::Relax,
+        };
+        Self { levels, coarsest }
+    }
+
+    pub(super) fn depth(&self) -> usize {
+        self.levels.len()
+    }
+
+    /// The finest level's cell of every point, in point order.
+    pub(super) fn slots(&self) -> Vec<usize> {
+        self.levels[0].runs.iter().flat_map(|&(s, e, _)| s..e).collect()
+    }
+
+    /// The finest level's vector length and layout.
+    pub(super) fn finest_layout(&self) -> (usize, Layout) {
+        let l = &self.levels[0];
+        (l.index.len(), Layout::new(l.runs.iter().map(|&(s, e, _)| (s, e)).collect()))
+    }
+
+    pub(super) fn apply(&self, u: &[f64], out: &mut [f64]) {
+        self.levels[0].residual(u, None, out);
+    }
+
+    pub(super) fn work(&self) -> Vec<LevelWork> {
+        let last = self.levels.len() - 1;
+        self.levels
+            .iter()
+            .enumerate()
+            .map(|(l, level)| LevelWork::new(level.index.len(), if l == last { level.n } else { 0 }))
+            .collect()
+    }
+
+    /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork], params: &FillParams, kind: Cycle) {
+        let level = &self.levels[l];
+        let w = &mut work[l];
+        level.layout.fill_zero(&mut w.u);
+        if l + 1 == self.levels.len() {
+            match &self.coarsest {
+                Coarsest::Dense(ch) => {
+                    for &(s, e, p0) in &level.runs {
+                        w.dense[p0..p0 + e - s].copy_from_slice(&w.b[s..e]);
+                    }
+                    ch.solve_in_place(&mut w.dense);
+                    for &(s, e, p0) in &level.runs {
+                        w.u[s..e].copy_from_slice(&w.dense[p0..p0 + e - s]);
+                    }
+                }
+                Coarsest::Relax => {
+                    for _ in 0..COARSEST_SWEEPS {
+                        level.sweep(&mut w.u, &w.b, false);
+                        level.sweep(&mut w.u, &w.b, true);
+                    }
+                }
+            }
+            return;
+        }
+        let sweeps = if l == 0 { params.pre_smooth.max(1) } else { COARSE_SWEEPS };
+        for _ in 0..sweeps {
+            level.sweep(&mut w.u, &w.b, false);
+        }
+        level.residual(&w.u, Some(&w.b), &mut w.r);
+        let (head, tail) = work.split_at_mut(l + 1);
+        restrict(level, &head[l].r, &self.levels[l + 1], &mut tail[0].b);
+        let (first, second) = match kind {
+            Cycle::V => (Cycle::V, None),
+            Cycle::W => (Cycle::W, Some(Cycle::W)),
+            Cycle::F => (Cycle::F, Some(Cycle::V)),
+        };
+        self.cycle(l + 1, work, params, first);
+        if let Some(second) = second
+            && l + 2 < self.levels.len()
+        {
+            // A second visit, on what the first left of the coarse residual.
+            let coarse = &self.levels[l + 1];
+            let next = &mut work[l + 1];
+            coarse.layout.copy(&next.u, &mut next.keep);
+            coarse.residual(&next.u, Some(&next.b), &mut next.r);
+            coarse.layout.copy(&next.r, &mut next.b);
+            self.cycle(l + 1, work, params, second);
+            let next = &mut work[l + 1];
+            coarse.layout.add_scaled(1.0, &next.keep, &mut next.u);
+        }
+        let (head, tail) = work.split_at_mut(l + 1);
+        let w = &mut head[l];
+        interpolate(&self.levels[l + 1], &tail[0].u, level, &mut w.u);
+        for _ in 0..sweeps {
+            level.sweep(&mut w.u, &w.b, true);
+        }
+    }
+}
+
+/// `b = Pᵀ·r`: every coarse point gathers its fine children's residuals.
+fn restrict(fine: &Level, r: &[f64], coarse: &Level, b: &mut [f64]) {
+    #[allow(clippy::cast_possible_wrap)]
+    let stride = fine.stride as isize;
+    coarse.layout.for_each_mut(b, |_, s, out| {
+        let (x, y) = coarse.at(s);
+        let centre = fine.cell(2 * x, 2 * y).expect("a coarse point is a fine point");
+        for (j, o) in out.iter_mut().enumerate() {
+            let c = centre + 2 * j;
+            let at = |d: isize| r[c.wrapping_add_signed(d)];
+            let edges = at(-1) + at(1) + at(-stride) + at(stride);
+            let corners = at(-stride - 1) + at(-stride + 1) + at(stride - 1) + at(stride + 1);
+            *o = r[c] + 0.5 * edges + 0.25 * corners;
+        }
+    });
+}
+
+/// `u += P·e`: every fine point adds its parents' corrections, bilinearly.
+fn interpolate(coarse: &Level, e: &[f64], fine: &Level, u: &mut [f64]) {
+    let stride = coarse.stride;
+    fine.layout.for_each_mut(u, |_, s, out| {
+        let (x0, y) = fine.at(s);
+        let odd_y = y.rem_euclid(2) == 1;
+        let wy = if odd_y { 0.5 } else { 1.0 };
+        for (j, o) in out.iter_mut().enumerate() {
+            #[allow(clippy::cast_possible_wrap)]
+            let x = x0 + j as i64;
+            let c = coarse.cell(x.div_euclid(2), y.div_euclid(2)).expect("parents lie on the coarse grid");
+            let odd_x = x.rem_euclid(2) == 1;
+            let mut v = e[c];
+            if odd_x {
+                v += e[c + 1];
+            }
+            if odd_y {
+                v += e[c + stride];
+                if odd_x {
+                    v += e[c + stride + 1];
+                }
+            }
+            *o += wy * weight(x) * v;
+        }
+    });
+}

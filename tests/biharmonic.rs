@@ -13,12 +13,16 @@ use faer::Mat;
 use faer::Side;
 use faer::prelude::Solve;
 use faer::sparse::{SparseColMat, Triplet};
-use reweave::fill::{FillMethod, FillParams, FillReport, Solver, Start};
+use reweave::fill::{FillMethod, FillParams, FillReport, Solver, Start, Structure};
 use reweave::mask::Mask;
 use reweave::synth::{self, MaskFamily};
 
 fn fill_with(method: FillMethod, mask: &Mask, plane: &mut [f32], tolerance: f64) -> FillReport {
-    let solver = Solver::for_method(mask, method).expect("mask leaves known pixels");
+    fill_stored(method, Structure::Auto, mask, plane, tolerance)
+}
+
+fn fill_stored(method: FillMethod, structure: Structure, mask: &Mask, plane: &mut [f32], tolerance: f64) -> FillReport {
+    let solver = Solver::for_method_with(mask, method, structure).expect("mask leaves known pixels");
     let p = FillParams { method, tolerance, ..FillParams::default() };
     solver.solve(&mut [plane], &p, Start::FullMultigrid, &mut |_| true).expect("fill converges")
 }
@@ -156,14 +160,22 @@ fn biharmonic_agrees_with_sparse_cholesky_on_every_family() {
     for (k, family) in MaskFamily::ALL.into_iter().enumerate() {
         let mask = family.mask(n, 300 + k as u64);
         let truth = synth::smooth_plane(n, n, 7 + k as u64);
-        let mut plane: Vec<f32> =
-            truth.iter().zip(mask.bits()).map(|(&v, &m)| if m { 0.0 } else { v * 1000.0 }).collect();
-        let reference = direct(&mask, &plane);
-        let report = fill_with(FillMethod::Biharmonic, &mask, &mut plane, 1e-9);
-        let filled: Vec<f64> = (0..n * n).filter(|&i| mask.bits()[i]).map(|i| f64::from(plane[i])).collect();
+        let known: Vec<f32> = truth.iter().zip(mask.bits()).map(|(&v, &m)| if m { 0.0 } else { v * 1000.0 }).collect();
+        let reference = direct(&mask, &known);
         let range = reference.iter().fold(0f64, |m, v| m.max(v.abs())).max(1.0);
-        let worst = filled.iter().zip(&reference).map(|(a, b)| (a - b).abs()).fold(0f64, f64::max);
-        assert!(worst <= 1e-4 * range, "{}: difference {worst:.3e} of {range:.1} ({report:?})", family.name());
+        // Both storages of the hierarchy: index lists and grids (the automatic choice picks one
+        // by the mask's density).
+        for structure in [Structure::Compact, Structure::Grid] {
+            let mut plane = known.clone();
+            let report = fill_stored(FillMethod::Biharmonic, structure, &mask, &mut plane, 1e-9);
+            let filled: Vec<f64> = (0..n * n).filter(|&i| mask.bits()[i]).map(|i| f64::from(plane[i])).collect();
+            let worst = filled.iter().zip(&reference).map(|(a, b)| (a - b).abs()).fold(0f64, f64::max);
+            assert!(
+                worst <= 1e-4 * range,
+                "{} ({structure:?}): difference {worst:.3e} of {range:.1} ({report:?})",
+                family.name()
+            );
+        }
     }
 }
 

@@ -477,6 +477,15 @@ impl Solver {
         Self::build(mask, method, Structure::Auto)
     }
 
+    /// [`Solver::for_method`] with the given storage for the harmonic and biharmonic
+    /// hierarchies (results agree to the tolerance whichever is used).
+    ///
+    /// # Errors
+    /// [`FillError::NoKnownPixels`] when every pixel is masked.
+    pub fn for_method_with(mask: &Mask, method: FillMethod, structure: Structure) -> Result<Self, FillError> {
+        Self::build(mask, method, structure)
+    }
+
     fn build(mask: &Mask, method: FillMethod, structure: Structure) -> Result<Self, FillError> {
         let t0 = Instant::now();
         let (width, height) = (mask.width(), mask.height());

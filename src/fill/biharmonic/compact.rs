@@ -278,7 +278,7 @@ impl Levels {
     }
 
     /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
-    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork], params: &FillParams, kind: Cycle) {
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f64>], params: &FillParams, kind: Cycle) {
         let level = &self.levels[l];
         let (head, tail) = work.split_at_mut(l + 1);
         let w = &mut head[l];
@@ -352,4 +352,3 @@ impl Levels {
         }
     }
 }
-

@@ -14,8 +14,8 @@ use std::ops::Range;
 use rayon::prelude::*;
 
 use super::{
-    COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, Layout, LevelWork,
-    MIN_REDUCTION, dense_coarsest, fine_row, square_index,
+    COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, Layout, LevelWork, MIN_REDUCTION,
+    Real, dense_coarsest, fine_row, square_index,
 };
 use crate::fill::{Cycle, FillParams};
 
@@ -55,15 +55,60 @@ struct Level {
     /// Stencil offsets in level coordinates (centre first) and in cells.
     offsets: &'static [(i64, i64)],
     cell_off: Vec<isize>,
-    /// Each point's row in `table` (`offsets.len()` coefficients a row; row 0 the interior row).
+    /// Each point's row in the coefficient tables (row 0 the interior row).
     row: Vec<u32>,
-    table: Vec<f64>,
-    inv_diag: Vec<f64>,
+    /// The rows in `f64` (the finest level's for `B` itself, every level's while coarser ones
+    /// are built) and in `f32` (the preconditioner's).
+    c64: Coefs<f64>,
+    c32: Coefs<f32>,
+}
+
+/// A level's operator rows in one precision.
+#[derive(Debug, Default)]
+struct Coefs<T> {
+    /// `offsets.len()` coefficients a row, centre first.
+    table: Vec<T>,
+    inv_diag: Vec<T>,
     /// The shared row as (coefficient, cell offset) terms.
-    shared_terms: Vec<(f64, isize)>,
+    shared_terms: Vec<(T, isize)>,
     /// For forward and backward sweeps: the slots of the nearer and farther same-row neighbours
     /// relaxed before a point, and the shared row's other off-diagonal terms.
-    recurrence: [(usize, usize, Vec<(f64, isize)>); 2],
+    recurrence: [Recurrence<T>; 2],
+}
+
+/// Slots of the nearer and farther neighbours relaxed before a point, and the other terms.
+type Recurrence<T> = (usize, usize, Vec<(T, isize)>);
+
+impl<T: Real> Coefs<T> {
+    fn new(table: Vec<T>, offsets: &[(i64, i64)], cell_off: &[isize]) -> Self {
+        let k = offsets.len();
+        let inv_diag = table.chunks_exact(k).map(|r| T::of(1.0 / r[0].get())).collect();
+        let shared_terms: Vec<(T, isize)> = table[..k].iter().copied().zip(cell_off.iter().copied()).collect();
+        let slot = |o: (i64, i64)| offsets.iter().position(|&q| q == o).expect("same-row neighbours");
+        let recurrence = [((-1, 0), (-2, 0)), ((1, 0), (2, 0))].map(|(near, far)| {
+            let (near, far) = (slot(near), slot(far));
+            let terms = (1..k).filter(|&t| t != near && t != far).map(|t| shared_terms[t]).collect();
+            (near, far, terms)
+        });
+        Self { table, inv_diag, shared_terms, recurrence }
+    }
+}
+
+/// The precisions the level kernels run in.
+trait LevelReal: Real {
+    fn coefs(level: &Level) -> &Coefs<Self>;
+}
+
+impl LevelReal for f64 {
+    fn coefs(level: &Level) -> &Coefs<f64> {
+        &level.c64
+    }
+}
+
+impl LevelReal for f32 {
+    fn coefs(level: &Level) -> &Coefs<f32> {
+        &level.c32
+    }
 }
 
 impl Level {
@@ -107,10 +152,8 @@ impl Level {
             offsets,
             cell_off,
             row: Vec::new(),
-            table: Vec::new(),
-            inv_diag: Vec::new(),
-            shared_terms: Vec::new(),
-            recurrence: [(0, 0, Vec::new()), (0, 0, Vec::new())],
+            c64: Coefs::default(),
+            c32: Coefs::default(),
         }
     }
 
@@ -140,19 +183,13 @@ impl Level {
     fn row_of(&self, p: usize) -> &[f64] {
         let k = self.k();
         let r = self.row[p] as usize;
-        &self.table[r * k..(r + 1) * k]
+        &self.c64.table[r * k..(r + 1) * k]
     }
 
+    #[allow(clippy::cast_possible_truncation)]
     fn set_rows(&mut self, row: Vec<u32>, table: Vec<f64>) {
-        let k = self.k();
-        self.inv_diag = table.chunks_exact(k).map(|r| 1.0 / r[0]).collect();
-        self.shared_terms = table[..k].iter().copied().zip(self.cell_off.iter().copied()).collect();
-        let slot = |o: (i64, i64)| self.offsets.iter().position(|&q| q == o).expect("same-row neighbours");
-        self.recurrence = [((-1, 0), (-2, 0)), ((1, 0), (2, 0))].map(|(near, far)| {
-            let (near, far) = (slot(near), slot(far));
-            let terms = (1..k).filter(|&t| t != near && t != far).map(|t| self.shared_terms[t]).collect();
-            (near, far, terms)
-        });
+        self.c32 = Coefs::new(table.iter().map(|&v| v as f32).collect(), self.offsets, &self.cell_off);
+        self.c64 = Coefs::new(table, self.offsets, &self.cell_off);
         // Split the runs where points change between interior and other.
         let mut runs = Vec::with_capacity(self.runs.len());
         let mut interior = Vec::with_capacity(self.runs.len());
@@ -171,20 +208,20 @@ impl Level {
         self.runs = runs;
         self.interior = interior;
         self.row = row;
-        self.table = table;
     }
 
     /// `out = b − A·u` (or `A·u` without `b`) at the points.
-    fn residual(&self, u: &[f64], b: Option<&[f64]>, out: &mut [f64]) {
+    fn residual<T: LevelReal>(&self, u: &[T], b: Option<&[T]>, out: &mut [T]) {
         match self.k() {
-            13 => self.residual_k::<13>(u, b, out),
-            _ => self.residual_k::<25>(u, b, out),
+            13 => self.residual_k::<T, 13>(u, b, out),
+            _ => self.residual_k::<T, 25>(u, b, out),
         }
     }
 
-    fn residual_k<const K: usize>(&self, u: &[f64], b: Option<&[f64]>, out: &mut [f64]) {
+    fn residual_k<T: LevelReal, const K: usize>(&self, u: &[T], b: Option<&[T]>, out: &mut [T]) {
         let off: &[isize; K] = self.cell_off.as_slice().try_into().expect("stencil size");
-        let all = &self.shared_terms;
+        let coefs = T::coefs(self);
+        let all = &coefs.shared_terms;
         self.layout.for_each_mut(out, |span, s, out| {
             let p0 = self.runs[span].2;
             if self.interior[span] {
@@ -193,7 +230,7 @@ impl Level {
                     let (k, n) = (q * CHUNK, seg.len());
                     match b {
                         Some(b) => seg.copy_from_slice(&b[s + k..s + k + n]),
-                        None => seg.fill(0.0),
+                        None => seg.fill(T::default()),
                     }
                     subtract_terms(seg, |o| &u[(s + k).wrapping_add_signed(o)..][..n], all);
                     if b.is_none() {
@@ -203,7 +240,7 @@ impl Level {
             } else {
                 for (j, o) in out.iter_mut().enumerate() {
                     let (c, r) = (s + j, self.row[p0 + j] as usize);
-                    let a: &[f64; K] = self.table[r * K..(r + 1) * K].try_into().expect("row");
+                    let a: &[T; K] = coefs.table[r * K..(r + 1) * K].try_into().expect("row");
                     let au = a[0] * u[c] + off_diagonal(a, |i| u[i], c, off);
                     *o = b.map_or(au, |b| b[c] - au);
                 }
@@ -213,7 +250,7 @@ impl Level {
 
     /// One lexicographic Gauss-Seidel sweep, forward or backward: the bands in parallel, then
     /// the seams between them (backward: the other way round, so the pair is symmetric).
-    fn sweep(&self, u: &mut [f64], b: &[f64], backward: bool) {
+    fn sweep<T: LevelReal>(&self, u: &mut [T], b: &[T], backward: bool) {
         let shared = Shared(u.as_mut_ptr(), u.len());
         let phase = |parts: &[Range<usize>]| {
             let task = |runs: &Range<usize>| {
@@ -222,8 +259,8 @@ impl Level {
                 // stencils' reach of two, so no task reads or writes a row another task writes.
                 unsafe {
                     match self.k() {
-                        13 => self.sweep_runs::<13>(shared, b, runs, backward),
-                        _ => self.sweep_runs::<25>(shared, b, runs, backward),
+                        13 => self.sweep_runs::<T, 13>(shared, b, runs, backward),
+                        _ => self.sweep_runs::<T, 25>(shared, b, runs, backward),
                     }
                 }
             };
@@ -250,23 +287,33 @@ impl Level {
     /// # Safety
     /// `u` is valid for the level's grid, and no other thread accesses the rows of `runs` or
     /// writes the rows within two of them.
-    unsafe fn sweep_runs<const K: usize>(&self, u: Shared, b: &[f64], runs: Range<usize>, backward: bool) {
+    unsafe fn sweep_runs<T: LevelReal, const K: usize>(
+        &self,
+        u: Shared<T>,
+        b: &[T],
+        runs: Range<usize>,
+        backward: bool,
+    ) {
         let off: &[isize; K] = self.cell_off.as_slice().try_into().expect("stencil size");
-        let (near, far, terms) = &self.recurrence[usize::from(backward)];
+        let coefs = T::coefs(self);
+        let (near, far, terms) = &coefs.recurrence[usize::from(backward)];
         let (near, far) = (*near, *far);
-        let inv = self.inv_diag[0];
-        let (a_near, a_far) = (self.table[near] * inv, self.table[far] * inv);
+        let inv = coefs.inv_diag[0];
+        let (a_near, a_far) = (coefs.table[near] * inv, coefs.table[far] * inv);
         // SAFETY (all accesses below): cells of this task's rows and their stencil neighbours,
         // inside the grid because points are at least two cells from its edge.
         let relax = |c: usize, p: usize| {
             let r = self.row[p] as usize;
-            let a: &[f64; K] = self.table[r * K..(r + 1) * K].try_into().expect("row");
-            let v = (b[c] - off_diagonal(a, |i| unsafe { u.get(i) }, c, off)) * self.inv_diag[r];
+            let a: &[T; K] = coefs.table[r * K..(r + 1) * K].try_into().expect("row");
+            let v = (b[c] - off_diagonal(a, |i| unsafe { u.get(i) }, c, off)) * coefs.inv_diag[r];
             unsafe { u.set(c, v) };
         };
-        let mut rest = [0f64; CHUNK];
+        let mut rest = [T::default(); CHUNK];
         // Relaxes the interior points `c0..c0 + len` in the sweep's direction.
         let mut interior = |c0: usize, len: usize| {
+            // Local copies: the writes through `u` could otherwise alias the captured values, which
+            // would then be reloaded for every point.
+            let (u, inv, a_near, a_far) = (u, inv, a_near, a_far);
             let chunks = len.div_ceil(CHUNK);
             for q in 0..chunks {
                 let k = if backward { chunks - 1 - q } else { q };
@@ -277,14 +324,14 @@ impl Level {
                 if backward {
                     let (mut n1, mut n2) = unsafe { (u.get(z), u.get(z + 1)) };
                     for (c, r) in (a..z).zip(rest.iter()).rev() {
-                        let v = (r * inv - a_far * n2) - a_near * n1;
+                        let v = (*r * inv - a_far * n2) - a_near * n1;
                         unsafe { u.set(c, v) };
                         (n2, n1) = (n1, v);
                     }
                 } else {
                     let (mut n1, mut n2) = unsafe { (u.get(a - 1), u.get(a - 2)) };
                     for (c, r) in (a..z).zip(rest.iter()) {
-                        let v = (r * inv - a_far * n2) - a_near * n1;
+                        let v = (*r * inv - a_far * n2) - a_near * n1;
                         unsafe { u.set(c, v) };
                         (n2, n1) = (n1, v);
                     }
@@ -315,16 +362,16 @@ impl Level {
 
 /// A level's vector shared by the tasks of one sweep phase, which touch disjoint rows.
 #[derive(Clone, Copy)]
-struct Shared(*mut f64, usize);
+struct Shared<T>(*mut T, usize);
 // SAFETY: see `Level::sweep`: the tasks of a phase never touch a row another task writes.
-unsafe impl Send for Shared {}
+unsafe impl<T> Send for Shared<T> {}
 // SAFETY: as above.
-unsafe impl Sync for Shared {}
+unsafe impl<T> Sync for Shared<T> {}
 
-impl Shared {
+impl<T: Copy> Shared<T> {
     /// # Safety
     /// `c` is in bounds and no other thread writes it.
-    unsafe fn get(self, c: usize) -> f64 {
+    unsafe fn get(self, c: usize) -> T {
         debug_assert!(c < self.1);
         // SAFETY: the caller's contract.
         unsafe { *self.0.add(c) }
@@ -332,7 +379,7 @@ impl Shared {
 
     /// # Safety
     /// `c` is in bounds and no other thread reads or writes it.
-    unsafe fn set(self, c: usize, v: f64) {
+    unsafe fn set(self, c: usize, v: T) {
         debug_assert!(c < self.1);
         // SAFETY: the caller's contract.
         unsafe { *self.0.add(c) = v };
@@ -340,7 +387,7 @@ impl Shared {
 
     /// # Safety
     /// `c..c + n` is in bounds and nothing writes it while the slice lives.
-    unsafe fn slice<'a>(self, c: usize, n: usize) -> &'a [f64] {
+    unsafe fn slice<'a>(self, c: usize, n: usize) -> &'a [T] {
         debug_assert!(c + n <= self.1);
         // SAFETY: the caller's contract.
         unsafe { std::slice::from_raw_parts(self.0.add(c), n) }
@@ -352,26 +399,26 @@ const CHUNK: usize = 64;
 
 /// `acc[j] −= Σ a·u_o[j]` over the `(a, o)` terms, where `slice(o)` is `u` shifted by `o` cells,
 /// two terms a pass.
-fn subtract_terms<'a>(acc: &mut [f64], slice: impl Fn(isize) -> &'a [f64], terms: &[(f64, isize)]) {
+fn subtract_terms<'a, T: Real>(acc: &mut [T], slice: impl Fn(isize) -> &'a [T], terms: &[(T, isize)]) {
     let mut pairs = terms.chunks_exact(2);
     for pair in &mut pairs {
         let ((a1, o1), (a2, o2)) = (pair[0], pair[1]);
         for ((x, p), q) in acc.iter_mut().zip(slice(o1)).zip(slice(o2)) {
-            *x -= a1 * p + a2 * q;
+            *x -= a1 * *p + a2 * *q;
         }
     }
     for &(a, o) in pairs.remainder() {
         for (x, p) in acc.iter_mut().zip(slice(o)) {
-            *x -= a * p;
+            *x -= a * *p;
         }
     }
 }
 
 /// `Σ a_t·u(c + off_t)` over the neighbours, in four partial sums.
 #[inline]
-fn off_diagonal<const K: usize>(a: &[f64; K], u: impl Fn(usize) -> f64, c: usize, off: &[isize; K]) -> f64 {
+fn off_diagonal<T: Real, const K: usize>(a: &[T; K], u: impl Fn(usize) -> T, c: usize, off: &[isize; K]) -> T {
     let at = |t: usize| a[t] * u(c.wrapping_add_signed(off[t]));
-    let (mut s0, mut s1, mut s2, mut s3) = (0f64, 0f64, 0f64, 0f64);
+    let (mut s0, mut s1, mut s2, mut s3) = (T::default(), T::default(), T::default(), T::default());
     let mut t = 1;
     while t + 3 < K {
         s0 += at(t);
@@ -481,9 +528,8 @@ fn coarsen(fine: &Level) -> Level {
         }
     }
     // A coarse point whose 9×9 fine neighbourhood is all interior points has the shared row.
-    let shared = |x: i64, y: i64| {
-        (-4..=4).all(|dy| fine.point(2 * x - 4, 2 * y + dy).is_some_and(|p| interior_right[p] >= 9))
-    };
+    let shared =
+        |x: i64, y: i64| (-4..=4).all(|dy| fine.point(2 * x - 4, 2 * y + dy).is_some_and(|p| interior_right[p] >= 9));
     let rows: Vec<Option<[f64; 25]>> = coarse
         .runs
         .par_iter()
@@ -593,6 +639,10 @@ impl Levels {
             }),
             _ => Coarsest::Relax,
         };
+        // Coarse levels run in `f32` only; their `f64` rows served to build the next level.
+        for level in levels.iter_mut().skip(1) {
+            level.c64 = Coefs::default();
+        }
         Self { levels, coarsest }
     }
 
@@ -615,7 +665,7 @@ impl Levels {
         self.levels[0].residual(u, None, out);
     }
 
-    pub(super) fn work(&self) -> Vec<LevelWork> {
+    pub(super) fn work(&self) -> Vec<LevelWork<f32>> {
         let last = self.levels.len() - 1;
         self.levels
             .iter()
@@ -625,7 +675,7 @@ impl Levels {
     }
 
     /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
-    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork], params: &FillParams, kind: Cycle) {
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f32>], params: &FillParams, kind: Cycle) {
         let level = &self.levels[l];
         let w = &mut work[l];
         level.layout.fill_zero(&mut w.u);
@@ -633,11 +683,18 @@ impl Levels {
             match &self.coarsest {
                 Coarsest::Dense(ch) => {
                     for &(s, e, p0) in &level.runs {
-                        w.dense[p0..p0 + e - s].copy_from_slice(&w.b[s..e]);
+                        for (d, &b) in w.dense[p0..p0 + e - s].iter_mut().zip(&w.b[s..e]) {
+                            *d = f64::from(b);
+                        }
                     }
                     ch.solve_in_place(&mut w.dense);
                     for &(s, e, p0) in &level.runs {
-                        w.u[s..e].copy_from_slice(&w.dense[p0..p0 + e - s]);
+                        for (u, &d) in w.u[s..e].iter_mut().zip(&w.dense[p0..p0 + e - s]) {
+                            #[allow(clippy::cast_possible_truncation)]
+                            {
+                                *u = d as f32;
+                            }
+                        }
                     }
                 }
                 Coarsest::Relax => {
@@ -685,7 +742,7 @@ impl Levels {
 }
 
 /// `b = Pᵀ·r`: every coarse point gathers its fine children's residuals.
-fn restrict(fine: &Level, r: &[f64], coarse: &Level, b: &mut [f64]) {
+fn restrict(fine: &Level, r: &[f32], coarse: &Level, b: &mut [f32]) {
     #[allow(clippy::cast_possible_wrap)]
     let stride = fine.stride as isize;
     coarse.layout.for_each_mut(b, |_, s, out| {
@@ -702,12 +759,12 @@ fn restrict(fine: &Level, r: &[f64], coarse: &Level, b: &mut [f64]) {
 }
 
 /// `u += P·e`: every fine point adds its parents' corrections, bilinearly.
-fn interpolate(coarse: &Level, e: &[f64], fine: &Level, u: &mut [f64]) {
+fn interpolate(coarse: &Level, e: &[f32], fine: &Level, u: &mut [f32]) {
     let stride = coarse.stride;
     fine.layout.for_each_mut(u, |_, s, out| {
         let (x0, y) = fine.at(s);
         let odd_y = y.rem_euclid(2) == 1;
-        let wy = if odd_y { 0.5 } else { 1.0 };
+        let wy = if odd_y { 0.5f32 } else { 1.0 };
         for (j, o) in out.iter_mut().enumerate() {
             #[allow(clippy::cast_possible_wrap)]
             let x = x0 + j as i64;
@@ -723,7 +780,7 @@ fn interpolate(coarse: &Level, e: &[f64], fine: &Level, u: &mut [f64]) {
                     v += e[c + stride + 1];
                 }
             }
-            *o += wy * weight(x) * v;
+            *o += if odd_x { 0.5 * wy } else { wy } * v;
         }
     });
 }

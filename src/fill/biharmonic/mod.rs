@@ -121,6 +121,47 @@ fn dense_coarsest(n: usize, row: impl Fn(usize, &mut dyn FnMut(usize, f64))) -> 
     Cholesky::factor(n, a).map_or(Coarsest::Relax, Coarsest::Dense)
 }
 
+/// A floating-point type the level kernels run in: `f64` for the conjugate-gradient iteration,
+/// `f32` for the grid preconditioner (half the memory traffic; its rounding is far below what a
+/// preconditioner needs to be good).
+trait Real:
+    Copy
+    + Default
+    + Send
+    + Sync
+    + PartialEq
+    + std::fmt::Debug
+    + std::ops::Add<Output = Self>
+    + std::ops::Sub<Output = Self>
+    + std::ops::Mul<Output = Self>
+    + std::ops::Neg<Output = Self>
+    + std::ops::AddAssign
+    + std::ops::SubAssign
+    + 'static
+{
+    fn of(v: f64) -> Self;
+    fn get(self) -> f64;
+}
+
+impl Real for f64 {
+    fn of(v: f64) -> Self {
+        v
+    }
+    fn get(self) -> f64 {
+        self
+    }
+}
+
+impl Real for f32 {
+    #[allow(clippy::cast_possible_truncation)]
+    fn of(v: f64) -> Self {
+        v as f32
+    }
+    fn get(self) -> f64 {
+        f64::from(self)
+    }
+}
+
 /// Points per group of a parallel loop.
 const GROUP_POINTS: usize = 16 * 1024;
 
@@ -156,7 +197,7 @@ impl Layout {
     }
 
     /// Calls `f(span, first slot, the span's slots of v)` for every span, groups in parallel.
-    fn for_each_mut(&self, v: &mut [f64], f: impl Fn(usize, usize, &mut [f64]) + Sync) {
+    fn for_each_mut<T: Send>(&self, v: &mut [T], f: impl Fn(usize, usize, &mut [T]) + Sync) {
         let mut pieces = Vec::with_capacity(self.groups.len());
         let (mut rest, mut base) = (v, 0);
         for g in &self.groups {
@@ -166,7 +207,7 @@ impl Layout {
             pieces.push((g.clone(), first, piece));
             (rest, base) = (tail, last);
         }
-        let task = |(g, first, piece): (std::ops::Range<usize>, usize, &mut [f64])| {
+        let task = |(g, first, piece): (std::ops::Range<usize>, usize, &mut [T])| {
             for k in g {
                 let (s, e) = self.spans[k];
                 f(k, s, &mut piece[s - first..e - first]);
@@ -189,19 +230,24 @@ impl Layout {
         partial.iter().sum()
     }
 
-    fn copy(&self, from: &[f64], to: &mut [f64]) {
-        self.for_each_mut(to, |_, s, t| t.copy_from_slice(&from[s..s + t.len()]));
+    /// `to = from` over the points, converted.
+    fn copy<A: Real, B: Real>(&self, from: &[A], to: &mut [B]) {
+        self.for_each_mut(to, |_, s, t| {
+            for (t, f) in t.iter_mut().zip(&from[s..]) {
+                *t = B::of(f.get());
+            }
+        });
     }
 
-    fn fill_zero(&self, v: &mut [f64]) {
-        self.for_each_mut(v, |_, _, t| t.fill(0.0));
+    fn fill_zero<T: Real>(&self, v: &mut [T]) {
+        self.for_each_mut(v, |_, _, t| t.fill(T::default()));
     }
 
     /// `to += a·from` over the points.
-    fn add_scaled(&self, a: f64, from: &[f64], to: &mut [f64]) {
+    fn add_scaled<T: Real>(&self, a: T, from: &[T], to: &mut [T]) {
         self.for_each_mut(to, |_, s, t| {
             for (t, f) in t.iter_mut().zip(&from[s..]) {
-                *t += a * f;
+                *t += a * *f;
             }
         });
     }
@@ -221,20 +267,29 @@ fn dot_run(a: &[f64], b: &[f64]) -> f64 {
 }
 
 /// Scratch of one level for the preconditioner.
-struct LevelWork {
-    u: Vec<f64>,
-    b: Vec<f64>,
-    r: Vec<f64>,
+struct LevelWork<T> {
+    u: Vec<T>,
+    b: Vec<T>,
+    r: Vec<T>,
     /// The first visit's correction during the second visit of a W-cycle.
-    keep: Vec<f64>,
+    keep: Vec<T>,
     /// The points in order, for the coarsest level's dense solve (grid storage).
     dense: Vec<f64>,
 }
 
-impl LevelWork {
+impl<T: Real> LevelWork<T> {
     fn new(len: usize, dense: usize) -> Self {
-        Self { u: vec![0.0; len], b: vec![0.0; len], r: vec![0.0; len], keep: vec![0.0; len], dense: vec![0.0; dense] }
+        // `vec![0.0; n]` maps zeroed pages lazily; a grid's cells far from the points are never
+        // touched and cost no memory.
+        let zeros = || vec![T::default(); len];
+        Self { u: zeros(), b: zeros(), r: zeros(), keep: zeros(), dense: vec![0.0; dense] }
     }
+}
+
+/// One channel's preconditioner scratch.
+enum Work {
+    Compact(Vec<LevelWork<f64>>),
+    Grid(Vec<LevelWork<f32>>),
 }
 
 /// How the hierarchy stores its levels.
@@ -301,8 +356,7 @@ impl Hierarchy {
             Structure::Grid => true,
             Structure::Auto => {
                 !pixels.is_empty()
-                    && pixels.len() as f64
-                        >= GRID_MIN_DENSITY * ((bbox.2 - bbox.0 + 5) * (bbox.3 - bbox.1 + 5)) as f64
+                    && pixels.len() as f64 >= GRID_MIN_DENSITY * ((bbox.2 - bbox.0 + 5) * (bbox.3 - bbox.1 + 5)) as f64
             }
         };
         let (storage, slots, len, layout) = if grid && !pixels.is_empty() {
@@ -357,18 +411,27 @@ impl Hierarchy {
     }
 
     /// Scratch for one channel's preconditioner.
-    fn work(&self) -> Vec<LevelWork> {
+    fn work(&self) -> Work {
         match &self.storage {
-            Storage::Compact(c) => c.levels.iter().map(|l| LevelWork::new(l.n, 0)).collect(),
-            Storage::Grid(g) => g.work(),
+            Storage::Compact(c) => Work::Compact(c.levels.iter().map(|l| LevelWork::new(l.n, 0)).collect()),
+            Storage::Grid(g) => Work::Grid(g.work()),
         }
     }
 
-    /// `work[0].u ≈ B⁻¹·work[0].b` by one cycle.
-    fn precondition(&self, work: &mut [LevelWork], params: &FillParams) {
-        match &self.storage {
-            Storage::Compact(c) => c.cycle(0, work, params, CYCLE),
-            Storage::Grid(g) => g.cycle(0, work, params, CYCLE),
+    /// `z ≈ B⁻¹·r` by one cycle.
+    fn precondition(&self, work: &mut Work, r: &[f64], z: &mut [f64], params: &FillParams) {
+        match (&self.storage, work) {
+            (Storage::Compact(c), Work::Compact(w)) => {
+                self.layout.copy(r, &mut w[0].b);
+                c.cycle(0, w, params, CYCLE);
+                self.layout.copy(&w[0].u, z);
+            }
+            (Storage::Grid(g), Work::Grid(w)) => {
+                self.layout.copy(r, &mut w[0].b);
+                g.cycle(0, w, params, CYCLE);
+                self.layout.copy(&w[0].u, z);
+            }
+            _ => unreachable!("scratch made by this hierarchy"),
         }
     }
 
@@ -499,8 +562,9 @@ struct Pcg {
     r: Vec<f64>,
     p: Vec<f64>,
     q: Vec<f64>,
+    z: Vec<f64>,
     rz: f64,
-    work: Vec<LevelWork>,
+    work: Work,
     started: bool,
 }
 
@@ -513,7 +577,7 @@ impl Pcg {
         hier.layout.copy(&b, &mut r);
         hier.layout.add_scaled(-1.0, &q, &mut r);
         let bnorm = hier.layout.dot(&b, &b).sqrt();
-        Self { b, bnorm, x, r, p: vec![0.0; n], q, rz: 0.0, work: hier.work(), started: false }
+        Self { b, bnorm, x, r, p: vec![0.0; n], q, z: vec![0.0; n], rz: 0.0, work: hier.work(), started: false }
     }
 
     fn relative(&self, hier: &Hierarchy) -> f64 {
@@ -531,9 +595,8 @@ impl Pcg {
     /// One preconditioned conjugate-gradient step.
     fn step(&mut self, hier: &Hierarchy, params: &FillParams) {
         let layout = &hier.layout;
-        layout.copy(&self.r, &mut self.work[0].b);
-        hier.precondition(&mut self.work, params);
-        let z = &self.work[0].u;
+        hier.precondition(&mut self.work, &self.r, &mut self.z, params);
+        let z = &self.z;
         let rz = layout.dot(&self.r, z);
         if self.started && self.rz != 0.0 {
             let beta = rz / self.rz;

@@ -530,46 +530,43 @@ fn coarsen(fine: &Level) -> Level {
     // A coarse point whose 9×9 fine neighbourhood is all interior points has the shared row.
     let shared =
         |x: i64, y: i64| (-4..=4).all(|dy| fine.point(2 * x - 4, 2 * y + dy).is_some_and(|p| interior_right[p] >= 9));
-    let rows: Vec<Option<[f64; 25]>> = coarse
+    // Which points share row 0 (one bit each), then the rows of the others.
+    let is_shared: Vec<bool> = coarse
         .runs
         .par_iter()
-        .flat_map_iter(|&(s, e, _)| {
-            let coarse = &coarse;
-            (s..e).map(move |c| {
+        .flat_map_iter(|&(s, e, _)| (s..e).map(|c| coarse.at(c)).map(|(x, y)| shared(x, y)))
+        .collect();
+    let own: Vec<(usize, [f64; 25])> = coarse
+        .runs
+        .par_iter()
+        .flat_map_iter(|&(s, e, p0)| {
+            let (coarse, is_shared) = (&coarse, &is_shared);
+            (s..e).filter(move |&c| !is_shared[p0 + c - s]).map(move |c| {
                 let (x, y) = coarse.at(c);
-                (!shared(x, y)).then(|| galerkin_row(fine, coarse, x, y))
+                (p0 + c - s, galerkin_row(fine, coarse, x, y))
             })
         })
         .collect();
-    let mut table = vec![0f64; COARSE.len()];
-    let mut shared_done = false;
-    let mut row = Vec::with_capacity(coarse.n);
-    let mut next = 1u32;
-    for (p, r) in rows.iter().enumerate() {
-        match r {
-            Some(square) => {
-                table.extend(COARSE.iter().map(|&o| square[square_index(o)]));
-                row.push(next);
-                next += 1;
-            }
-            None => {
-                if !shared_done {
-                    let c = coarse.runs.partition_point(|&(_, _, p0)| p0 <= p) - 1;
-                    let (s, _, p0) = coarse.runs[c];
-                    let (x, y) = coarse.at(s + p - p0);
-                    let square = galerkin_row(fine, &coarse, x, y);
-                    for (t, &o) in COARSE.iter().enumerate() {
-                        table[t] = square[square_index(o)];
-                    }
-                    shared_done = true;
-                }
-                row.push(0);
+    let mut table = vec![0f64; COARSE.len() * (own.len() + 1)];
+    match is_shared.iter().position(|&b| b) {
+        Some(p) => {
+            let c = coarse.runs.partition_point(|&(_, _, p0)| p0 <= p) - 1;
+            let (s, _, p0) = coarse.runs[c];
+            let (x, y) = coarse.at(s + p - p0);
+            let square = galerkin_row(fine, &coarse, x, y);
+            for (t, &o) in COARSE.iter().enumerate() {
+                table[t] = square[square_index(o)];
             }
         }
-    }
-    if !shared_done {
         // No point uses row 0; a unit diagonal keeps its inverse finite.
-        table[0] = 1.0;
+        None => table[0] = 1.0,
+    }
+    let mut row = vec![0u32; coarse.n];
+    for (k, (p, square)) in own.iter().enumerate() {
+        row[*p] = crate::mask::index_u32(k + 1);
+        for (t, &o) in COARSE.iter().enumerate() {
+            table[(k + 1) * COARSE.len() + t] = square[square_index(o)];
+        }
     }
     coarse.set_rows(row, table);
     coarse

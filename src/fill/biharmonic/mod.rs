@@ -198,6 +198,15 @@ impl Layout {
 
     /// Calls `f(span, first slot, the span's slots of v)` for every span, groups in parallel.
     fn for_each_mut<T: Send>(&self, v: &mut [T], f: impl Fn(usize, usize, &mut [T]) + Sync) {
+        self.sum_mut(v, |k, s, t| {
+            f(k, s, t);
+            0.0
+        });
+    }
+
+    /// As [`Layout::for_each_mut`], adding up what `f` returns in a fixed order (the same
+    /// result on any thread count).
+    fn sum_mut<T: Send>(&self, v: &mut [T], f: impl Fn(usize, usize, &mut [T]) -> f64 + Sync) -> f64 {
         let mut pieces = Vec::with_capacity(self.groups.len());
         let (mut rest, mut base) = (v, 0);
         for g in &self.groups {
@@ -208,15 +217,17 @@ impl Layout {
             (rest, base) = (tail, last);
         }
         let task = |(g, first, piece): (std::ops::Range<usize>, usize, &mut [T])| {
-            for k in g {
+            g.map(|k| {
                 let (s, e) = self.spans[k];
-                f(k, s, &mut piece[s - first..e - first]);
-            }
+                f(k, s, &mut piece[s - first..e - first])
+            })
+            .sum::<f64>()
         };
         if pieces.len() > 1 {
-            pieces.into_par_iter().for_each(task);
+            let partial: Vec<f64> = pieces.into_par_iter().map(task).collect();
+            partial.iter().sum()
         } else {
-            pieces.into_iter().for_each(task);
+            pieces.into_iter().map(task).sum()
         }
     }
 
@@ -418,21 +429,30 @@ impl Hierarchy {
         }
     }
 
-    /// `z ≈ B⁻¹·r` by one cycle.
-    fn precondition(&self, work: &mut Work, r: &[f64], z: &mut [f64], params: &FillParams) {
-        match (&self.storage, work) {
+    /// `z ≈ B⁻¹·r` by one cycle; returns `r·z`.
+    fn precondition(&self, work: &mut Work, r: &[f64], z: &mut [f64], params: &FillParams) -> f64 {
+        let u = match (&self.storage, work) {
             (Storage::Compact(c), Work::Compact(w)) => {
                 self.layout.copy(r, &mut w[0].b);
                 c.cycle(0, w, params, CYCLE);
-                self.layout.copy(&w[0].u, z);
+                Ok(&w[0].u)
             }
             (Storage::Grid(g), Work::Grid(w)) => {
                 self.layout.copy(r, &mut w[0].b);
                 g.cycle(0, w, params, CYCLE);
-                self.layout.copy(&w[0].u, z);
+                Err(&w[0].u)
             }
             _ => unreachable!("scratch made by this hierarchy"),
-        }
+        };
+        // Bring the result over and take its product with `r` in the same pass.
+        self.layout.sum_mut(z, |_, s, z| {
+            let r = &r[s..s + z.len()];
+            match u {
+                Ok(u) => z.copy_from_slice(&u[s..s + z.len()]),
+                Err(u) => z.iter_mut().zip(&u[s..]).for_each(|(z, u)| *z = f64::from(*u)),
+            }
+            dot_run(r, z)
+        })
     }
 
     /// The right-hand side of one plane: `−Σ B_pr·f_r` over the known pixels `r` of each row.
@@ -507,7 +527,7 @@ impl Hierarchy {
         loop {
             let mut worst = 0f64;
             for (c, s) in states.iter().enumerate() {
-                let rel = s.relative(self);
+                let rel = s.relative();
                 reports[c].relative_residual = rel;
                 reports[c].history.push(rel);
                 if !done[c] && rel <= params.tolerance {
@@ -560,6 +580,8 @@ struct Pcg {
     bnorm: f64,
     x: Vec<f64>,
     r: Vec<f64>,
+    /// `r·r`, kept up to date with `r`.
+    rr: f64,
     p: Vec<f64>,
     q: Vec<f64>,
     z: Vec<f64>,
@@ -577,11 +599,12 @@ impl Pcg {
         hier.layout.copy(&b, &mut r);
         hier.layout.add_scaled(-1.0, &q, &mut r);
         let bnorm = hier.layout.dot(&b, &b).sqrt();
-        Self { b, bnorm, x, r, p: vec![0.0; n], q, z: vec![0.0; n], rz: 0.0, work: hier.work(), started: false }
+        let rr = hier.layout.dot(&r, &r);
+        Self { b, bnorm, x, r, rr, p: vec![0.0; n], q, z: vec![0.0; n], rz: 0.0, work: hier.work(), started: false }
     }
 
-    fn relative(&self, hier: &Hierarchy) -> f64 {
-        let rn = hier.layout.dot(&self.r, &self.r).sqrt();
+    fn relative(&self) -> f64 {
+        let rn = self.rr.sqrt();
         if self.bnorm > 0.0 { rn / self.bnorm } else { rn }
     }
 
@@ -595,9 +618,8 @@ impl Pcg {
     /// One preconditioned conjugate-gradient step.
     fn step(&mut self, hier: &Hierarchy, params: &FillParams) {
         let layout = &hier.layout;
-        hier.precondition(&mut self.work, &self.r, &mut self.z, params);
+        let rz = hier.precondition(&mut self.work, &self.r, &mut self.z, params);
         let z = &self.z;
-        let rz = layout.dot(&self.r, z);
         if self.started && self.rz != 0.0 {
             let beta = rz / self.rz;
             layout.for_each_mut(&mut self.p, |_, s, p| {
@@ -617,6 +639,12 @@ impl Pcg {
         }
         let alpha = rz / pq;
         layout.add_scaled(alpha, &self.p, &mut self.x);
-        layout.add_scaled(-alpha, &self.q, &mut self.r);
+        let q = &self.q;
+        self.rr = layout.sum_mut(&mut self.r, |_, s, r| {
+            for (r, q) in r.iter_mut().zip(&q[s..]) {
+                *r -= alpha * q;
+            }
+            dot_run(r, r)
+        });
     }
 }

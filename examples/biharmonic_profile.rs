@@ -1,13 +1,16 @@
-//! One biharmonic fill of the frame case at 1024², for profiling.
+//! One biharmonic fill of a benchmark case at 1024² (the frame unless a case is named), for
+//! profiling.
 //!
-//! `cargo run --release --example biharmonic_profile`
+//! `cargo run --release --example biharmonic_profile [scratches|deadpix|blob|dropout|frame]`
 
 use reweave::fill::{FillMethod, FillParams, Solver, Start};
 use reweave::synth::{self, MaskFamily};
 
 fn main() {
     let n = 1024;
-    let mask = MaskFamily::ALL[4].mask(n, 5);
+    let name = std::env::args().nth(1).unwrap_or_else(|| "frame".into());
+    let family = MaskFamily::ALL.into_iter().find(|f| f.name() == name).expect("a benchmark case");
+    let mask = family.mask(n, 5);
     let mut plane = synth::smooth_plane(n, n, 3);
     let solver = Solver::for_method(&mask, FillMethod::Biharmonic).expect("known pixels");
     let params = FillParams { method: FillMethod::Biharmonic, ..FillParams::default() };

@@ -124,13 +124,7 @@ pub(super) fn run(args: &BenchArgs) -> Result<()> {
                     let solve = t1.elapsed().as_secs_f64();
                     let peak = peak_rss().unwrap_or(0).saturating_sub(base);
                     let hier = solver.memory_bytes();
-                    let grids = solver.level_sizes().iter().filter(|(grid, _)| *grid).count();
-                    let lists = solver.level_sizes().len() - grids;
-                    storage = match method {
-                        FillMethod::Harmonic => format!("{grids} grid, {lists} compact"),
-                        FillMethod::Biharmonic => "compact".to_owned(),
-                        FillMethod::Guided => "a cut per hole".to_owned(),
-                    };
+                    storage = solver.storage();
                     if best.as_ref().is_none_or(|b| setup + solve < b.0 + b.1) {
                         best = Some((setup, solve, report, hier, peak));
                     }

@@ -550,9 +550,27 @@ impl Solver {
             .collect()
     }
 
+    /// How the hierarchy is stored, in a few words: "2 grid, 1 compact" (harmonic parts),
+    /// "grid" or "compact" (biharmonic), "a cut per hole" (guided).
+    #[must_use]
+    pub fn storage(&self) -> String {
+        match (self.method, &self.biharmonic) {
+            (FillMethod::Guided, _) => "a cut per hole".to_owned(),
+            (_, Some(b)) => if b.is_grid() { "grid" } else { "compact" }.to_owned(),
+            _ => {
+                let sizes = self.level_sizes();
+                let grids = sizes.iter().filter(|(grid, _)| *grid).count();
+                format!("{grids} grid, {} compact", sizes.len() - grids)
+            }
+        }
+    }
+
     /// Bytes held by the hierarchy (not counting the per-image workspace).
     #[must_use]
     pub fn memory_bytes(&self) -> usize {
+        if let Some(b) = &self.biharmonic {
+            return b.memory_bytes();
+        }
         self.parts
             .iter()
             .map(|p| match p {

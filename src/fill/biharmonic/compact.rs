@@ -215,6 +215,21 @@ pub(super) struct Levels {
 }
 
 impl Levels {
+    /// Bytes held by the levels.
+    pub(super) fn memory_bytes(&self) -> usize {
+        use std::mem::size_of_val;
+        self.levels
+            .iter()
+            .map(|l| {
+                size_of_val(l.nbr.as_slice())
+                    + size_of_val(l.rows.as_slice())
+                    + size_of_val(l.class.as_slice())
+                    + size_of_val(l.parents.as_slice())
+                    + size_of_val(l.pweight.as_slice())
+            })
+            .sum()
+    }
+
     /// The hierarchy of the unknowns at `pos` (row-major) in a `w × h` image.
     #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap)]
     pub(super) fn new(pos: Vec<(u32, u32)>, w: usize, h: usize) -> Self {

@@ -647,6 +647,21 @@ impl Levels {
         self.levels.len()
     }
 
+    /// Bytes held by the levels.
+    pub(super) fn memory_bytes(&self) -> usize {
+        use std::mem::size_of_val;
+        self.levels
+            .iter()
+            .map(|l| {
+                size_of_val(l.index.as_slice())
+                    + size_of_val(l.runs.as_slice())
+                    + size_of_val(l.row.as_slice())
+                    + size_of_val(l.c64.table.as_slice())
+                    + size_of_val(l.c32.table.as_slice())
+            })
+            .sum()
+    }
+
     /// The finest level's cell of every point, in point order.
     pub(super) fn slots(&self) -> Vec<usize> {
         self.levels[0].runs.iter().flat_map(|&(s, e, _)| s..e).collect()

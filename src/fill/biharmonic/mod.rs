@@ -401,6 +401,16 @@ impl Hierarchy {
         }
     }
 
+    /// Bytes held by the hierarchy (not counting the per-image workspace).
+    #[must_use]
+    pub fn memory_bytes(&self) -> usize {
+        let own = std::mem::size_of_val(self.pixels.as_slice()) + std::mem::size_of_val(self.slots.as_slice());
+        own + match &self.storage {
+            Storage::Compact(c) => c.memory_bytes(),
+            Storage::Grid(g) => g.memory_bytes(),
+        }
+    }
+
     /// Whether the levels are stored on grids.
     #[must_use]
     pub fn is_grid(&self) -> bool {

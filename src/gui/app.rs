@@ -68,7 +68,7 @@ pub struct Document {
     /// Holes left unfilled by the last fill because they were larger than the limit.
     pub skipped: Vec<crate::mask::Hole>,
     /// The mask the result was filled under (the mask may have been edited since).
-    pub result_mask: Option<Mask>,
+    pub result_mask: Option<std::sync::Arc<Mask>>,
     /// Distance of every pixel to the nearest known pixel under `result_mask` (computed off the
     /// UI thread after each fill), and its holes deeper than `DEEP_HOLE_PX`.
     pub depth: Option<Depth>,
@@ -897,6 +897,7 @@ impl App {
     /// Starts computing the distance map of the filled mask off the UI thread.
     fn measure_depth(&mut self, ctx: &egui::Context) {
         let Some(d) = &self.doc else { return };
+        // Shared, not copied: the UI thread only bumps a count.
         let Some(mask) = d.result_mask.clone() else { return };
         self.fill_serial += 1;
         let serial = self.fill_serial;
@@ -1383,9 +1384,9 @@ impl App {
                             raster::nodata::keep_off_nodata(&mut planes, d.original.sample_format, &mask, v);
                         }
                         // Re-upload only the tiles where this fill or the one before changed pixels.
-                        let bbox = changed_box(&mask, d.result_mask.as_ref());
+                        let bbox = changed_box(&mask, d.result_mask.as_deref());
                         d.result = Some(planes);
-                        d.result_mask = Some(mask);
+                        d.result_mask = Some(std::sync::Arc::new(mask));
                         self.unsaved = true;
                         if let Some(t) = &mut self.textures {
                             t.difference = None;
@@ -1453,7 +1454,7 @@ impl App {
                                 .to_owned(),
                         };
                         d.result = Some(planes);
-                        d.result_mask = Some(mask);
+                        d.result_mask = Some(std::sync::Arc::new(mask));
                         filled_now = true;
                         self.unsaved = true;
                         if let (Some(t), Some(planes)) = (&mut self.textures, &d.result) {
@@ -1522,7 +1523,7 @@ impl App {
     ) {
         let (Some(d), Some(fill)) = (&self.doc, &self.last_fill) else { return };
         let inputs = crate::report::Inputs { image, mask: None, mask_from_alpha: false };
-        let filled = d.result_mask.as_ref().unwrap_or(&d.mask);
+        let filled = d.result_mask.as_deref().unwrap_or(&d.mask);
         let mut report = crate::report::Report::new(inputs, &d.original, filled, holes, fill, self.tolerance);
         report.scientific = self.scientific;
         report.output = output;
@@ -1688,7 +1689,7 @@ impl App {
                 }
                 let saved = PathBuf::from(self.save_field.trim());
                 let output = (!self.unsaved && !saved.as_os_str().is_empty()).then_some(saved);
-                let filled = d.result_mask.clone().unwrap_or_else(|| d.mask.clone());
+                let filled = d.result_mask.as_deref().unwrap_or(&d.mask).clone();
                 self.worker = Some(Worker::report_inputs(path, d.path.clone(), output, filled, repaint));
             }
             Command::ConfirmOverwrite => {}

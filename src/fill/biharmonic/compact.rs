@@ -2,11 +2,13 @@
 //! their bounding box (scratches, scattered pixels): points sorted row-major with their
 //! neighbours' indices, so work and memory follow the unknowns however they are spread.
 
+use std::ops::Range;
+
 use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, LevelWork, MIN_REDUCTION, NONE,
-    dense_coarsest, fine_row, square_index,
+    Shared, bands, dense_coarsest, fine_row, square_index,
 };
 use crate::fill::{Cycle, FillParams};
 
@@ -26,6 +28,9 @@ pub(super) struct Level {
     /// coarsest level).
     parents: Vec<[u32; 4]>,
     pweight: Vec<f64>,
+    /// Ranges of points a sweep relaxes in parallel (bands of rows), then the seams between them.
+    bands: Vec<Range<usize>>,
+    seams: Vec<Range<usize>>,
 }
 
 impl Level {
@@ -37,19 +42,19 @@ impl Level {
     /// `y` where the result lands, `A·u` for the points' rows.
     pub(super) fn apply(&self, u: &[f64], out: &mut [f64]) {
         out.par_iter_mut().enumerate().with_min_len(4096).for_each(|(i, o)| {
-            *o = self.row(i)[0] * u[i] + self.off_diagonal(i, u);
+            *o = self.row(i)[0] * u[i] + self.off_diagonal(i, |q| u[q]);
         });
     }
 
     /// `Σ a_ij·u_j` over the neighbours of point `i`, in four partial sums (a single running
     /// sum made the sweep wait on each multiply-add in turn).
     #[inline]
-    fn off_diagonal(&self, i: usize, u: &[f64]) -> f64 {
+    fn off_diagonal(&self, i: usize, u: impl Fn(usize) -> f64) -> f64 {
         let row = self.row(i);
         let nb = &self.nbr[i * self.k..(i + 1) * self.k];
         let term = |t: usize| {
             let q = nb[t];
-            if q == NONE { 0.0 } else { row[t] * u[q as usize] }
+            if q == NONE { 0.0 } else { row[t] * u(q as usize) }
         };
         let (mut a0, mut a1, mut a2, mut a3) = (0f64, 0f64, 0f64, 0f64);
         let mut t = 1;
@@ -67,22 +72,43 @@ impl Level {
         (a0 + a1) + (a2 + a3)
     }
 
-    fn relax(&self, i: usize, u: &mut [f64], b: &[f64]) {
-        u[i] = (b[i] - self.off_diagonal(i, u)) / self.row(i)[0];
-    }
-
+    /// One lexicographic Gauss-Seidel sweep, forward or backward: the bands in parallel, then
+    /// the seams between them (backward: the other way round, so the pair is symmetric).
     fn sweep(&self, u: &mut [f64], b: &[f64], backward: bool) {
+        let shared = Shared(u.as_mut_ptr(), u.len());
+        let phase = |parts: &[Range<usize>]| {
+            let task = |points: &Range<usize>| {
+                let relax = |i: usize| {
+                    // SAFETY: the parts of one phase are at least three rows apart, beyond the
+                    // stencils' reach of two, so no task reads or writes a point another task
+                    // writes; indices are points of this level.
+                    let v = (b[i] - self.off_diagonal(i, |q| unsafe { shared.get(q) })) / self.row(i)[0];
+                    unsafe { shared.set(i, v) };
+                };
+                if backward {
+                    points.clone().rev().for_each(relax);
+                } else {
+                    points.clone().for_each(relax);
+                }
+            };
+            if parts.len() > 1 {
+                parts.par_iter().for_each(task);
+            } else {
+                parts.iter().for_each(task);
+            }
+        };
         if backward {
-            for i in (0..self.n).rev() {
-                self.relax(i, u, b);
-            }
+            phase(&self.seams);
+            phase(&self.bands);
         } else {
-            for i in 0..self.n {
-                self.relax(i, u, b);
-            }
+            phase(&self.bands);
+            phase(&self.seams);
         }
     }
 }
+
+/// A level with fewer points is swept by one thread.
+const PARALLEL_POINTS: usize = 8192;
 
 /// Points of a level in row-major order with a per-row index, for lookups by position.
 struct Points {
@@ -105,6 +131,15 @@ impl Points {
 
     fn len(&self) -> usize {
         self.xs.len()
+    }
+
+    /// [`bands`] of the points; one band for a level too small to share out.
+    fn bands(&self) -> (Vec<Range<usize>>, Vec<Range<usize>>) {
+        if self.len() < PARALLEL_POINTS {
+            return (std::iter::once(0..self.len()).collect(), Vec::new());
+        }
+        let rows = self.row_start.len() - 1;
+        bands(rows, |row| self.row_start[row.min(rows)], self.len())
     }
 
     #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
@@ -250,8 +285,18 @@ impl Levels {
             class.push(class_of[key]);
         }
         let nbr = neighbours(&points, &FINE);
-        let mut levels =
-            vec![Level { n: points.len(), k: FINE.len(), nbr, rows, class, parents: Vec::new(), pweight: Vec::new() }];
+        let mut levels = vec![Level {
+            n: points.len(),
+            k: FINE.len(),
+            nbr,
+            rows,
+            class,
+            parents: Vec::new(),
+            pweight: Vec::new(),
+            bands: Vec::new(),
+            seams: Vec::new(),
+        }];
+        (levels[0].bands, levels[0].seams) = points.bands();
         let mut lh = h;
         while let Some(fine) = levels.last_mut() {
             if fine.n <= COARSEST_MAX {
@@ -274,7 +319,12 @@ impl Levels {
                 class: Vec::new(),
                 parents: Vec::new(),
                 pweight: Vec::new(),
+                bands: Vec::new(),
+                seams: Vec::new(),
             });
+            if let Some(level) = levels.last_mut() {
+                (level.bands, level.seams) = coarse.bands();
+            }
             points = coarse;
             lh = lh.div_ceil(2);
         }

@@ -15,7 +15,7 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, Layout, LevelWork, MIN_REDUCTION,
-    Real, dense_coarsest, fine_row, square_index,
+    Real, Shared, bands, dense_coarsest, fine_row, square_index,
 };
 use crate::fill::{Cycle, FillParams};
 
@@ -136,7 +136,7 @@ impl Level {
         }
         let cell_off = offsets.iter().map(|&(dx, dy)| dy as isize * stride as isize + dx as isize).collect();
         let layout = Layout::new(runs.iter().map(|&(s, e, _)| (s, e)).collect());
-        let (bands, seams) = bands(&runs, stride, rows);
+        let (bands, seams) = run_bands(&runs, stride, rows);
         Self {
             x0,
             y0,
@@ -204,7 +204,7 @@ impl Level {
             }
         }
         self.layout = Layout::new(runs.iter().map(|&(s, e, _)| (s, e)).collect());
-        (self.bands, self.seams) = bands(&runs, self.stride, self.index.len() / self.stride);
+        (self.bands, self.seams) = run_bands(&runs, self.stride, self.index.len() / self.stride);
         self.runs = runs;
         self.interior = interior;
         self.row = row;
@@ -360,40 +360,6 @@ impl Level {
     }
 }
 
-/// A level's vector shared by the tasks of one sweep phase, which touch disjoint rows.
-#[derive(Clone, Copy)]
-struct Shared<T>(*mut T, usize);
-// SAFETY: see `Level::sweep`: the tasks of a phase never touch a row another task writes.
-unsafe impl<T> Send for Shared<T> {}
-// SAFETY: as above.
-unsafe impl<T> Sync for Shared<T> {}
-
-impl<T: Copy> Shared<T> {
-    /// # Safety
-    /// `c` is in bounds and no other thread writes it.
-    unsafe fn get(self, c: usize) -> T {
-        debug_assert!(c < self.1);
-        // SAFETY: the caller's contract.
-        unsafe { *self.0.add(c) }
-    }
-
-    /// # Safety
-    /// `c` is in bounds and no other thread reads or writes it.
-    unsafe fn set(self, c: usize, v: T) {
-        debug_assert!(c < self.1);
-        // SAFETY: the caller's contract.
-        unsafe { *self.0.add(c) = v };
-    }
-
-    /// # Safety
-    /// `c..c + n` is in bounds and nothing writes it while the slice lives.
-    unsafe fn slice<'a>(self, c: usize, n: usize) -> &'a [T] {
-        debug_assert!(c + n <= self.1);
-        // SAFETY: the caller's contract.
-        unsafe { std::slice::from_raw_parts(self.0.add(c), n) }
-    }
-}
-
 /// Points summed at once on a stretch of interior points.
 const CHUNK: usize = 64;
 
@@ -435,32 +401,9 @@ fn off_diagonal<T: Real, const K: usize>(a: &[T; K], u: impl Fn(usize) -> T, c: 
     (s0 + s1) + (s2 + s3)
 }
 
-/// Rows a band has at least.
-const BAND_ROWS: usize = 48;
-/// Bands a sweep has at most (a fixed split, so results do not depend on the thread count).
-const MAX_BANDS: usize = 8;
-/// Rows between bands: the stencils reach two rows.
-const SEAM_ROWS: usize = 2;
-
-/// Splits `runs` (row-major on a grid of `rows` rows of `stride` cells) into bands of rows and
-/// the seams between them.
-fn bands(runs: &[(usize, usize, usize)], stride: usize, rows: usize) -> (Vec<Range<usize>>, Vec<Range<usize>>) {
-    let count = (rows / BAND_ROWS).clamp(1, MAX_BANDS);
-    let first_run = |row: usize| runs.partition_point(|&(s, _, _)| s < row * stride);
-    let mut bands = Vec::with_capacity(count);
-    let mut seams = Vec::with_capacity(count - 1);
-    let mut start = 0;
-    for k in 1..=count {
-        let cut = k * rows / count;
-        if k == count {
-            bands.push(first_run(start)..runs.len());
-        } else {
-            bands.push(first_run(start)..first_run(cut));
-            seams.push(first_run(cut)..first_run(cut + SEAM_ROWS));
-            start = cut + SEAM_ROWS;
-        }
-    }
-    (bands, seams)
+/// [`bands`] of `runs`, row-major on a grid of `rows` rows of `stride` cells.
+fn run_bands(runs: &[(usize, usize, usize)], stride: usize, rows: usize) -> (Vec<Range<usize>>, Vec<Range<usize>>) {
+    bands(rows, |row| runs.partition_point(|&(s, _, _)| s < row * stride), runs.len())
 }
 
 /// The finest level of a `w × h` image's mask given by its row runs.

@@ -162,6 +162,74 @@ impl Real for f32 {
     }
 }
 
+/// Rows a band has at least.
+const BAND_ROWS: usize = 48;
+/// Bands a sweep has at most (a fixed split, so results do not depend on the thread count).
+const MAX_BANDS: usize = 8;
+/// Rows between bands: the stencils reach two rows.
+const SEAM_ROWS: usize = 2;
+
+/// Splits a level's points (or runs), row-major over `rows` rows, into bands of rows that a
+/// Gauss-Seidel sweep may relax in parallel, and the two-row seams between them, which it relaxes
+/// after the bands (before them going backward). Points of different bands are at least three
+/// rows apart, beyond the stencils' reach, so this is an exact Gauss-Seidel sweep in a fixed
+/// order. `first(row)` is the index of the first item at or after `row`; `total` the item count.
+fn bands(
+    rows: usize,
+    first: impl Fn(usize) -> usize,
+    total: usize,
+) -> (Vec<std::ops::Range<usize>>, Vec<std::ops::Range<usize>>) {
+    let count = (rows / BAND_ROWS).clamp(1, MAX_BANDS);
+    let mut bands = Vec::with_capacity(count);
+    let mut seams = Vec::with_capacity(count - 1);
+    let mut start = 0;
+    for k in 1..=count {
+        let cut = k * rows / count;
+        if k == count {
+            bands.push(first(start)..total);
+        } else {
+            bands.push(first(start)..first(cut));
+            seams.push(first(cut)..first(cut + SEAM_ROWS));
+            start = cut + SEAM_ROWS;
+        }
+    }
+    (bands, seams)
+}
+
+/// A level's vector shared by the tasks of one sweep phase, which touch disjoint rows.
+#[derive(Clone, Copy)]
+struct Shared<T>(*mut T, usize);
+// SAFETY: the sweeps' tasks of a phase never touch a row another task writes (see `bands`).
+unsafe impl<T> Send for Shared<T> {}
+// SAFETY: as above.
+unsafe impl<T> Sync for Shared<T> {}
+
+impl<T: Copy> Shared<T> {
+    /// # Safety
+    /// `c` is in bounds and no other thread writes it.
+    unsafe fn get(self, c: usize) -> T {
+        debug_assert!(c < self.1);
+        // SAFETY: the caller's contract.
+        unsafe { *self.0.add(c) }
+    }
+
+    /// # Safety
+    /// `c` is in bounds and no other thread reads or writes it.
+    unsafe fn set(self, c: usize, v: T) {
+        debug_assert!(c < self.1);
+        // SAFETY: the caller's contract.
+        unsafe { *self.0.add(c) = v };
+    }
+
+    /// # Safety
+    /// `c..c + n` is in bounds and nothing writes it while the slice lives.
+    unsafe fn slice<'a>(self, c: usize, n: usize) -> &'a [T] {
+        debug_assert!(c + n <= self.1);
+        // SAFETY: the caller's contract.
+        unsafe { std::slice::from_raw_parts(self.0.add(c), n) }
+    }
+}
+
 /// Points per group of a parallel loop.
 const GROUP_POINTS: usize = 16 * 1024;
 

@@ -8,7 +8,7 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, LevelWork, MIN_REDUCTION, NONE,
-    Shared, bands, dense_coarsest, fine_row, square_index,
+    Shared, banded, bands, dense_coarsest, fine_row, square_index,
 };
 use crate::fill::{Cycle, FillParams};
 
@@ -76,34 +76,20 @@ impl Level {
     /// the seams between them (backward: the other way round, so the pair is symmetric).
     fn sweep(&self, u: &mut [f64], b: &[f64], backward: bool) {
         let shared = Shared(u.as_mut_ptr(), u.len());
-        let phase = |parts: &[Range<usize>]| {
-            let task = |points: &Range<usize>| {
-                let relax = |i: usize| {
-                    // SAFETY: the parts of one phase are at least three rows apart, beyond the
-                    // stencils' reach of two, so no task reads or writes a point another task
-                    // writes; indices are points of this level.
-                    let v = (b[i] - self.off_diagonal(i, |q| unsafe { shared.get(q) })) / self.row(i)[0];
-                    unsafe { shared.set(i, v) };
-                };
-                if backward {
-                    points.clone().rev().for_each(relax);
-                } else {
-                    points.clone().for_each(relax);
-                }
+        banded(&self.bands, &self.seams, backward, |points| {
+            let relax = |i: usize| {
+                // SAFETY: the parts of one phase are at least three rows apart, beyond the
+                // stencils' reach of two, so no task reads or writes a point another task
+                // writes; indices are points of this level.
+                let v = (b[i] - self.off_diagonal(i, |q| unsafe { shared.get(q) })) / self.row(i)[0];
+                unsafe { shared.set(i, v) };
             };
-            if parts.len() > 1 {
-                parts.par_iter().for_each(task);
+            if backward {
+                points.rev().for_each(relax);
             } else {
-                parts.iter().for_each(task);
+                points.for_each(relax);
             }
-        };
-        if backward {
-            phase(&self.seams);
-            phase(&self.bands);
-        } else {
-            phase(&self.bands);
-            phase(&self.seams);
-        }
+        });
     }
 }
 

@@ -15,7 +15,7 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, Layout, LevelWork, MIN_REDUCTION,
-    Real, Shared, bands, dense_coarsest, fine_row, square_index,
+    Real, Shared, banded, bands, dense_coarsest, fine_row, square_index,
 };
 use crate::fill::{Cycle, FillParams};
 
@@ -252,31 +252,16 @@ impl Level {
     /// the seams between them (backward: the other way round, so the pair is symmetric).
     fn sweep<T: LevelReal>(&self, u: &mut [T], b: &[T], backward: bool) {
         let shared = Shared(u.as_mut_ptr(), u.len());
-        let phase = |parts: &[Range<usize>]| {
-            let task = |runs: &Range<usize>| {
-                let runs = runs.clone();
-                // SAFETY: the parts of one phase are at least three grid rows apart, beyond the
-                // stencils' reach of two, so no task reads or writes a row another task writes.
-                unsafe {
-                    match self.k() {
-                        13 => self.sweep_runs::<T, 13>(shared, b, runs, backward),
-                        _ => self.sweep_runs::<T, 25>(shared, b, runs, backward),
-                    }
+        banded(&self.bands, &self.seams, backward, |runs| {
+            // SAFETY: the parts of one phase are at least three grid rows apart, beyond the
+            // stencils' reach of two, so no task reads or writes a row another task writes.
+            unsafe {
+                match self.k() {
+                    13 => self.sweep_runs::<T, 13>(shared, b, runs, backward),
+                    _ => self.sweep_runs::<T, 25>(shared, b, runs, backward),
                 }
-            };
-            if parts.len() > 1 {
-                parts.par_iter().for_each(task);
-            } else {
-                parts.iter().for_each(task);
             }
-        };
-        if backward {
-            phase(&self.seams);
-            phase(&self.bands);
-        } else {
-            phase(&self.bands);
-            phase(&self.seams);
-        }
+        });
     }
 
     /// Relaxes the points of `runs` (indices) in order (or in reverse). On a run of interior points

@@ -19,6 +19,7 @@
 //! after the correction, and the coarsest level is factored densely. Work and memory follow the
 //! unknowns.
 
+use std::ops::Range;
 use std::time::Instant;
 
 use rayon::prelude::*;
@@ -174,11 +175,7 @@ const SEAM_ROWS: usize = 2;
 /// after the bands (before them going backward). Points of different bands are at least three
 /// rows apart, beyond the stencils' reach, so this is an exact Gauss-Seidel sweep in a fixed
 /// order. `first(row)` is the index of the first item at or after `row`; `total` the item count.
-fn bands(
-    rows: usize,
-    first: impl Fn(usize) -> usize,
-    total: usize,
-) -> (Vec<std::ops::Range<usize>>, Vec<std::ops::Range<usize>>) {
+fn bands(rows: usize, first: impl Fn(usize) -> usize, total: usize) -> (Vec<Range<usize>>, Vec<Range<usize>>) {
     let count = (rows / BAND_ROWS).clamp(1, MAX_BANDS);
     let mut bands = Vec::with_capacity(count);
     let mut seams = Vec::with_capacity(count - 1);
@@ -227,6 +224,25 @@ impl<T: Copy> Shared<T> {
         debug_assert!(c + n <= self.1);
         // SAFETY: the caller's contract.
         unsafe { std::slice::from_raw_parts(self.0.add(c), n) }
+    }
+}
+
+/// Runs `task` on every band in parallel, then on every seam (backward: the seams first): the
+/// order of a Gauss-Seidel sweep split by [`bands`].
+fn banded(bands: &[Range<usize>], seams: &[Range<usize>], backward: bool, task: impl Fn(Range<usize>) + Sync) {
+    let phase = |parts: &[Range<usize>]| {
+        if parts.len() > 1 {
+            parts.par_iter().for_each(|r| task(r.clone()));
+        } else {
+            parts.iter().for_each(|r| task(r.clone()));
+        }
+    };
+    if backward {
+        phase(seams);
+        phase(bands);
+    } else {
+        phase(bands);
+        phase(seams);
     }
 }
 

@@ -129,6 +129,14 @@ pub struct Report {
 /// A filled hole reaching farther than this from any known pixel is reported as deep.
 pub const DEEP_HOLE_PX: f32 = 16.0;
 
+/// A hole's depth as the warnings print it: one decimal, or two where one would not show that it
+/// exceeds [`DEEP_HOLE_PX`] (√257 px prints as 16.03, not 16.0).
+#[must_use]
+pub fn depth_text(px: f32) -> String {
+    let one = format!("{px:.1}");
+    if one.parse::<f32>().is_ok_and(|v| v <= DEEP_HOLE_PX) { format!("{px:.2}") } else { one }
+}
+
 /// Most holes listed in a report.
 pub const HOLE_LIST_MAX: usize = 1000;
 
@@ -210,10 +218,10 @@ pub fn deep_hole_warning(
     let d = deep.first()?;
     let n = deep.len();
     Some(format!(
-        "{n} hole{} reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {:.1} px, at ({}, {})): {}",
+        "{n} hole{} reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {} px, at ({}, {})): {}",
         if n == 1 { "" } else { "s" },
         if n == 1 { "es" } else { "" },
-        d.pixels,
+        depth_text(d.pixels),
         d.x,
         d.y,
         if method == crate::fill::FillMethod::Guided {
@@ -281,5 +289,14 @@ mod tests {
         let p = dir.path().join("abc.txt");
         std::fs::write(&p, b"abc").unwrap();
         assert_eq!(sha256_file(&p).unwrap(), "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
+    }
+
+    #[test]
+    fn a_depth_just_over_the_limit_does_not_print_as_the_limit() {
+        // Pixel-centre distances are square roots of integers; √257 ≈ 16.0312 (from memory,
+        // and 16.03² = 256.96, 16.04² = 257.28 bracket it).
+        assert_eq!(depth_text(257f32.sqrt()), "16.03");
+        assert_eq!(depth_text(16.06), "16.1");
+        assert_eq!(depth_text(24.0832), "24.1");
     }
 }

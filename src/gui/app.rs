@@ -788,11 +788,11 @@ impl App {
             ui.colored_label(
                 Color32::from_rgb(230, 170, 40),
                 format!(
-                    "{n} hole{} reach{} more than {} px from any known pixel (deepest {:.0} px at {}, {}): there any smooth fill is a guess.{}",
+                    "{n} hole{} reach{} more than {} px from any known pixel (deepest {} px at {}, {}): there any smooth fill is a guess.{}",
                     if n == 1 { "" } else { "s" },
                     if n == 1 { "es" } else { "" },
                     crate::report::DEEP_HOLE_PX,
-                    deepest.pixels,
+                    crate::report::depth_text(deepest.pixels),
                     deepest.x,
                     deepest.y,
                     if self.method == crate::fill::FillMethod::Guided || self.scientific {

@@ -215,15 +215,9 @@ pub fn deep_hole_warning(
     method: crate::fill::FillMethod,
     scientific: bool,
 ) -> Option<String> {
-    let d = deep.first()?;
-    let n = deep.len();
     Some(format!(
-        "{n} hole{} reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {} px, at ({}, {})): {}",
-        if n == 1 { "" } else { "s" },
-        if n == 1 { "es" } else { "" },
-        depth_text(d.pixels),
-        d.x,
-        d.y,
+        "{}: {}",
+        deep_hole_summary(deep)?,
         if method == crate::fill::FillMethod::Guided {
             "the texture there is copied from elsewhere, and only the rim is real"
         } else if scientific {
@@ -231,6 +225,22 @@ pub fn deep_hole_warning(
         } else {
             "a smooth fill only interpolates the rim there and texture is not reconstructed; for photographs, the guided fill (--method guided) carries texture in"
         }
+    ))
+}
+
+/// "N holes reach more than 16 px from any known pixel (deepest D px, at (x, y))", or `None`
+/// without deep holes: the start of every deep-hole warning (command line, report, window).
+#[must_use]
+pub fn deep_hole_summary(deep: &[crate::mask::distance::Depth]) -> Option<String> {
+    let d = deep.first()?;
+    let n = deep.len();
+    Some(format!(
+        "{n} hole{} reach{} more than {DEEP_HOLE_PX} px from any known pixel (deepest {} px, at ({}, {}))",
+        if n == 1 { "" } else { "s" },
+        if n == 1 { "es" } else { "" },
+        depth_text(d.pixels),
+        d.x,
+        d.y,
     ))
 }
 

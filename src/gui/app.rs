@@ -781,26 +781,20 @@ impl App {
             self.max_hole = limit.then_some(n);
         });
         ui.small(CAUTION);
-        if let Some(depth) = self.doc.as_ref().and_then(|d| d.depth.as_ref())
-            && let Some(deepest) = depth.deep.first()
+        if let Some(summary) = self
+            .doc
+            .as_ref()
+            .and_then(|d| d.depth.as_ref())
+            .and_then(|depth| crate::report::deep_hole_summary(&depth.deep))
         {
-            let n = depth.deep.len();
+            let advice = if self.method == crate::fill::FillMethod::Guided || self.scientific {
+                ""
+            } else {
+                " For photographs, Guided carries texture in."
+            };
             ui.colored_label(
                 Color32::from_rgb(230, 170, 40),
-                format!(
-                    "{n} hole{} reach{} more than {} px from any known pixel (deepest {} px at {}, {}): there any smooth fill is a guess.{}",
-                    if n == 1 { "" } else { "s" },
-                    if n == 1 { "es" } else { "" },
-                    crate::report::DEEP_HOLE_PX,
-                    crate::report::depth_text(deepest.pixels),
-                    deepest.x,
-                    deepest.y,
-                    if self.method == crate::fill::FillMethod::Guided || self.scientific {
-                        ""
-                    } else {
-                        " For photographs, Guided carries texture in."
-                    }
-                ),
+                format!("{summary}: there any smooth fill is a guess.{advice}"),
             );
         }
         ui.separator();

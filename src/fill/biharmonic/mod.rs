@@ -289,40 +289,54 @@ impl Layout {
     }
 
     /// As [`Layout::for_each_mut`], adding up what `f` returns in a fixed order (the same
-    /// result on any thread count).
+    /// result on any thread count). The groups are halved recursively with `rayon::join`, so a
+    /// call allocates nothing (it runs inside every cycle).
     fn sum_mut<T: Send>(&self, v: &mut [T], f: impl Fn(usize, usize, &mut [T]) -> f64 + Sync) -> f64 {
-        let mut pieces = Vec::with_capacity(self.groups.len());
-        let (mut rest, mut base) = (v, 0);
-        for g in &self.groups {
-            let (first, last) = (self.spans[g.start].0, self.spans[g.end - 1].1);
-            let (_, tail) = rest.split_at_mut(first - base);
-            let (piece, tail) = tail.split_at_mut(last - first);
-            pieces.push((g.clone(), first, piece));
-            (rest, base) = (tail, last);
-        }
-        let task = |(g, first, piece): (std::ops::Range<usize>, usize, &mut [T])| {
-            g.map(|k| {
-                let (s, e) = self.spans[k];
-                f(k, s, &mut piece[s - first..e - first])
-            })
-            .sum::<f64>()
-        };
-        if pieces.len() > 1 {
-            let partial: Vec<f64> = pieces.into_par_iter().map(task).collect();
-            partial.iter().sum()
-        } else {
-            pieces.into_iter().map(task).sum()
+        self.sum_groups(&self.groups, v, 0, &f)
+    }
+
+    /// [`Layout::sum_mut`] over `groups`, whose slots start at `base` in `v`.
+    fn sum_groups<T: Send>(
+        &self,
+        groups: &[Range<usize>],
+        v: &mut [T],
+        base: usize,
+        f: &(impl Fn(usize, usize, &mut [T]) -> f64 + Sync),
+    ) -> f64 {
+        match groups {
+            [] => 0.0,
+            [g] => g
+                .clone()
+                .map(|k| {
+                    let (s, e) = self.spans[k];
+                    f(k, s, &mut v[s - base..e - base])
+                })
+                .sum(),
+            _ => {
+                let (left, right) = groups.split_at(groups.len() / 2);
+                let cut = self.spans[right[0].start].0;
+                let (a, b) = v.split_at_mut(cut - base);
+                let (x, y) = rayon::join(|| self.sum_groups(left, a, base, f), || self.sum_groups(right, b, cut, f));
+                x + y
+            }
         }
     }
 
     /// `Σ a·b` over the points, summed in a fixed order (the same result on any thread count).
     fn dot(&self, a: &[f64], b: &[f64]) -> f64 {
-        let partial: Vec<f64> = self
-            .groups
-            .par_iter()
-            .map(|g| self.spans[g.clone()].iter().map(|&(s, e)| dot_run(&a[s..e], &b[s..e])).sum::<f64>())
-            .collect();
-        partial.iter().sum()
+        self.dot_groups(&self.groups, a, b)
+    }
+
+    fn dot_groups(&self, groups: &[Range<usize>], a: &[f64], b: &[f64]) -> f64 {
+        match groups {
+            [] => 0.0,
+            [g] => self.spans[g.clone()].iter().map(|&(s, e)| dot_run(&a[s..e], &b[s..e])).sum(),
+            _ => {
+                let (left, right) = groups.split_at(groups.len() / 2);
+                let (x, y) = rayon::join(|| self.dot_groups(left, a, b), || self.dot_groups(right, a, b));
+                x + y
+            }
+        }
     }
 
     /// `to = from` over the points, converted.

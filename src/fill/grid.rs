@@ -149,6 +149,67 @@ pub(crate) struct Coarse {
     pcol: Vec<[f32; 9]>,
     /// Number of points.
     n: usize,
+    /// Runs of interior points along each row.
+    runs: Runs,
+    /// Runs where a row and the next one are both interior points.
+    pair_runs: Runs,
+}
+
+/// Runs `[a, b)` of columns per row, in increasing order.
+#[derive(Debug, Default)]
+struct Runs {
+    spans: Vec<(u32, u32)>,
+    /// `spans[at[y]..at[y + 1]]` are row `y`'s runs.
+    at: Vec<u32>,
+}
+
+impl Runs {
+    /// The runs of `inside(x, y)` over `w` columns of `h` rows.
+    fn of(w: usize, h: usize, inside: impl Fn(usize, usize) -> bool) -> Self {
+        let mut r = Self { spans: Vec::new(), at: vec![0] };
+        for y in 0..h {
+            let mut start = None;
+            for x in 0..=w {
+                let here = x < w && inside(x, y);
+                match (here, start) {
+                    (true, None) => start = Some(x),
+                    (false, Some(a)) => {
+                        r.spans.push((a as u32, x as u32));
+                        start = None;
+                    }
+                    _ => {}
+                }
+            }
+            r.at.push(r.spans.len() as u32);
+        }
+        r
+    }
+
+    fn row(&self, y: usize) -> &[(u32, u32)] {
+        &self.spans[self.at[y] as usize..self.at[y + 1] as usize]
+    }
+
+    fn bytes(&self) -> usize {
+        self.spans.len() * 8 + self.at.len() * 4
+    }
+}
+
+/// Calls `f(a, b, true)` for each run and `f(a, b, false)` for the columns `a..b` of `0..w`
+/// between them, left to right.
+#[inline]
+fn split_row(runs: &[(u32, u32)], w: usize, mut f: impl FnMut(usize, usize, bool)) {
+    let mut next = 0;
+    for &(a, b) in runs {
+        let (a, b) = (a as usize, b as usize);
+        if a > next {
+            f(next, a, false);
+        }
+        f(a, b, true);
+        next = b;
+    }
+    if next < w {
+        f(next, w, false);
+    }
 }
 
 impl Coarse {
@@ -481,7 +542,11 @@ fn coarsen<F: FineView>(f: &F, interior: [f32; 9]) -> Coarse {
             pcol.push(col);
         }
     }
-    Coarse { w: wc, h: hc, pw, id, table, pcol, n }
+    let mut c = Coarse { w: wc, h: hc, pw, id, table, pcol, n, runs: Runs::default(), pair_runs: Runs::default() };
+    c.runs = Runs::of(wc, hc, |x, y| c.id[c.at(x, y)] == INTERIOR);
+    c.pair_runs =
+        Runs::of(wc, hc, |x, y| y + 1 < hc && c.id[c.at(x, y)] == INTERIOR && c.id[c.at(x, y + 1)] == INTERIOR);
+    c
 }
 
 impl Grid {
@@ -560,7 +625,7 @@ impl Grid {
     pub(crate) fn memory_bytes(&self) -> usize {
         let mut total = self.members.bits.len() * 8;
         for l in &self.levels {
-            total += l.id.len() * 4 + l.table.len() * 72;
+            total += l.id.len() * 4 + l.table.len() * 72 + l.runs.bytes() + l.pair_runs.bytes();
         }
         if let Coarsest::Dense { points, .. } = &self.coarsest {
             total += points.len() * (8 + points.len() * 8);
@@ -622,6 +687,8 @@ struct Work<const C: usize> {
     scratch: Vec<Vec<f64>>,
     /// Partial sums of the residual norm, one per task of `ROWS` rows.
     partial: Vec<[f64; C]>,
+    /// One padded coarse row per band of the coarse sweeps.
+    row_buf: Vec<f32>,
 }
 
 struct Cycler<'a, const C: usize> {
@@ -884,22 +951,48 @@ impl<const C: usize> Cycler<'_, C> {
         let lv = &self.g.levels[l - 1];
         let (e, rhs) = (&self.work.e[l - 1], &self.work.rhs[l - 1]);
         let off = lv.offsets();
-        for x in 0..lv.w {
-            let i = lv.at(x, y);
-            let id = lv.id[i] as usize;
-            if id == 0 {
-                out[x * C..x * C + C].fill(0.0);
-                continue;
-            }
-            let s = &lv.table[id];
-            for c in 0..C {
-                let mut r = f64::from(rhs[i * C + c]);
-                for k in 0..9 {
-                    r -= f64::from(s[k]) * f64::from(e[(i as isize + off[k]) as usize * C + c]);
+        let s = lv.table[INTERIOR as usize].map(f64::from);
+        let pwc = lv.pw * C;
+        split_row(lv.runs.row(y), lv.w, |a, b, run| {
+            if !run {
+                for x in a..b {
+                    let i = lv.at(x, y);
+                    let id = lv.id[i] as usize;
+                    if id == 0 {
+                        out[x * C..x * C + C].fill(0.0);
+                        continue;
+                    }
+                    let st = &lv.table[id];
+                    for c in 0..C {
+                        let mut r = f64::from(rhs[i * C + c]);
+                        for k in 0..9 {
+                            r -= f64::from(st[k]) * f64::from(e[(i as isize + off[k]) as usize * C + c]);
+                        }
+                        out[x * C + c] = r;
+                    }
                 }
-                out[x * C + c] = r;
+            } else {
+                // Interior points: the same stencil everywhere, summed along the run.
+                let (i0, n) = (lv.at(a, y) * C, (b - a) * C);
+                let up = &e[i0 - pwc - C..i0 - pwc + n + C];
+                let mid = &e[i0 - C..i0 + n + C];
+                let down = &e[i0 + pwc - C..i0 + pwc + n + C];
+                let r = &rhs[i0..i0 + n];
+                for (k, o) in out[a * C..b * C].iter_mut().enumerate() {
+                    let f = |v: &[f32], j: usize| f64::from(v[j]);
+                    *o = f(r, k)
+                        - s[0] * f(up, k)
+                        - s[1] * f(up, k + C)
+                        - s[2] * f(up, k + 2 * C)
+                        - s[3] * f(mid, k)
+                        - s[4] * f(mid, k + C)
+                        - s[5] * f(mid, k + 2 * C)
+                        - s[6] * f(down, k)
+                        - s[7] * f(down, k + C)
+                        - s[8] * f(down, k + 2 * C);
+                }
             }
-        }
+        });
     }
 
     /// One row of `Pᵀ·r`: the right-hand side of coarse row `cy` of level `l + 1` from the fine
@@ -1014,89 +1107,103 @@ impl<const C: usize> Cycler<'_, C> {
         let ec = std::mem::take(&mut self.work.e[l]);
         let (fw, fh) = self.fine_dims(l);
         if l == 0 {
-            let w = fw;
             let mut u = std::mem::take(&mut self.work.u);
             let this = &*self;
-            let coarse = &this.g.levels[0];
-            let (id, pw) = (&coarse.id[..], coarse.pw);
-            u.par_chunks_mut(w * C * ROWS).enumerate().for_each(|(t, rows)| {
-                for (k, row) in rows.chunks_mut(w * C).enumerate() {
+            u.par_chunks_mut(fw * C * ROWS).enumerate().for_each(|(t, rows)| {
+                for (k, row) in rows.chunks_mut(fw * C).enumerate() {
                     let y = t * ROWS + k;
-                    let base = coarse.at(0, y / 2);
-                    let odd_row = y % 2 == 1;
-                    // Bilinear interpolation where the parents are interior points, read along
-                    // the row; `interpolate` elsewhere. The padded coarse grid keeps `i + pw + 1`
-                    // in bounds for every fine point.
-                    let mut one = |x: usize| {
-                        let i = base + x / 2;
-                        let e = |k: usize, c: usize| f64::from(ec[k * C + c]);
-                        let fast = match (x % 2 == 1, odd_row) {
-                            (false, false) => {
-                                for c in 0..C {
-                                    row[x * C + c] += e(i, c);
-                                }
-                                true
-                            }
-                            (true, false) if id[i] == INTERIOR && id[i + 1] == INTERIOR => {
-                                for c in 0..C {
-                                    row[x * C + c] += 0.5 * (e(i, c) + e(i + 1, c));
-                                }
-                                true
-                            }
-                            (false, true) if id[i] == INTERIOR && id[i + pw] == INTERIOR => {
-                                for c in 0..C {
-                                    row[x * C + c] += 0.5 * (e(i, c) + e(i + pw, c));
-                                }
-                                true
-                            }
-                            (true, true)
-                                if id[i] == INTERIOR
-                                    && id[i + 1] == INTERIOR
-                                    && id[i + pw] == INTERIOR
-                                    && id[i + pw + 1] == INTERIOR =>
-                            {
-                                for c in 0..C {
-                                    row[x * C + c] += 0.25 * (e(i, c) + e(i + 1, c) + e(i + pw, c) + e(i + pw + 1, c));
-                                }
-                                true
-                            }
-                            _ => false,
-                        };
-                        if !fast {
-                            let v = this.interpolate(0, &ec, x, y);
-                            for c in 0..C {
-                                row[x * C + c] += v[c];
-                            }
+                    this.interpolate_row(0, &ec, y, fw, row, |row, x, v| {
+                        for c in 0..C {
+                            row[x * C + c] += v[c];
                         }
-                    };
-                    this.g.members.for_row_spans(y, None, |first, end| (first..end).for_each(&mut one));
+                    });
                 }
             });
             self.work.u = u;
         } else {
             let mut ef = std::mem::take(&mut self.work.e[l - 1]);
             let this = &*self;
-            let fine = &this.g.levels[l - 1];
-            let pw = fine.pw;
+            let pw = this.g.levels[l - 1].pw;
             // Padded rows 1..=fh hold the fine grid.
             ef[pw * C..(fh + 1) * pw * C].par_chunks_mut(pw * C * ROWS).enumerate().for_each(|(t, rows)| {
                 for (k, row) in rows.chunks_mut(pw * C).enumerate() {
                     let y = t * ROWS + k;
-                    for x in 0..fw {
-                        if fine.id[fine.at(x, y)] == NONE {
-                            continue;
-                        }
-                        let v = this.interpolate(l, &ec, x, y);
+                    this.interpolate_row(l, &ec, y, fw, &mut row[C..], |row, x, v| {
                         for c in 0..C {
-                            let p = &mut row[(x + 1) * C + c];
+                            let p = &mut row[x * C + c];
                             *p = (f64::from(*p) + v[c]) as f32;
                         }
-                    }
+                    });
                 }
             });
             self.work.e[l - 1] = ef;
         }
         self.work.e[l] = ec;
+    }
+
+    /// Adds the interpolated correction `ec` of `levels[l]` to row `y` of the finer level (`fw`
+    /// points, starting at `row[0]`) through `add(row, x, value)`: bilinear along runs whose
+    /// parents are all interior points, [`Cycler::interpolate`] at the other points of the row.
+    #[inline]
+    fn interpolate_row<T>(
+        &self,
+        l: usize,
+        ec: &[f32],
+        y: usize,
+        fw: usize,
+        row: &mut [T],
+        add: impl Fn(&mut [T], usize, [f64; C]),
+    ) {
+        let coarse = &self.g.levels[l];
+        let (cy, odd_row) = (y / 2, y % 2 == 1);
+        let runs = if odd_row { coarse.pair_runs.row(cy) } else { coarse.runs.row(cy) };
+        let pw = coarse.pw;
+        // The parents' values, averaged down the column on odd rows.
+        let column = |i: usize| -> [f64; C] {
+            std::array::from_fn(|c| {
+                if odd_row {
+                    0.5 * (f64::from(ec[i * C + c]) + f64::from(ec[(i + pw) * C + c]))
+                } else {
+                    f64::from(ec[i * C + c])
+                }
+            })
+        };
+        let mut next = 0;
+        let gap = |row: &mut [T], a: usize, b: usize| {
+            for x in a..b {
+                if self.present(l, x, y) {
+                    let v = self.interpolate(l, ec, x, y);
+                    add(row, x, v);
+                }
+            }
+        };
+        for &(a, b) in runs {
+            // Fine points 2a ..= 2b − 2 have only interior parents.
+            let (lo, hi) = (2 * a as usize, 2 * b as usize - 1);
+            gap(row, next, lo);
+            let mut left = column(coarse.at(a as usize, cy));
+            for cx in a as usize..b as usize {
+                add(row, 2 * cx, left);
+                if 2 * cx + 1 < hi {
+                    let right = column(coarse.at(cx + 1, cy));
+                    add(row, 2 * cx + 1, std::array::from_fn(|c| 0.5 * (left[c] + right[c])));
+                    left = right;
+                }
+            }
+            next = hi;
+        }
+        gap(row, next, fw);
+    }
+
+    /// Whether the point `(x, y)` of the level finer than `levels[l]` exists.
+    #[inline]
+    fn present(&self, l: usize, x: usize, y: usize) -> bool {
+        if l == 0 {
+            self.g.members.get(x as isize, y as isize)
+        } else {
+            let fine = &self.g.levels[l - 1];
+            fine.id[fine.at(x, y)] != NONE
+        }
     }
 
     // -----------------------------------------------------------------------------------------
@@ -1108,58 +1215,104 @@ impl<const C: usize> Cycler<'_, C> {
     /// a wavefront (even rows first, or odd rows first in reverse).
     fn sweep_coarse(&mut self, l: usize, reverse: bool) {
         let e = Shared(self.work.e[l].as_mut_ptr());
+        let buf = Shared(self.work.row_buf.as_mut_ptr());
         let this = &*self;
         let lv = &this.g.levels[l];
         let first_parity = usize::from(reverse);
-        wavefront(lv.h, this.band.div_ceil(2 << l).max(8), |y, phase| {
+        let band = coarse_band(this.band, l);
+        debug_assert!(lv.h.div_ceil(band) * lv.pw * C <= this.work.row_buf.len());
+        wavefront(lv.h, band, |y, phase| {
             let parity = if phase == 0 { first_parity } else { 1 - first_parity };
             if y % 2 == parity {
                 // SAFETY: a row's points couple to their own row and the two rows of the other
                 // parity; `wavefront` never runs a row while a neighbour row of the other phase
-                // is being written, and rows of one parity never touch.
-                unsafe { this.relax_coarse_row(l, e, y, usize::from(reverse)) };
+                // is being written, and rows of one parity never touch. Each band's rows run one
+                // after another in one task, which alone uses the band's stretch of `buf`.
+                unsafe {
+                    let buf = std::slice::from_raw_parts_mut(buf.get().add(y / band * lv.pw * C), lv.pw * C);
+                    this.relax_coarse_row(l, e, y, usize::from(reverse), buf);
+                }
             }
         });
     }
 
     /// Gauss-Seidel on row `y` of coarse level `l`: the points with `x % 2 == x_first`, then the
-    /// others.
+    /// others. On runs of interior points the terms from the rows above and below (which this
+    /// row's updates do not change) are summed for the whole run first, into `buf`.
     ///
     /// # Safety
     /// No other task writes row `y` or its neighbour rows, or reads row `y`, meanwhile.
-    unsafe fn relax_coarse_row(&self, l: usize, e: Shared<f32>, y: usize, x_first: usize) {
+    unsafe fn relax_coarse_row(&self, l: usize, e: Shared<f32>, y: usize, x_first: usize, buf: &mut [f32]) {
         let lv = &self.g.levels[l];
         let rhs = &self.work.rhs[l];
         let off = lv.offsets().map(|o| o * C as isize);
-        let interior = lv.table[INTERIOR as usize];
-        let inv_interior = 1.0 / interior[4];
+        let s = lv.table[INTERIOR as usize];
+        let inv_interior = 1.0 / s[4];
         let e = e.get();
+        let runs = lv.runs.row(y);
+        let pwc = lv.pw * C;
+        for &(a, b) in runs {
+            let (a, b) = (a as usize, b as usize);
+            let (i0, n) = (lv.at(a, y) * C, (b - a) * C);
+            // SAFETY: rows y − 1 and y + 1 are not written meanwhile (see the contract); the
+            // padded ring keeps the runs' neighbours in bounds.
+            let (up, down) = unsafe {
+                (
+                    std::slice::from_raw_parts(e.add(i0 - pwc - C), n + 2 * C),
+                    std::slice::from_raw_parts(e.add(i0 + pwc - C), n + 2 * C),
+                )
+            };
+            let r = &rhs[i0..i0 + n];
+            let t = &mut buf[a * C..b * C];
+            for k in 0..n {
+                t[k] = r[k]
+                    - s[0] * up[k]
+                    - s[1] * up[k + C]
+                    - s[2] * up[k + 2 * C]
+                    - s[6] * down[k]
+                    - s[7] * down[k + C]
+                    - s[8] * down[k + 2 * C];
+            }
+        }
         for start in [x_first, 1 - x_first] {
-            for x in (start..lv.w).step_by(2) {
-                let i = lv.at(x, y);
-                let id = lv.id[i];
-                if id == NONE {
-                    continue;
-                }
-                let (s, inv) = if id == INTERIOR {
-                    (&interior, inv_interior)
-                } else {
-                    let s = &lv.table[id as usize];
-                    (s, 1.0 / s[4])
-                };
-                for c in 0..C {
-                    // SAFETY: the padded ring keeps every neighbour index in bounds; see the
-                    // function's contract for the exclusivity.
-                    unsafe {
-                        let p = e.add(i * C + c);
-                        let mut r = rhs[i * C + c];
-                        for k in [0, 1, 2, 3, 5, 6, 7, 8] {
-                            r -= s[k] * *p.offset(off[k]);
+            let first_of = |a: usize| a + (a + 2 - start) % 2;
+            split_row(runs, lv.w, |a, b, run| {
+                if run {
+                    for x in (first_of(a)..b).step_by(2) {
+                        let i = lv.at(x, y) * C;
+                        for c in 0..C {
+                            // SAFETY: the padded ring keeps every neighbour index in bounds; see
+                            // the function's contract for the exclusivity.
+                            unsafe {
+                                let p = e.add(i + c);
+                                *p = (buf[x * C + c] - s[3] * *p.sub(C) - s[5] * *p.add(C)) * inv_interior;
+                            }
                         }
-                        *p = r * inv;
+                    }
+                } else {
+                    for x in (first_of(a)..b).step_by(2) {
+                        let i = lv.at(x, y);
+                        let id = lv.id[i];
+                        if id == NONE {
+                            continue;
+                        }
+                        let st = &lv.table[id as usize];
+                        let inv = 1.0 / st[4];
+                        for c in 0..C {
+                            // SAFETY: the padded ring keeps every neighbour index in bounds; see
+                            // the function's contract for the exclusivity.
+                            unsafe {
+                                let p = e.add(i * C + c);
+                                let mut r = rhs[i * C + c];
+                                for k in [0, 1, 2, 3, 5, 6, 7, 8] {
+                                    r -= st[k] * *p.offset(off[k]);
+                                }
+                                *p = r * inv;
+                            }
+                        }
                     }
                 }
-            }
+            });
         }
     }
 
@@ -1211,6 +1364,11 @@ impl<const C: usize> Cycler<'_, C> {
         self.ascend(0);
         self.cycle(0, self.params.cycle);
     }
+}
+
+/// Rows per band of the sweeps of coarse level `l` (index into `levels`), from level 0's `band`.
+fn coarse_band(band: usize, l: usize) -> usize {
+    band.div_ceil(2 << l).max(8)
 }
 
 /// Runs a Gauss-Seidel sweep of two phases over rows `0..h` in bands of `band` rows:
@@ -1369,7 +1527,17 @@ pub(crate) fn solve_group<const C: usize>(
         })
         .collect();
     let partial = vec![[0f64; C]; h.div_ceil(ROWS)];
-    let mut cy = Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial }, band, red_current: false };
+    let row_buf = vec![
+        0f32;
+        g.levels
+            .iter()
+            .enumerate()
+            .map(|(l, lv)| lv.h.div_ceil(coarse_band(band, l)) * lv.pw * C)
+            .max()
+            .unwrap_or(0)
+    ];
+    let mut cy =
+        Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial, row_buf }, band, red_current: false };
 
     // ‖b‖: the known neighbours of every unknown, summed.
     let b_sq = {

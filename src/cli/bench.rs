@@ -36,7 +36,7 @@ pub struct BenchArgs {
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
     /// Gauss-Seidel sweeps before and after each coarse-grid correction, as PRE,POST.
-    #[arg(long, value_name = "PRE,POST", default_value = "2,2")]
+    #[arg(long, value_name = "PRE,POST", default_value = "1,3")]
     pub smooth: String,
     /// Also write each case's mask (PNG) and gray image (32-bit float TIFF) into this folder, for
     /// comparing with other solvers (scripts/amg-compare.py).

@@ -39,6 +39,9 @@ const DENSE_MAX: usize = 1500;
 const MIN_REDUCTION: f64 = 0.7;
 /// Rows per parallel task for the passes over coarse levels and the norms.
 const ROWS: usize = 16;
+/// Coarse levels with at most this many points are worked on by one task: waking the other
+/// threads for each pass over them would cost more than the pass.
+const SMALL_LEVEL: usize = 1 << 16;
 /// Stencil id of "no point here".
 const NONE: u32 = 0;
 /// Stencil id of the level's interior stencil.
@@ -697,9 +700,9 @@ struct Cycler<'a, const C: usize> {
     work: Work<C>,
     /// Rows per band of the level-0 wavefront sweep.
     band: usize,
-    /// Whether the level-0 red cells are the Gauss-Seidel update of the current black cells
-    /// (true right after a post-smoothing sweep, which ends with red).
-    red_current: bool,
+    /// The colour of the level-0 cells relaxed last, if nothing changed level 0 since: those
+    /// cells are the Gauss-Seidel update of the others, so their residuals are zero.
+    relaxed_last: Option<usize>,
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -830,38 +833,60 @@ impl<const C: usize> Cycler<'_, C> {
         out
     }
 
-    /// Calls `f(first, r)` with the level-0 residuals `r` of the unknowns `first, first + 1, …`
-    /// of row `y` (`C` per point), in spans of at most 64 points.
+    /// Calls `f(first, step, r)` with the level-0 residuals `r` of the unknowns `first, first +
+    /// step, …` of row `y` (`C` per point), in spans of at most 64 points. Right after a half-sweep
+    /// of one colour the residuals of that colour are zero up to rounding (each cell was just set
+    /// to the mean of its neighbours), and only the other colour's are computed (`step` 2).
     #[inline]
-    fn residual_spans0(&self, y: usize, mut f: impl FnMut(usize, &[f64])) {
+    fn residual_spans0(&self, y: usize, mut f: impl FnMut(usize, usize, &[f64])) {
         let (w, h) = (self.g.w, self.g.h);
         let u = &self.work.u;
         let inner_row = y > 0 && y + 1 < h;
+        let colour = self.relaxed_last.map(|c| 1 - c);
+        let step = if colour.is_some() { 2 } else { 1 };
         let mut buf = [0f64; 64 * 4];
-        self.g.members.for_row_spans(y, None, |first, end| {
-            let n = end - first;
+        self.g.members.for_row_spans(y, colour, |first, end| {
+            let n = (end - first).div_ceil(step);
             let out = &mut buf[..n * C];
             if inner_row && first > 0 && end < w {
                 let wc = w * C;
                 let mid = &u[y * wc + (first - 1) * C..y * wc + (end + 1) * C];
                 let up = &u[(y - 1) * wc + first * C..(y - 1) * wc + end * C];
                 let down = &u[(y + 1) * wc + first * C..(y + 1) * wc + end * C];
-                for (k, o) in out.iter_mut().enumerate() {
-                    *o = mid[k] + mid[k + 2 * C] + up[k] + down[k] - 4.0 * mid[k + C];
+                if step == 1 {
+                    for (k, o) in out.iter_mut().enumerate() {
+                        *o = mid[k] + mid[k + 2 * C] + up[k] + down[k] - 4.0 * mid[k + C];
+                    }
+                } else {
+                    for (j, o) in out.chunks_exact_mut(C).enumerate() {
+                        let k = 2 * j * C;
+                        for (c, o) in o.iter_mut().enumerate() {
+                            *o = mid[k + c] + mid[k + 2 * C + c] + up[k + c] + down[k + c] - 4.0 * mid[k + C + c];
+                        }
+                    }
                 }
             } else {
-                for (k, x) in (first..end).enumerate() {
+                for (k, x) in (first..end).step_by(step).enumerate() {
                     out[k * C..k * C + C].copy_from_slice(&self.res0(x, y));
                 }
             }
-            f(first, out);
+            f(first, step, out);
         });
     }
 
     /// The residual of level 0 along row `y` (zero off the unknowns), into `out` (`w · C` long).
     fn residual_row0(&self, y: usize, out: &mut [f64]) {
         out.fill(0.0);
-        self.residual_spans0(y, |first, r| out[first * C..first * C + r.len()].copy_from_slice(r));
+        self.residual_spans0(y, |first, step, r| {
+            if step == 1 {
+                out[first * C..first * C + r.len()].copy_from_slice(r);
+            } else {
+                for (k, p) in r.chunks_exact(C).enumerate() {
+                    let x = first + 2 * k;
+                    out[x * C..x * C + C].copy_from_slice(p);
+                }
+            }
+        });
     }
 
     /// `‖b − A·u‖²` per channel on level 0, summed in a fixed order.
@@ -872,7 +897,7 @@ impl<const C: usize> Cycler<'_, C> {
         partial.par_iter_mut().enumerate().for_each(|(t, s)| {
             *s = [0f64; C];
             for y in t * ROWS..((t + 1) * ROWS).min(h) {
-                this.residual_spans0(y, |_, r| {
+                this.residual_spans0(y, |_, _, r| {
                     for p in r.chunks_exact(C) {
                         for c in 0..C {
                             s[c] += p[c] * p[c];
@@ -896,8 +921,9 @@ impl<const C: usize> Cycler<'_, C> {
             let this = &*self;
             let cw = coarse.pw * C;
             let (fw, fh) = this.fine_dims(l);
-            // Coarse rows in tasks of ROWS; each task keeps the three fine residual rows it needs.
-            rhs.par_chunks_mut(cw * ROWS).zip(scratch.par_chunks_mut(3 * fw * C)).enumerate().for_each(
+            // Coarse rows in tasks; each task keeps the three fine residual rows it needs.
+            let per_task = task_rows(coarse);
+            rhs.par_chunks_mut(cw * per_task).zip(scratch.par_chunks_mut(3 * fw * C)).enumerate().for_each(
                 |(t, (chunk, buf))| {
                     let (r0, rest) = buf.split_at_mut(fw * C);
                     let (r1, r2) = rest.split_at_mut(fw * C);
@@ -905,7 +931,7 @@ impl<const C: usize> Cycler<'_, C> {
                     let mut have = [usize::MAX; 3];
                     for (k, out) in chunk.chunks_mut(cw).enumerate() {
                         out.fill(0.0);
-                        let py = t * ROWS + k;
+                        let py = t * per_task + k;
                         if py == 0 || py > coarse.h {
                             continue;
                         }
@@ -1107,6 +1133,7 @@ impl<const C: usize> Cycler<'_, C> {
         let ec = std::mem::take(&mut self.work.e[l]);
         let (fw, fh) = self.fine_dims(l);
         if l == 0 {
+            self.relaxed_last = None;
             let mut u = std::mem::take(&mut self.work.u);
             let this = &*self;
             u.par_chunks_mut(fw * C * ROWS).enumerate().for_each(|(t, rows)| {
@@ -1125,9 +1152,10 @@ impl<const C: usize> Cycler<'_, C> {
             let this = &*self;
             let pw = this.g.levels[l - 1].pw;
             // Padded rows 1..=fh hold the fine grid.
-            ef[pw * C..(fh + 1) * pw * C].par_chunks_mut(pw * C * ROWS).enumerate().for_each(|(t, rows)| {
+            let per_task = task_rows(&this.g.levels[l - 1]);
+            ef[pw * C..(fh + 1) * pw * C].par_chunks_mut(pw * C * per_task).enumerate().for_each(|(t, rows)| {
                 for (k, row) in rows.chunks_mut(pw * C).enumerate() {
-                    let y = t * ROWS + k;
+                    let y = t * per_task + k;
                     this.interpolate_row(l, &ec, y, fw, &mut row[C..], |row, x, v| {
                         for c in 0..C {
                             let p = &mut row[x * C + c];
@@ -1219,7 +1247,7 @@ impl<const C: usize> Cycler<'_, C> {
         let this = &*self;
         let lv = &this.g.levels[l];
         let first_parity = usize::from(reverse);
-        let band = coarse_band(this.band, l);
+        let band = coarse_band(this.band, l, lv);
         debug_assert!(lv.h.div_ceil(band) * lv.pw * C <= this.work.row_buf.len());
         wavefront(lv.h, band, |y, phase| {
             let parity = if phase == 0 { first_parity } else { 1 - first_parity };
@@ -1367,8 +1395,13 @@ impl<const C: usize> Cycler<'_, C> {
 }
 
 /// Rows per band of the sweeps of coarse level `l` (index into `levels`), from level 0's `band`.
-fn coarse_band(band: usize, l: usize) -> usize {
-    band.div_ceil(2 << l).max(8)
+fn coarse_band(band: usize, l: usize, level: &Coarse) -> usize {
+    if level.n <= SMALL_LEVEL { level.h.max(1) } else { band.div_ceil(2 << l).max(8) }
+}
+
+/// Rows per task of the passes over `level` (its padded rows for one task).
+fn task_rows(level: &Coarse) -> usize {
+    if level.n <= SMALL_LEVEL { level.h + 2 } else { ROWS }
 }
 
 /// Runs a Gauss-Seidel sweep of two phases over rows `0..h` in bands of `band` rows:
@@ -1402,7 +1435,7 @@ impl<const C: usize> Levels for Cycler<'_, C> {
         l == self.g.levels.len()
     }
     fn pre_smooth(&mut self, l: usize) {
-        if l == 0 && self.red_current && self.params.pre_smooth > 0 {
+        if l == 0 && self.relaxed_last == Some(0) && self.params.pre_smooth > 0 {
             // The last post-smoothing sweep ended with the red cells, and nothing changed since:
             // a red half-sweep now would recompute the same values, so start with black.
             self.sweep0_from(false, 1);
@@ -1410,11 +1443,14 @@ impl<const C: usize> Levels for Cycler<'_, C> {
         } else {
             self.smooth(l, self.params.pre_smooth, false);
         }
+        if l == 0 && self.params.pre_smooth > 0 {
+            self.relaxed_last = Some(1);
+        }
     }
     fn post_smooth(&mut self, l: usize) {
         self.smooth(l, self.params.post_smooth, true);
         if l == 0 {
-            self.red_current = self.params.post_smooth > 0;
+            self.relaxed_last = (self.params.post_smooth > 0).then_some(0);
         }
     }
     fn descend(&mut self, l: usize) {
@@ -1522,7 +1558,7 @@ pub(crate) fn solve_group<const C: usize>(
     let scratch = (0..g.levels.len())
         .map(|l| {
             let fw = if l == 0 { w } else { g.levels[l - 1].w };
-            let tasks = (g.levels[l].h + 2).div_ceil(ROWS);
+            let tasks = (g.levels[l].h + 2).div_ceil(task_rows(&g.levels[l]));
             vec![0f64; tasks * 3 * fw * C]
         })
         .collect();
@@ -1532,12 +1568,12 @@ pub(crate) fn solve_group<const C: usize>(
         g.levels
             .iter()
             .enumerate()
-            .map(|(l, lv)| lv.h.div_ceil(coarse_band(band, l)) * lv.pw * C)
+            .map(|(l, lv)| lv.h.div_ceil(coarse_band(band, l, lv)) * lv.pw * C)
             .max()
             .unwrap_or(0)
     ];
     let mut cy =
-        Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial, row_buf }, band, red_current: false };
+        Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial, row_buf }, band, relaxed_last: None };
 
     // ‖b‖: the known neighbours of every unknown, summed.
     let b_sq = {

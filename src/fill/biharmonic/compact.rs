@@ -7,8 +7,8 @@ use std::ops::Range;
 use rayon::prelude::*;
 
 use super::{
-    COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, LevelWork, MIN_REDUCTION, NONE,
-    Shared, banded, bands, dense_coarsest, fine_row, square_index,
+    COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, LevelWork,
+    MIN_REDUCTION, NONE, Shared, banded, bands, dense_coarsest, fine_row, square_index,
 };
 use crate::fill::{Cycle, FillParams};
 
@@ -349,7 +349,7 @@ impl Levels {
             }
             return;
         }
-        let sweeps = if l == 0 { params.pre_smooth.max(1) } else { COARSE_SWEEPS };
+        let sweeps = if l == 0 { FINE_SWEEPS } else { COARSE_SWEEPS };
         for _ in 0..sweeps {
             level.sweep(&mut w.u, &w.b, false);
         }

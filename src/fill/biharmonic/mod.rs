@@ -63,6 +63,10 @@ const MIN_REDUCTION: f64 = 0.7;
 /// wide hole (17, 26, 38, 53 on squares of 128² to 1024²); W-cycles keep them nearly flat (11,
 /// 12, 14, 16) for about 1.5× the work per iteration; F-cycles fell between (11, 15, 19, 23).
 const CYCLE: Cycle = Cycle::W;
+/// Gauss-Seidel sweeps before and after the correction on the finest level (the harmonic
+/// fill's `FillParams::pre_smooth`/`post_smooth` do not apply: this smoother must stay symmetric
+/// for conjugate gradients, and 1, 2 or 3 sweeps took the same time).
+const FINE_SWEEPS: usize = 2;
 /// Gauss-Seidel sweeps before and after the correction on coarse levels.
 const COARSE_SWEEPS: usize = 1;
 /// Symmetric Gauss-Seidel sweep pairs that stand in for a direct solve on a large coarsest level.

@@ -10,7 +10,7 @@ use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, LevelWork,
     MIN_REDUCTION, NONE, Shared, banded, bands, dense_coarsest, fine_row, square_index,
 };
-use crate::fill::{Cycle, FillParams};
+use crate::fill::Cycle;
 
 /// One level: points sorted row-major, their neighbours and operator rows, and the transfer to
 /// the next coarser level.
@@ -329,7 +329,7 @@ impl Levels {
     }
 
     /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
-    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f64>], params: &FillParams, kind: Cycle) {
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f64>], kind: Cycle) {
         let level = &self.levels[l];
         let (head, tail) = work.split_at_mut(l + 1);
         let w = &mut head[l];
@@ -369,7 +369,7 @@ impl Levels {
             Cycle::W => (Cycle::W, Some(Cycle::W)),
             Cycle::F => (Cycle::F, Some(Cycle::V)),
         };
-        self.cycle(l + 1, work, params, first);
+        self.cycle(l + 1, work, first);
         if let Some(second) = second
             && l + 2 < self.levels.len()
         {
@@ -381,7 +381,7 @@ impl Levels {
             for (b, ax) in next.b.iter_mut().zip(&next.r) {
                 *b -= ax;
             }
-            self.cycle(l + 1, work, params, second);
+            self.cycle(l + 1, work, second);
             let next = &mut work[l + 1];
             for (u, k) in next.u.iter_mut().zip(&next.keep) {
                 *u += k;

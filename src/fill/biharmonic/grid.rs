@@ -17,7 +17,7 @@ use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, Layout, LevelWork,
     MIN_REDUCTION, Real, Shared, banded, bands, dense_coarsest, fine_row, square_index,
 };
-use crate::fill::{Cycle, FillParams};
+use crate::fill::Cycle;
 
 /// Empty cells around the points' bounding box.
 const PAD: i64 = 2;
@@ -616,7 +616,7 @@ impl Levels {
     }
 
     /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
-    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f32>], params: &FillParams, kind: Cycle) {
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f32>], kind: Cycle) {
         let level = &self.levels[l];
         let w = &mut work[l];
         level.layout.fill_zero(&mut w.u);
@@ -659,7 +659,7 @@ impl Levels {
             Cycle::W => (Cycle::W, Some(Cycle::W)),
             Cycle::F => (Cycle::F, Some(Cycle::V)),
         };
-        self.cycle(l + 1, work, params, first);
+        self.cycle(l + 1, work, first);
         if let Some(second) = second
             && l + 2 < self.levels.len()
         {
@@ -669,7 +669,7 @@ impl Levels {
             coarse.layout.copy(&next.u, &mut next.keep);
             coarse.residual(&next.u, Some(&next.b), &mut next.r);
             coarse.layout.copy(&next.r, &mut next.b);
-            self.cycle(l + 1, work, params, second);
+            self.cycle(l + 1, work, second);
             let next = &mut work[l + 1];
             coarse.layout.add_scaled(1.0, &next.keep, &mut next.u);
         }

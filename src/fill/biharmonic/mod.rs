@@ -542,16 +542,16 @@ impl Hierarchy {
     }
 
     /// `z ≈ B⁻¹·r` by one cycle; returns `r·z`.
-    fn precondition(&self, work: &mut Work, r: &[f64], z: &mut [f64], params: &FillParams) -> f64 {
+    fn precondition(&self, work: &mut Work, r: &[f64], z: &mut [f64]) -> f64 {
         let u = match (&self.storage, work) {
             (Storage::Compact(c), Work::Compact(w)) => {
                 self.layout.copy(r, &mut w[0].b);
-                c.cycle(0, w, params, CYCLE);
+                c.cycle(0, w, CYCLE);
                 Ok(&w[0].u)
             }
             (Storage::Grid(g), Work::Grid(w)) => {
                 self.layout.copy(r, &mut w[0].b);
-                g.cycle(0, w, params, CYCLE);
+                g.cycle(0, w, CYCLE);
                 Err(&w[0].u)
             }
             _ => unreachable!("scratch made by this hierarchy"),
@@ -663,7 +663,7 @@ impl Hierarchy {
             if !progress(&report) {
                 return Err(FillError::Cancelled);
             }
-            states.par_iter_mut().zip(&done).filter(|(_, d)| !**d).for_each(|(s, _)| s.step(self, params));
+            states.par_iter_mut().zip(&done).filter(|(_, d)| !**d).for_each(|(s, _)| s.step(self));
             iteration += 1;
         }
         // The recurrence's residual drifts from the true one; report the true one.
@@ -728,9 +728,9 @@ impl Pcg {
     }
 
     /// One preconditioned conjugate-gradient step.
-    fn step(&mut self, hier: &Hierarchy, params: &FillParams) {
+    fn step(&mut self, hier: &Hierarchy) {
         let layout = &hier.layout;
-        let rz = hier.precondition(&mut self.work, &self.r, &mut self.z, params);
+        let rz = hier.precondition(&mut self.work, &self.r, &mut self.z);
         let z = &self.z;
         if self.started && self.rz != 0.0 {
             let beta = rz / self.rz;

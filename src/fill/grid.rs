@@ -168,21 +168,29 @@ struct Runs {
 
 impl Runs {
     /// The runs of `inside(x, y)` over `w` columns of `h` rows.
-    fn of(w: usize, h: usize, inside: impl Fn(usize, usize) -> bool) -> Self {
-        let mut r = Self { spans: Vec::new(), at: vec![0] };
-        for y in 0..h {
-            let mut start = None;
-            for x in 0..=w {
-                let here = x < w && inside(x, y);
-                match (here, start) {
-                    (true, None) => start = Some(x),
-                    (false, Some(a)) => {
-                        r.spans.push((a as u32, x as u32));
-                        start = None;
+    fn of(w: usize, h: usize, inside: impl Fn(usize, usize) -> bool + Sync) -> Self {
+        let rows: Vec<Vec<(u32, u32)>> = (0..h)
+            .into_par_iter()
+            .map(|y| {
+                let mut spans = Vec::new();
+                let mut start = None;
+                for x in 0..=w {
+                    let here = x < w && inside(x, y);
+                    match (here, start) {
+                        (true, None) => start = Some(x),
+                        (false, Some(a)) => {
+                            spans.push((a as u32, x as u32));
+                            start = None;
+                        }
+                        _ => {}
                     }
-                    _ => {}
                 }
-            }
+                spans
+            })
+            .collect();
+        let mut r = Self { spans: Vec::new(), at: vec![0] };
+        for row in rows {
+            r.spans.extend(row);
             r.at.push(r.spans.len() as u32);
         }
         r
@@ -263,8 +271,33 @@ trait FineView: Sync {
     fn active(&self, x: isize, y: isize) -> bool;
     /// The operator row of the point at `(x, y)`; couplings to absent points are zero.
     fn stencil(&self, x: usize, y: usize) -> [f64; 9];
-    /// Whether the point has the level's interior stencil (and so every neighbour present).
-    fn interior(&self, x: usize, y: usize) -> bool;
+    /// Row `y`'s points that have the level's interior stencil (and so every neighbour present),
+    /// as bits: bit `x % 64` of word `x / 64`, into `out` (zero past the row's end).
+    fn interior_bits(&self, y: usize, out: &mut [u64]);
+}
+
+/// Sets bits `a..b` of the bit row `row`.
+fn set_bits(row: &mut [u64], a: usize, b: usize) {
+    let mut x = a;
+    while x < b {
+        let (word, bit) = (x / 64, x % 64);
+        let end = (b - word * 64).min(64);
+        let ones = if end - bit == 64 { !0 } else { ((1u64 << (end - bit)) - 1) << bit };
+        row[word] |= ones;
+        x = word * 64 + end;
+    }
+}
+
+/// Bit `x` of the returned word is bit `64·i + x + d` of the bit row `b` (zero beyond its ends),
+/// for `|d| < 64`.
+#[inline]
+fn shifted(b: &[u64], i: usize, d: isize) -> u64 {
+    let at = |k: usize| b.get(k).copied().unwrap_or(0);
+    match d {
+        0 => b[i],
+        d if d > 0 => (b[i] >> d) | if i + 1 < b.len() { at(i + 1) << (64 - d) } else { 0 },
+        d => (b[i] << -d) | if i > 0 { at(i - 1) >> (64 + d) } else { 0 },
+    }
 }
 
 /// Level 0 seen through its membership bits and the image edge.
@@ -296,10 +329,17 @@ impl FineView for Level0<'_> {
         s[4] = deg;
         s
     }
-    fn interior(&self, x: usize, y: usize) -> bool {
-        let (xi, yi) = (x as isize, y as isize);
+    fn interior_bits(&self, y: usize, out: &mut [u64]) {
+        // A member whose four neighbours are members (bits past the row's end are zero, and rows
+        // outside the box have no members).
         let m = &self.g.members;
-        m.get(xi, yi) && m.get(xi - 1, yi) && m.get(xi + 1, yi) && m.get(xi, yi - 1) && m.get(xi, yi + 1)
+        let row = |y: usize| &m.bits[y * m.words..(y + 1) * m.words];
+        let here = row(y);
+        for (i, o) in out.iter_mut().enumerate() {
+            let up = if y > 0 { row(y - 1)[i] } else { 0 };
+            let down = if y + 1 < m.h { row(y + 1)[i] } else { 0 };
+            *o = here[i] & shifted(here, i, -1) & shifted(here, i, 1) & up & down;
+        }
     }
 }
 
@@ -317,8 +357,13 @@ impl FineView for Coarse {
     fn stencil(&self, x: usize, y: usize) -> [f64; 9] {
         self.table[self.id[self.at(x, y)] as usize].map(f64::from)
     }
-    fn interior(&self, x: usize, y: usize) -> bool {
-        self.id[self.at(x, y)] == INTERIOR
+    fn interior_bits(&self, y: usize, out: &mut [u64]) {
+        out.fill(0);
+        for x in 0..self.w {
+            if self.id[self.at(x, y)] == INTERIOR {
+                out[x / 64] |= 1 << (x % 64);
+            }
+        }
     }
 }
 
@@ -335,8 +380,8 @@ impl FineView for Uniform {
     fn stencil(&self, _: usize, _: usize) -> [f64; 9] {
         self.0
     }
-    fn interior(&self, _: usize, _: usize) -> bool {
-        true
+    fn interior_bits(&self, _: usize, out: &mut [u64]) {
+        out.fill(!0);
     }
 }
 
@@ -484,25 +529,16 @@ fn coarsen<F: FineView>(f: &F, interior: [f32; 9]) -> Coarse {
     let (wc, hc) = (wf.div_ceil(2), hf.div_ceil(2));
     let pw = wc + 2;
     // A coarse point has the interior stencil when every fine point within three of it (in both
-    // directions) is an interior point: first erode each fine row horizontally ...
-    let eroded: Vec<Vec<bool>> = (0..hf)
-        .into_par_iter()
-        .map(|y| {
-            let inner: Vec<bool> = (0..wf).map(|x| f.interior(x, y)).collect();
-            let mut out = vec![false; wf];
-            let mut run = 0usize;
-            // run = number of consecutive interior points ending at x.
-            let mut runs = vec![0usize; wf];
-            for x in 0..wf {
-                run = if inner[x] { run + 1 } else { 0 };
-                runs[x] = run;
-            }
-            for (x, o) in out.iter_mut().enumerate() {
-                *o = x >= 3 && x + 3 < wf && runs[x + 3] >= 7;
-            }
-            out
-        })
-        .collect();
+    // directions) is an interior point: first erode each fine row's interior bits horizontally ...
+    let words = wf.div_ceil(64);
+    let mut eroded = vec![0u64; words * hf];
+    eroded.par_chunks_mut(words).enumerate().for_each(|(y, out)| {
+        let mut inner = vec![0u64; words];
+        f.interior_bits(y, &mut inner);
+        for (i, o) in out.iter_mut().enumerate() {
+            *o = (-3..=3).fold(!0, |acc, d| acc & shifted(&inner, i, d));
+        }
+    });
     // ... then check the seven rows around each coarse row.
     type Row = (Vec<u32>, Vec<([f32; 9], [f32; 9])>);
     let rows: Vec<Row> = (0..hc)
@@ -510,13 +546,17 @@ fn coarsen<F: FineView>(f: &F, interior: [f32; 9]) -> Coarse {
         .map(|cy| {
             let mut ids = vec![NONE; wc];
             let mut local = Vec::new();
+            let fy = 2 * cy;
+            let column: Vec<u64> = if fy >= 3 && fy + 3 < hf {
+                (0..words).map(|i| (fy - 3..=fy + 3).fold(!0, |acc, y| acc & eroded[y * words + i])).collect()
+            } else {
+                vec![0; words]
+            };
             for (cx, id) in ids.iter_mut().enumerate() {
-                if !f.active(2 * cx as isize, 2 * cy as isize) {
+                if !f.active(2 * cx as isize, fy as isize) {
                     continue;
                 }
-                let fy = 2 * cy as isize;
-                let inner = (fy - 3..=fy + 3).all(|y| y >= 0 && (y as usize) < hf && eroded[y as usize][2 * cx]);
-                if inner {
+                if column[2 * cx / 64] >> (2 * cx % 64) & 1 == 1 {
                     *id = INTERIOR;
                 } else {
                     let (s, p) = galerkin(f, cx, cy);
@@ -528,18 +568,32 @@ fn coarsen<F: FineView>(f: &F, interior: [f32; 9]) -> Coarse {
         })
         .collect();
     drop(eroded);
+    // Rows' stencils go to the table in row order: row `cy`'s first at `first[cy]`.
+    let mut first = Vec::with_capacity(hc);
+    let mut next = 2u32;
+    for (_, local) in &rows {
+        first.push(next);
+        next += local.len() as u32;
+    }
     let mut id = vec![NONE; pw * (hc + 2)];
+    let n = id[pw..(hc + 1) * pw]
+        .par_chunks_mut(pw)
+        .zip(&rows)
+        .zip(&first)
+        .map(|((out, (ids, _)), &first)| {
+            let mut n = 0;
+            for (cx, &v) in ids.iter().enumerate() {
+                if v != NONE {
+                    n += 1;
+                    out[cx + 1] = if v == INTERIOR { INTERIOR } else { v - 2 + first };
+                }
+            }
+            n
+        })
+        .sum();
     let mut table = vec![[0f32; 9], interior];
     let mut pcol = vec![[0f32; 9], BILINEAR];
-    let mut n = 0;
-    for (cy, (ids, local)) in rows.into_iter().enumerate() {
-        let base = table.len() as u32 - 2;
-        for (cx, &v) in ids.iter().enumerate() {
-            if v != NONE {
-                n += 1;
-                id[(cy + 1) * pw + cx + 1] = if v == INTERIOR { INTERIOR } else { v + base };
-            }
-        }
+    for (_, local) in rows {
         for (st, col) in local {
             table.push(st);
             pcol.push(col);
@@ -573,9 +627,7 @@ impl Grid {
                 let mut count = 0;
                 runs(y0 + y, &mut |a, b| {
                     debug_assert!(a >= x0 && b <= x0 + w);
-                    for x in a - x0..b - x0 {
-                        row[x / 64] |= 1 << (x % 64);
-                    }
+                    set_bits(row, a - x0, b - x0);
                     count += b - a;
                 });
                 count

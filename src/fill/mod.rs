@@ -397,40 +397,41 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
             *bx = (bx.0.min(a as usize), bx.1.min(y), bx.2.max(b as usize - 1), bx.3.max(y));
         }
     }
+    let hole_runs = |hole: usize, y: usize, f: &mut dyn FnMut(usize, usize)| {
+        for (k, &(a, b)) in runs[y].iter().enumerate() {
+            if hole_of[row_start[y] + k] as usize == hole {
+                f(a as usize, b as usize);
+            }
+        }
+    };
     let mut parts = Vec::new();
-    let mut rest: Option<Mask> = None;
+    let mut gridded = Vec::new();
     let mut left = count;
     for (hole, (&size, &b)) in sizes.iter().zip(&boxes).enumerate() {
         let bx = margin_box(b, width, height);
         if !dense_enough(size, bx) {
             continue;
         }
-        let hole_runs = |y: usize, f: &mut dyn FnMut(usize, usize)| {
-            for (k, &(a, b)) in runs[y].iter().enumerate() {
-                if hole_of[row_start[y] + k] as usize == hole {
-                    f(a as usize, b as usize);
-                }
-            }
-        };
-        let Some(g) = grid::Grid::build(bx, (width, height), hole_runs) else {
+        let Some(g) = grid::Grid::build(bx, (width, height), |y, f| hole_runs(hole, y, f)) else {
             continue;
         };
         parts.push(Part::Grid(g));
+        gridded.push((hole, bx));
         left -= size;
-        let rest = rest.get_or_insert_with(|| mask.clone());
-        for y in bx.1..bx.1 + bx.3 {
-            hole_runs(y, &mut |a, b| rest.bits_mut()[y * width + a..y * width + b].fill(false));
-        }
     }
-    match rest {
-        None => compact(mask).into_iter().collect(),
-        Some(rest) => {
-            if left > 0 {
-                parts.extend(compact(&rest));
+    if gridded.is_empty() {
+        return compact(mask).into_iter().collect();
+    }
+    if left > 0 {
+        let mut rest = mask.clone();
+        for &(hole, bx) in &gridded {
+            for y in bx.1..bx.1 + bx.3 {
+                hole_runs(hole, y, &mut |a, b| rest.bits_mut()[y * width + a..y * width + b].fill(false));
             }
-            parts
         }
+        parts.extend(compact(&rest));
     }
+    parts
 }
 
 /// A mask's solver: the multigrid hierarchy, built once and reused for any number of images of

@@ -404,20 +404,24 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
             }
         }
     };
+    // Dense holes' grids are built side by side (small holes keep one core busy only briefly).
+    let dense: Vec<(usize, (usize, usize, usize, usize))> = (0..holes)
+        .map(|hole| (hole, margin_box(boxes[hole], width, height)))
+        .filter(|&(hole, bx)| dense_enough(sizes[hole], bx))
+        .collect();
+    let grids: Vec<Option<grid::Grid>> = dense
+        .par_iter()
+        .map(|&(hole, bx)| grid::Grid::build(bx, (width, height), |y, f| hole_runs(hole, y, f)))
+        .collect();
     let mut parts = Vec::new();
     let mut gridded = Vec::new();
     let mut left = count;
-    for (hole, (&size, &b)) in sizes.iter().zip(&boxes).enumerate() {
-        let bx = margin_box(b, width, height);
-        if !dense_enough(size, bx) {
-            continue;
+    for (&(hole, bx), g) in dense.iter().zip(grids) {
+        if let Some(g) = g {
+            parts.push(Part::Grid(g));
+            gridded.push((hole, bx));
+            left -= sizes[hole];
         }
-        let Some(g) = grid::Grid::build(bx, (width, height), |y, f| hole_runs(hole, y, f)) else {
-            continue;
-        };
-        parts.push(Part::Grid(g));
-        gridded.push((hole, bx));
-        left -= size;
     }
     if gridded.is_empty() {
         return compact(mask).into_iter().collect();
@@ -651,23 +655,39 @@ impl Solver {
         let mut b_sq = vec![0f64; channels];
         let mut reports = vec![ChannelReport::default(); channels];
         let largest = (0..self.parts.len()).max_by_key(|&k| self.parts[k].unknowns()).unwrap_or(0);
-        for (k, part) in self.parts.iter().enumerate() {
-            for first in (0..channels).step_by(4) {
-                let group = &planes[first..channels.min(first + 4)];
-                let result = match part {
-                    Part::Compact(h) => match group.len() {
-                        1 => solve::solve_group::<1>(h, group, params, start, progress)?,
-                        2 => solve::solve_group::<2>(h, group, params, start, progress)?,
-                        3 => solve::solve_group::<3>(h, group, params, start, progress)?,
-                        _ => solve::solve_group::<4>(h, group, params, start, progress)?,
-                    },
-                    Part::Grid(g) => match group.len() {
-                        1 => grid::solve_group::<1>(g, group, params, start, progress)?,
-                        2 => grid::solve_group::<2>(g, group, params, start, progress)?,
-                        3 => grid::solve_group::<3>(g, group, params, start, progress)?,
-                        _ => grid::solve_group::<4>(g, group, params, start, progress)?,
-                    },
-                };
+        // Parts are solved side by side (small holes' passes are too short to keep both cores
+        // busy on their own); each part's result does not depend on which thread ran it.
+        let progress = std::sync::Mutex::new(progress);
+        let report = |p: &Progress| (progress.lock().unwrap_or_else(std::sync::PoisonError::into_inner))(p);
+        let results: Vec<Result<Vec<(usize, GroupResult)>, FillError>> = self
+            .parts
+            .par_iter()
+            .map(|part| {
+                let mut out = Vec::new();
+                for first in (0..channels).step_by(4) {
+                    let group = &planes[first..channels.min(first + 4)];
+                    let progress = &mut |p: &Progress| report(p);
+                    let result = match part {
+                        Part::Compact(h) => match group.len() {
+                            1 => solve::solve_group::<1>(h, group, params, start, progress)?,
+                            2 => solve::solve_group::<2>(h, group, params, start, progress)?,
+                            3 => solve::solve_group::<3>(h, group, params, start, progress)?,
+                            _ => solve::solve_group::<4>(h, group, params, start, progress)?,
+                        },
+                        Part::Grid(g) => match group.len() {
+                            1 => grid::solve_group::<1>(g, group, params, start, progress)?,
+                            2 => grid::solve_group::<2>(g, group, params, start, progress)?,
+                            3 => grid::solve_group::<3>(g, group, params, start, progress)?,
+                            _ => grid::solve_group::<4>(g, group, params, start, progress)?,
+                        },
+                    };
+                    out.push((first, result));
+                }
+                Ok(out)
+            })
+            .collect();
+        for (k, results) in results.into_iter().enumerate() {
+            for (first, result) in results? {
                 for (c, rep) in result.reports.iter().enumerate() {
                     r_sq[first + c] += result.r_sq[c];
                     b_sq[first + c] += result.b_sq[c];

@@ -41,7 +41,7 @@ const MIN_REDUCTION: f64 = 0.7;
 const ROWS: usize = 16;
 /// Coarse levels with at most this many points are worked on by one task: waking the other
 /// threads for each pass over them would cost more than the pass.
-const SMALL_LEVEL: usize = 1 << 16;
+const SMALL_LEVEL: usize = 1 << 13;
 /// Stencil id of "no point here".
 const NONE: u32 = 0;
 /// Stencil id of the level's interior stencil.
@@ -106,6 +106,30 @@ impl Members {
             while m != 0 {
                 let x = wi * 64 + m.trailing_zeros() as usize;
                 span(x, x + 1);
+                m &= m - 1;
+            }
+        }
+    }
+
+    /// Calls `f(x)` for every member `x` of row `y` with `a <= x < b`.
+    #[inline]
+    fn for_range(&self, y: usize, a: usize, b: usize, mut f: impl FnMut(usize)) {
+        if a >= b {
+            return;
+        }
+        let (first, last) = (a / 64, (b - 1) / 64);
+        let row = &self.bits[y * self.words + first..=y * self.words + last];
+        for (k, &word) in row.iter().enumerate() {
+            let wi = first + k;
+            let mut m = word;
+            if wi == first {
+                m &= !0 << (a % 64);
+            }
+            if wi == last && !b.is_multiple_of(64) {
+                m &= (1 << (b % 64)) - 1;
+            }
+            while m != 0 {
+                f(wi * 64 + m.trailing_zeros() as usize);
                 m &= m - 1;
             }
         }
@@ -1250,11 +1274,15 @@ impl<const C: usize> Cycler<'_, C> {
         };
         let mut next = 0;
         let gap = |row: &mut [T], a: usize, b: usize| {
-            for x in a..b {
-                if self.present(l, x, y) {
-                    let v = self.interpolate(l, ec, x, y);
-                    add(row, x, v);
-                }
+            let mut one = |x: usize| {
+                let v = self.interpolate(l, ec, x, y);
+                add(row, x, v);
+            };
+            if l == 0 {
+                self.g.members.for_range(y, a, b, &mut one);
+            } else {
+                let fine = &self.g.levels[l - 1];
+                (a..b).filter(|&x| fine.id[fine.at(x, y)] != NONE).for_each(one);
             }
         };
         for &(a, b) in runs {
@@ -1273,17 +1301,6 @@ impl<const C: usize> Cycler<'_, C> {
             next = hi;
         }
         gap(row, next, fw);
-    }
-
-    /// Whether the point `(x, y)` of the level finer than `levels[l]` exists.
-    #[inline]
-    fn present(&self, l: usize, x: usize, y: usize) -> bool {
-        if l == 0 {
-            self.g.members.get(x as isize, y as isize)
-        } else {
-            let fine = &self.g.levels[l - 1];
-            fine.id[fine.at(x, y)] != NONE
-        }
     }
 
     // -----------------------------------------------------------------------------------------

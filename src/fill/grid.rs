@@ -711,13 +711,6 @@ impl Grid {
         }
         total
     }
-
-    /// Calls `f(box index, image index)` for every unknown.
-    fn for_each_member(&self, mut f: impl FnMut(usize, usize)) {
-        for y in 0..self.h {
-            self.members.for_row(y, None, |x| f(y * self.w + x, (self.y0 + y) * self.img_w + self.x0 + x));
-        }
-    }
 }
 
 fn dense_coarsest(level: &Coarse) -> Option<Coarsest> {
@@ -1689,11 +1682,14 @@ pub(crate) fn solve_group<const C: usize>(
 /// Writes a group's values (the level-0 iterate over the box) into the planes.
 pub(crate) fn write_back(g: &Grid, planes: &mut [&mut [f32]], first: usize, result: &GroupResult) {
     let count = result.scale.len();
-    g.for_each_member(|i, p| {
-        for c in 0..count {
-            planes[first + c][p] = (result.values[i * count + c] / result.scale[c]) as f32;
-        }
-    });
+    for (c, plane) in planes[first..first + count].iter_mut().enumerate() {
+        let scale = result.scale[c];
+        plane[g.y0 * g.img_w..(g.y0 + g.h) * g.img_w].par_chunks_mut(g.img_w).enumerate().for_each(|(y, row)| {
+            g.members.for_row(y, None, |x| {
+                row[g.x0 + x] = (result.values[(y * g.w + x) * count + c] / scale) as f32;
+            });
+        });
+    }
 }
 
 #[cfg(test)]

@@ -17,7 +17,9 @@
 //!   an interior point, operator-dependent (collapsed stencils) elsewhere;
 //! - the level-0 residual is computed row by row inside the restriction and never stored, and the
 //!   red-black sweep runs as one wavefront per sweep (the black cells of row `y − 1` right after the
-//!   red cells of row `y`), so one sweep reads and writes the iterate once.
+//!   red cells of row `y`), so one sweep reads and writes the iterate once;
+//! - each coarse level keeps its rows' runs of interior points, along which sweeps, residuals and
+//!   interpolation use the one interior stencil and bilinear weights without per-point lookups.
 //!
 //! Gauss-Seidel within one colour is order-independent and partial sums are added in a fixed
 //! order, so results do not depend on the number of threads.

@@ -1135,64 +1135,30 @@ impl<const C: usize> Cycler<'_, C> {
         }
     }
 
-    /// The interpolated correction of coarse level `l + 1` at the point `(x, y)` of level `l`:
-    /// bilinear when every parent is an interior point, from [`prow`] otherwise.
+    /// The interpolated correction of coarse level `l + 1` at the point `(x, y)` of level `l`,
+    /// from the parents' interpolation columns (bilinear for interior parents; runs of those are
+    /// interpolated directly by [`Cycler::interpolate_row`]).
     #[inline]
     fn interpolate(&self, l: usize, ec: &[f32], x: usize, y: usize) -> [f64; C] {
         let coarse = &self.g.levels[l];
         let (id, pw) = (&coarse.id, coarse.pw);
-        // Padded indices of the parents (x/2, y/2), one right, one down; the padding keeps them
-        // in bounds at the grid's last row and column.
+        // Padded index of the parent (x/2, y/2); the padding keeps one right and one down in
+        // bounds at the grid's last row and column.
         let i = coarse.at(x / 2, y / 2);
-        let e = |k: usize, c: usize| f64::from(ec[k * C + c]);
         let mut out = [0f64; C];
-        let fast = match (x % 2, y % 2) {
-            (0, 0) => {
-                for (c, o) in out.iter_mut().enumerate() {
-                    *o = e(i, c);
-                }
-                true
+        // Each parent's column holds its weight here, at the slot of this point's offset
+        // from the parent: (x, y) − 2·parent.
+        let (ox, oy) = (x % 2, y % 2);
+        for (dy, dx) in [(0, 0), (0, 1), (1, 0), (1, 1)] {
+            if (dx == 1 && ox == 0) || (dy == 1 && oy == 0) {
+                continue;
             }
-            (1, 0) if id[i] == INTERIOR && id[i + 1] == INTERIOR => {
+            let j = i + dy * pw + dx;
+            let k = (1 + oy - 2 * dy) * 3 + (1 + ox - 2 * dx);
+            let wgt = f64::from(coarse.pcol[id[j] as usize][k]);
+            if wgt != 0.0 {
                 for (c, o) in out.iter_mut().enumerate() {
-                    *o = 0.5 * (e(i, c) + e(i + 1, c));
-                }
-                true
-            }
-            (0, 1) if id[i] == INTERIOR && id[i + pw] == INTERIOR => {
-                for (c, o) in out.iter_mut().enumerate() {
-                    *o = 0.5 * (e(i, c) + e(i + pw, c));
-                }
-                true
-            }
-            (1, 1)
-                if id[i] == INTERIOR
-                    && id[i + 1] == INTERIOR
-                    && id[i + pw] == INTERIOR
-                    && id[i + pw + 1] == INTERIOR =>
-            {
-                for (c, o) in out.iter_mut().enumerate() {
-                    *o = 0.25 * (e(i, c) + e(i + 1, c) + e(i + pw, c) + e(i + pw + 1, c));
-                }
-                true
-            }
-            _ => false,
-        };
-        if !fast {
-            // Each parent's column holds its weight here, at the slot of this point's offset
-            // from the parent: (x, y) − 2·parent.
-            let (ox, oy) = (x % 2, y % 2);
-            for (dy, dx) in [(0, 0), (0, 1), (1, 0), (1, 1)] {
-                if (dx == 1 && ox == 0) || (dy == 1 && oy == 0) {
-                    continue;
-                }
-                let j = i + dy * pw + dx;
-                let k = (1 + oy - 2 * dy) * 3 + (1 + ox - 2 * dx);
-                let wgt = f64::from(coarse.pcol[id[j] as usize][k]);
-                if wgt != 0.0 {
-                    for (c, o) in out.iter_mut().enumerate() {
-                        *o += wgt * e(j, c);
-                    }
+                    *o += wgt * f64::from(ec[j * C + c]);
                 }
             }
         }

@@ -1683,7 +1683,8 @@ impl App {
                 }
                 let saved = PathBuf::from(self.save_field.trim());
                 let output = (!self.unsaved && !saved.as_os_str().is_empty()).then_some(saved);
-                let filled = d.result_mask.as_deref().unwrap_or(&d.mask).clone();
+                // Shared with the worker, not copied on the UI thread.
+                let filled = d.result_mask.clone().unwrap_or_else(|| std::sync::Arc::new(d.mask.clone()));
                 self.worker = Some(Worker::report_inputs(path, d.path.clone(), output, filled, repaint));
             }
             Command::ConfirmOverwrite => {}

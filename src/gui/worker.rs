@@ -243,7 +243,7 @@ impl Worker {
         path: PathBuf,
         image: PathBuf,
         output: Option<PathBuf>,
-        filled: Mask,
+        filled: std::sync::Arc<Mask>,
         repaint: impl Fn() + Send + 'static,
     ) -> Self {
         Self::spawn("report", repaint, move |tx, _| {

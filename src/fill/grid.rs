@@ -1580,8 +1580,10 @@ pub(crate) fn solve_group<const C: usize>(
     if let Some(&Some((x, y))) = bad.iter().find(|b| b.is_some()) {
         return Err(FillError::NonFiniteRim { x, y });
     }
-    let e: Vec<Vec<f32>> = g.levels.iter().map(|l| vec![0f32; l.padded_len() * C]).collect();
-    let rhs = e.clone();
+    // Fresh zeroed vectors, not a clone: copying would read every page of `e` before its first
+    // write, and each page would fault twice.
+    let zeroed = || -> Vec<Vec<f32>> { g.levels.iter().map(|l| vec![0f32; l.padded_len() * C]).collect() };
+    let (e, rhs) = (zeroed(), zeroed());
     let coarse_x = vec![0f64; if let Coarsest::Dense { points, .. } = &g.coarsest { points.len() } else { 0 }];
     let threads = rayon::current_num_threads().max(1);
     let band = h.div_ceil(threads).max(8);

@@ -95,7 +95,6 @@ pub(crate) enum Coarsest {
 pub struct Hierarchy {
     pub(crate) width: usize,
     pub(crate) height: usize,
-    pub(crate) mask: Vec<bool>,
     pub(crate) levels: Vec<Level>,
     pub(crate) coarsest: Coarsest,
 }
@@ -129,7 +128,7 @@ impl Hierarchy {
         } else {
             Coarsest::Relax(8)
         };
-        Some(Self { width: mask.width(), height: mask.height(), mask: mask.bits().to_vec(), levels, coarsest })
+        Some(Self { width: mask.width(), height: mask.height(), levels, coarsest })
     }
 
     /// Number of unknowns (masked pixels).
@@ -153,7 +152,7 @@ impl Hierarchy {
     /// Bytes held by the hierarchy (not counting the per-image workspace).
     #[must_use]
     pub fn memory_bytes(&self) -> usize {
-        let mut total = self.mask.len();
+        let mut total = 0;
         for l in &self.levels {
             total += l.pos.len() * 4
                 + l.nbr.len() * 4

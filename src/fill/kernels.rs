@@ -14,6 +14,28 @@ use super::hierarchy::{CHILDREN, K_FINE, Level, PARENTS};
 
 /// Points per parallel task.
 const CHUNK: usize = 2048;
+/// Passes over at most this many points run on the calling thread: waking the other threads
+/// would cost more than the pass (the coarse levels of thin scratches are this small).
+const SMALL: usize = 1 << 13;
+
+/// Runs `body(ci)` for chunks `0..chunks`, side by side unless `points` is small.
+fn for_chunks(chunks: usize, points: usize, body: impl Fn(usize) + Send + Sync) {
+    if points <= SMALL {
+        (0..chunks).for_each(body);
+    } else {
+        (0..chunks).into_par_iter().for_each(body);
+    }
+}
+
+/// Runs `body(ci, chunk)` for the chunks of `len` elements of `v`, side by side unless `points`
+/// is small.
+fn for_chunks_mut<T: Send>(v: &mut [T], len: usize, points: usize, body: impl Fn(usize, &mut [T]) + Send + Sync) {
+    if points <= SMALL {
+        v.chunks_mut(len).enumerate().for_each(|(ci, c)| body(ci, c));
+    } else {
+        v.par_chunks_mut(len).enumerate().for_each(|(ci, c)| body(ci, c));
+    }
+}
 
 /// A raw pointer that may be shared between threads. Used only by the Gauss-Seidel sweep, where
 /// every task writes the points of one colour, which no other point of the same colour reads.
@@ -37,7 +59,8 @@ pub(crate) fn sweep<const K: usize, const C: usize>(level: &Level, range: Range<
     let len = u.len();
     let ptr = SharedMut(u.as_mut_ptr());
     let chunks = range.len().div_ceil(CHUNK);
-    (0..chunks).into_par_iter().for_each(|ci| {
+    let points = range.len();
+    for_chunks(chunks, points, |ci| {
         let p = ptr.get();
         let lo = range.start + ci * CHUNK;
         let hi = (lo + CHUNK).min(range.end);
@@ -70,41 +93,55 @@ pub(crate) fn partials_len(n: usize) -> usize {
 
 /// `r = b − A·u` on every point, and the squared residual norm per channel. `partial` is scratch
 /// of at least [`partials_len`] entries, so nothing is allocated.
+///
+/// The points of `relaxed` (a colour just swept, or an empty range) get `r = 0` without being
+/// computed: right after a Gauss-Seidel half-sweep their residual is zero up to rounding.
 pub(crate) fn residual<const K: usize, const C: usize>(
     level: &Level,
     u: &[f64],
     b: &[f64],
     r: &mut [f64],
     partial: &mut [[f64; C]],
+    relaxed: Range<usize>,
 ) -> [f64; C] {
     debug_assert_eq!(level.k, K);
     let n = level.n;
     let chunks = n.div_ceil(CHUNK);
     let (nbr, coef, diag) = (&level.nbr[..], &level.coef[..], &level.diag[..]);
-    r[..n * C].par_chunks_mut(CHUNK * C).zip(partial[..chunks].par_iter_mut()).enumerate().for_each(
-        |(ci, (rc, sq))| {
-            *sq = [0f64; C];
-            let lo = ci * CHUNK;
-            for (off, ri) in rc.chunks_exact_mut(C).enumerate() {
-                let i = lo + off;
-                let mut s = [0f64; C];
+    let body = |ci: usize, rc: &mut [f64], sq: &mut [f64; C]| {
+        let lo = ci * CHUNK;
+        let hi = lo + rc.len() / C;
+        *sq = [0f64; C];
+        let (skip_lo, skip_hi) = (relaxed.start.clamp(lo, hi), relaxed.end.clamp(lo, hi));
+        rc[(skip_lo - lo) * C..(skip_hi - lo) * C].fill(0.0);
+        for i in (lo..skip_lo).chain(skip_hi..hi) {
+            let mut s = [0f64; C];
+            for c in 0..C {
+                s[c] = b[i * C + c] - diag[i] * u[i * C + c];
+            }
+            for t in 0..K {
+                let j = nbr[i * K + t] as usize;
+                let a = if K == K_FINE { -1.0 } else { f64::from(coef[i * K + t]) };
                 for c in 0..C {
-                    s[c] = b[i * C + c] - diag[i] * u[i * C + c];
-                }
-                for t in 0..K {
-                    let j = nbr[i * K + t] as usize;
-                    let a = if K == K_FINE { -1.0 } else { f64::from(coef[i * K + t]) };
-                    for c in 0..C {
-                        s[c] -= a * u[j * C + c];
-                    }
-                }
-                ri.copy_from_slice(&s);
-                for c in 0..C {
-                    sq[c] += s[c] * s[c];
+                    s[c] -= a * u[j * C + c];
                 }
             }
-        },
-    );
+            rc[(i - lo) * C..(i - lo + 1) * C].copy_from_slice(&s);
+            for c in 0..C {
+                sq[c] += s[c] * s[c];
+            }
+        }
+    };
+    let (r_points, partial) = (&mut r[..n * C], &mut partial[..chunks]);
+    if n <= SMALL {
+        r_points.chunks_mut(CHUNK * C).zip(partial.iter_mut()).enumerate().for_each(|(ci, (rc, sq))| body(ci, rc, sq));
+    } else {
+        r_points
+            .par_chunks_mut(CHUNK * C)
+            .zip(partial.par_iter_mut())
+            .enumerate()
+            .for_each(|(ci, (rc, sq))| body(ci, rc, sq));
+    }
     r[n * C..(n + 1) * C].fill(0.0);
     sum_partials(&partial[..chunks])
 }
@@ -140,7 +177,7 @@ fn sum_partials<const C: usize>(partial: &[[f64; C]]) -> [f64; C] {
 pub(crate) fn restrict<const C: usize>(coarse: &Level, r_fine: &[f64], b_coarse: &mut [f64]) {
     let nc = coarse.n;
     let (children, cweights) = (&coarse.children[..], &coarse.cweights[..]);
-    b_coarse[..nc * C].par_chunks_mut(CHUNK * C).enumerate().for_each(|(ci, bc)| {
+    for_chunks_mut(&mut b_coarse[..nc * C], CHUNK * C, nc, |ci, bc| {
         let lo = ci * CHUNK;
         for (off, bi) in bc.chunks_exact_mut(C).enumerate() {
             let i = lo + off;
@@ -162,7 +199,7 @@ pub(crate) fn restrict<const C: usize>(coarse: &Level, r_fine: &[f64], b_coarse:
 pub(crate) fn prolong_add<const C: usize>(fine: &Level, u_coarse: &[f64], u_fine: &mut [f64]) {
     let n = fine.n;
     let (parents, pweights) = (&fine.parents[..], &fine.pweights[..]);
-    u_fine[..n * C].par_chunks_mut(CHUNK * C).enumerate().for_each(|(ci, uc)| {
+    for_chunks_mut(&mut u_fine[..n * C], CHUNK * C, n, |ci, uc| {
         let lo = ci * CHUNK;
         for (off, ui) in uc.chunks_exact_mut(C).enumerate() {
             let i = lo + off;

@@ -9,9 +9,76 @@
 //! unless a warm start is asked for, and runs in `f64` so the relative residual can go far below
 //! the `f32` rounding of the values.
 
+use std::convert::Infallible;
+use std::ops::Range;
+
+use rayon::prelude::*;
+
 use super::hierarchy::{Coarsest, Hierarchy, K_FINE, Level};
 use super::kernels;
 use super::{Cycle, FillError, FillParams, GroupResult, Levels, Progress, Start};
+
+/// Image rows per task in the passes that read or write the image planes.
+const BAND_ROWS: usize = 32;
+
+/// A band of image rows and the level-0 unknowns in it: an index range of each colour.
+struct Band {
+    rows: Range<usize>,
+    colours: [Range<usize>; 2],
+}
+
+/// Cuts the image into bands of [`BAND_ROWS`] rows, for passes over level 0 in pixel order.
+fn pixel_bands(lv0: &Level, w: usize, h: usize) -> Vec<Band> {
+    let cut = |colour: &Range<usize>, y: usize| {
+        colour.start + lv0.pos[colour.clone()].partition_point(|&p| (p as usize) < y * w)
+    };
+    (0..h)
+        .step_by(BAND_ROWS)
+        .map(|y| {
+            let rows = y..(y + BAND_ROWS).min(h);
+            let colours = [0, 1].map(|c| cut(&lv0.colours[c], rows.start)..cut(&lv0.colours[c], rows.end));
+            Band { rows, colours }
+        })
+        .collect()
+}
+
+impl Band {
+    /// Calls `f(i, colour, k)` for the unknowns `i` of the band in pixel order, where `k` is the
+    /// index of `i` in the band's slice of that colour (see [`Band::split`]). Level 0 keeps its
+    /// unknowns by colour; merging the colours visits each image row once instead of twice, which
+    /// halves the cache misses on large images.
+    fn for_each<E>(&self, pos: &[u32], mut f: impl FnMut(usize, usize, usize) -> Result<(), E>) -> Result<(), E> {
+        let [red, black] = &self.colours;
+        let (mut a, mut b) = (red.start, black.start);
+        while a < red.end || b < black.end {
+            if b == black.end || (a < red.end && pos[a] < pos[b]) {
+                f(a, 0, a - red.start)?;
+                a += 1;
+            } else {
+                f(b, 1, b - black.start)?;
+                b += 1;
+            }
+        }
+        Ok(())
+    }
+
+    /// Splits a level-0 vector with `c` entries per unknown (without its ghost) into each band's
+    /// slices of the two colours.
+    fn split<'v, T>(bands: &[Band], v: &'v mut [T], c: usize) -> Vec<[&'v mut [T]; 2]> {
+        let reds = bands.last().map_or(0, |b| b.colours[0].end);
+        let (mut red, mut black) = v.split_at_mut(reds * c);
+        bands
+            .iter()
+            .map(|band| {
+                let (r, rest) = std::mem::take(&mut red).split_at_mut(band.colours[0].len() * c);
+                red = rest;
+                let (k, rest) = std::mem::take(&mut black).split_at_mut(band.colours[1].len() * c);
+                black = rest;
+                [r, k]
+            })
+            .collect()
+    }
+}
 
 /// Per-level vectors for `C` channels: solution (or correction), right-hand side and residual,
 /// each `(n + 1) · C` long (the last point is the ghost).
@@ -30,6 +97,9 @@ struct Cycler<'a, const C: usize> {
     partial: Vec<[f64; C]>,
     /// One channel of the coarsest level, for the dense solve.
     coarse_x: Vec<f64>,
+    /// Per level, the colour the last pass swept, while no other pass has changed the iterate
+    /// since: its residual is zero up to rounding, so residuals skip it.
+    relaxed_last: Vec<Option<usize>>,
 }
 
 fn sweep<const C: usize>(level: &Level, colour: usize, u: &mut [f64], b: &[f64]) {
@@ -41,11 +111,20 @@ fn sweep<const C: usize>(level: &Level, colour: usize, u: &mut [f64], b: &[f64])
     }
 }
 
-fn residual<const C: usize>(level: &Level, u: &[f64], b: &[f64], r: &mut [f64], partial: &mut [[f64; C]]) -> [f64; C] {
+/// The residual of `level`, skipping the colour `relaxed` (see [`kernels::residual`]).
+fn residual<const C: usize>(
+    level: &Level,
+    u: &[f64],
+    b: &[f64],
+    r: &mut [f64],
+    partial: &mut [[f64; C]],
+    relaxed: Option<usize>,
+) -> [f64; C] {
+    let relaxed = relaxed.map_or(0..0, |c| level.colours[c].clone());
     if level.k == K_FINE {
-        kernels::residual::<{ K_FINE }, C>(level, u, b, r, partial)
+        kernels::residual::<{ K_FINE }, C>(level, u, b, r, partial, relaxed)
     } else {
-        kernels::residual::<{ super::hierarchy::K_COARSE }, C>(level, u, b, r, partial)
+        kernels::residual::<{ super::hierarchy::K_COARSE }, C>(level, u, b, r, partial, relaxed)
     }
 }
 
@@ -61,7 +140,8 @@ impl<'a, const C: usize> Cycler<'a, C> {
             .collect();
         let partial = vec![[0f64; C]; kernels::partials_len(h.levels[0].n)];
         let coarse_x = vec![0f64; h.levels.last().map_or(0, |l| l.n)];
-        Self { h, params, work, partial, coarse_x }
+        let relaxed_last = vec![None; h.levels.len()];
+        Self { h, params, work, partial, coarse_x, relaxed_last }
     }
 
     fn smooth(&mut self, l: usize, sweeps: usize, reverse: bool) {
@@ -72,6 +152,7 @@ impl<'a, const C: usize> Cycler<'a, C> {
             for k in 0..colours {
                 let colour = if reverse { colours - 1 - k } else { k };
                 sweep::<C>(level, colour, u, b);
+                self.relaxed_last[l] = Some(colour);
             }
         }
     }
@@ -90,6 +171,7 @@ impl<'a, const C: usize> Cycler<'a, C> {
                         u[i * C + c] = *xi;
                     }
                 }
+                self.relaxed_last[l] = None;
             }
             Coarsest::Relax(sweeps) => {
                 let sweeps = *sweeps;
@@ -104,14 +186,16 @@ impl<'a, const C: usize> Cycler<'a, C> {
     fn descend(&mut self, l: usize) {
         let (fine, coarse) = self.work.split_at_mut(l + 1);
         let (fw, cw) = (&mut fine[l], &mut coarse[0]);
-        residual::<C>(&self.h.levels[l], &fw.u, &fw.b, &mut fw.r, &mut self.partial);
+        residual::<C>(&self.h.levels[l], &fw.u, &fw.b, &mut fw.r, &mut self.partial, self.relaxed_last[l]);
         kernels::restrict::<C>(&self.h.levels[l + 1], &fw.r, &mut cw.b);
         cw.u.fill(0.0);
+        self.relaxed_last[l + 1] = None;
     }
 
     fn ascend(&mut self, l: usize) {
         let (fine, coarse) = self.work.split_at_mut(l + 1);
         kernels::prolong_add::<C>(&self.h.levels[l], &coarse[0].u, &mut fine[l].u);
+        self.relaxed_last[l] = None;
     }
 
     /// Full multigrid from the right-hand side of level 0.
@@ -142,46 +226,58 @@ pub(super) fn solve_group<const C: usize>(
     let lv0 = &h.levels[0];
     let (w, hh) = (h.width, h.height);
 
-    // Right-hand side: the known neighbours of every unknown.
-    {
-        let b = &mut cy.work[0].b;
-        for (i, &p) in lv0.pos.iter().enumerate() {
-            let p = p as usize;
+    // Right-hand side: the known neighbours of every unknown (the in-image neighbours that are not
+    // unknowns, whose stencil slots hold the ghost).
+    let ghost = lv0.n;
+    let bands = pixel_bands(lv0, w, hh);
+    let warm = start == Start::Warm;
+    let gather = |band: &Band, b: [&mut [f64]; 2], u: [&mut [f64]; 2]| -> Result<(), FillError> {
+        let (mut b, mut u) = (b, u);
+        band.for_each(&lv0.pos, |i, colour, k| {
+            let (b, u) = (&mut *b[colour], &mut *u[colour]);
+            let p = lv0.pos[i] as usize;
             let (x, y) = (p % w, p / w);
-            let nbrs = [
-                (x > 0).then(|| p - 1),
-                (x + 1 < w).then(|| p + 1),
-                (y > 0).then(|| p - w),
-                (y + 1 < hh).then(|| p + w),
-            ];
-            for q in nbrs.into_iter().flatten() {
-                if h.mask[q] {
+            // Slots: left, right, up, down (see the hierarchy's level 0).
+            let sides =
+                [(x > 0, p.wrapping_sub(1)), (x + 1 < w, p + 1), (y > 0, p.wrapping_sub(w)), (y + 1 < hh, p + w)];
+            // Summed here and stored once: the vector is fresh, and reading its pages before
+            // writing them would fault each page twice.
+            let mut sum = [0f64; C];
+            for (t, (inside, q)) in sides.into_iter().enumerate() {
+                if !inside || lv0.nbr[i * K_FINE + t] as usize != ghost {
                     continue;
                 }
-                for c in 0..C {
+                for (c, sc) in sum.iter_mut().enumerate() {
                     let v = planes[c][q];
                     if !v.is_finite() {
                         return Err(FillError::NonFiniteRim { x: q % w, y: q / w });
                     }
-                    b[i * C + c] += f64::from(v);
+                    *sc += f64::from(v);
                 }
             }
-        }
-    }
+            b[k * C..(k + 1) * C].copy_from_slice(&sum);
+            if warm {
+                for c in 0..C {
+                    let v = planes[c][p];
+                    u[k * C + c] = if v.is_finite() { f64::from(v) } else { 0.0 };
+                }
+            }
+            Ok(())
+        })
+    };
+    let LevelWork { u, b, .. } = &mut cy.work[0];
+    let checks: Vec<Result<(), FillError>> = Band::split(&bands, &mut b[..lv0.n * C], C)
+        .into_par_iter()
+        .zip(Band::split(&bands, &mut u[..lv0.n * C], C))
+        .zip(&bands)
+        .map(|((b, u), band)| gather(band, b, u))
+        .collect();
+    checks.into_iter().collect::<Result<(), FillError>>()?;
     let b_sq = kernels::norm_sq::<C>(&cy.work[0].b, lv0.n);
     let bnorm = b_sq.map(|s| if s > 0.0 { s.sqrt() } else { 1.0 });
 
-    match start {
-        Start::FullMultigrid => cy.full_multigrid(),
-        Start::Warm => {
-            let u = &mut cy.work[0].u;
-            for (i, &p) in lv0.pos.iter().enumerate() {
-                for c in 0..C {
-                    let v = planes[c][p as usize];
-                    u[i * C + c] = if v.is_finite() { f64::from(v) } else { 0.0 };
-                }
-            }
-        }
+    if start == Start::FullMultigrid {
+        cy.full_multigrid();
     }
     let (reports, r_sq) = super::iterate(&mut cy, params, start, bnorm, progress)?;
     let mut values = std::mem::take(&mut cy.work[0].u);
@@ -214,7 +310,7 @@ impl<const C: usize> super::Iteration<C> for Cycler<'_, C> {
     fn residual_sq(&mut self) -> [f64; C] {
         let lv0 = &self.h.levels[0];
         let LevelWork { u, b, r } = &mut self.work[0];
-        residual::<C>(lv0, u, b, r, &mut self.partial)
+        residual::<C>(lv0, u, b, r, &mut self.partial, self.relaxed_last[0])
     }
     fn cycle(&mut self, kind: Cycle) {
         Levels::cycle(self, 0, kind);
@@ -223,12 +319,19 @@ impl<const C: usize> super::Iteration<C> for Cycler<'_, C> {
 
 /// Writes a group's values into the planes.
 pub(super) fn write_back(h: &Hierarchy, planes: &mut [&mut [f32]], first: usize, count: usize, values: &[f64]) {
-    for (i, &p) in h.levels[0].pos.iter().enumerate() {
-        for c in 0..count {
-            #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
-            {
-                planes[first + c][p as usize] = values[i * count + c] as f32;
-            }
-        }
+    let lv0 = &h.levels[0];
+    let w = h.width;
+    let bands = pixel_bands(lv0, w, h.height);
+    for (c, plane) in planes[first..first + count].iter_mut().enumerate() {
+        plane.par_chunks_mut(BAND_ROWS * w).zip(&bands).for_each(|(rows, band)| {
+            let offset = band.rows.start * w;
+            let Ok(()) = band.for_each::<Infallible>(&lv0.pos, |i, _, _| {
+                #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
+                {
+                    rows[lv0.pos[i] as usize - offset] = values[i * count + c] as f32;
+                }
+                Ok(())
+            });
+        });
     }
 }

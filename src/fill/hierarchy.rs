@@ -172,45 +172,52 @@ impl Hierarchy {
     }
 }
 
-/// Finds a level's point index from its grid position. Dense levels use a lookup table over the
-/// grid; sparse ones (few unknowns in a large image) a sorted list per row, so the memory and time
-/// of building a level follow its points, not the pixels.
-enum PosIndex {
-    Dense { w: usize, table: Vec<u32> },
-    Rows { row_start: Vec<u32>, xs: Vec<u32>, ids: Vec<u32> },
+/// Finds a level's point index from its grid position: one bit per grid cell saying whether a
+/// point is there, the number of points before every word of bits (row-major), and the points in
+/// row-major order. A lookup is a bit test and a population count; building one is linear in the
+/// points plus a pass over `w·h/64` words, with no sorting.
+struct PosIndex {
+    w: usize,
+    words: usize,
+    bits: Vec<u64>,
+    before: Vec<u32>,
+    ids: Vec<u32>,
 }
 
 impl PosIndex {
     fn new(w: usize, h: usize, pos: &[u32]) -> Self {
-        if pos.len() * 16 >= w * h {
-            let mut table = vec![u32::MAX; w * h];
-            for (i, &p) in pos.iter().enumerate() {
-                table[p as usize] = to_u32(i);
-            }
-            return Self::Dense { w, table };
-        }
-        let mut order: Vec<u32> = (0..to_u32(pos.len())).collect();
-        order.sort_unstable_by_key(|&i| pos[i as usize]);
-        let mut row_start = vec![0u32; h + 1];
+        let words = w.div_ceil(64);
+        let mut bits = vec![0u64; words * h];
         for &p in pos {
-            row_start[p as usize / w + 1] += 1;
+            let (x, y) = (p as usize % w, p as usize / w);
+            bits[y * words + x / 64] |= 1 << (x % 64);
         }
-        for y in 0..h {
-            row_start[y + 1] += row_start[y];
+        let mut before = Vec::with_capacity(bits.len());
+        let mut count = 0u32;
+        for &word in &bits {
+            before.push(count);
+            count += word.count_ones();
         }
-        let xs = order.iter().map(|&i| to_u32(pos[i as usize] as usize % w)).collect();
-        Self::Rows { row_start, xs, ids: order }
+        let mut index = Self { w, words, bits, before, ids: vec![0; pos.len()] };
+        for (i, &p) in pos.iter().enumerate() {
+            let rank = index.rank(p as usize % w, p as usize / w);
+            index.ids[rank] = to_u32(i);
+        }
+        index
+    }
+
+    /// The row-major rank of the cell `(x, y)` among the points.
+    fn rank(&self, x: usize, y: usize) -> usize {
+        let k = y * self.words + x / 64;
+        let below = (1u64 << (x % 64)) - 1;
+        self.before[k] as usize + (self.bits[k] & below).count_ones() as usize
     }
 
     /// The index of the point at `(x, y)`, if there is one (the caller keeps `(x, y)` in the grid).
     fn get(&self, x: usize, y: usize) -> Option<u32> {
-        match self {
-            Self::Dense { w, table } => Some(table[y * w + x]).filter(|&i| i != u32::MAX),
-            Self::Rows { row_start, xs, ids, .. } => {
-                let (a, b) = (row_start[y] as usize, row_start[y + 1] as usize);
-                xs[a..b].binary_search(&to_u32(x)).ok().map(|k| ids[a + k])
-            }
-        }
+        debug_assert!(x < self.w);
+        let k = y * self.words + x / 64;
+        (self.bits[k] >> (x % 64) & 1 == 1).then(|| self.ids[self.rank(x, y)])
     }
 }
 
@@ -221,16 +228,17 @@ fn to_u32(i: usize) -> u32 {
 /// Level 0: the masked pixels, 2 colours (red-black), 5-point operator.
 fn fine_level(mask: &Mask) -> Level {
     let (w, h) = (mask.width(), mask.height());
-    let bits = mask.bits();
-    let mut pos = Vec::with_capacity(mask.count());
+    let runs = crate::mask::row_runs(mask);
+    let mut pos = Vec::with_capacity(runs.iter().flatten().map(|&(a, b)| (b - a) as usize).sum());
     let mut colours = Vec::with_capacity(2);
     for colour in 0..2 {
         let start = pos.len();
-        for y in 0..h {
-            for x in ((y + colour) % 2..w).step_by(2) {
-                if bits[y * w + x] {
-                    pos.push(to_u32(y * w + x));
-                }
+        for (y, row) in runs.iter().enumerate() {
+            for &(a, b) in row {
+                let (a, b) = (a as usize, b as usize);
+                // The first x >= a with (x + y) % 2 == colour.
+                let first = a + (a + y + colour) % 2;
+                pos.extend((first..b).step_by(2).map(|x| to_u32(y * w + x)));
             }
         }
         colours.push(start..pos.len());
@@ -249,9 +257,7 @@ fn fine_level(mask: &Mask) -> Level {
         for (slot, q) in candidates.into_iter().enumerate() {
             if let Some(q) = q {
                 deg += 1;
-                if bits[q] {
-                    nb[slot] = index.get(q % w, q / w).unwrap_or(ghost);
-                }
+                nb[slot] = index.get(q % w, q / w).unwrap_or(ghost);
             }
         }
         *d = f64::from(deg);
@@ -309,30 +315,24 @@ fn coarsen(fine: &Level) -> (Level, Vec<u32>, Vec<f32>) {
     let findex = PosIndex::new(wf, hf, &fine.pos);
 
     // Coarse points: fine points with both coordinates even; ordered by 4 colours, then row-major.
-    let mut keyed: Vec<(u8, u32)> = fine
-        .pos
-        .iter()
-        .filter_map(|&p| {
-            let p = p as usize;
-            let (x, y) = (p % wf, p / wf);
-            (x % 2 == 0 && y % 2 == 0).then(|| {
-                let (xc, yc) = (x / 2, y / 2);
-                #[allow(clippy::cast_possible_truncation)] // value is 0..=3
-                let colour = ((xc & 1) | ((yc & 1) << 1)) as u8;
-                (colour, to_u32(yc * wc + xc))
-            })
-        })
-        .collect();
-    keyed.sort_unstable();
-    let nc = keyed.len();
-    let mut colours = Vec::with_capacity(4);
-    let mut start = 0;
-    for colour in 0..4u8 {
-        let end = start + keyed[start..].iter().take_while(|(c, _)| *c == colour).count();
-        colours.push(start..end);
-        start = end;
+    // They all belong to the fine level's first colour (x + y even on level 0, x and y even on
+    // coarse levels), which is row-major already, so sorting them into colours is stable bucketing.
+    let mut buckets: [Vec<u32>; 4] = Default::default();
+    for &p in &fine.pos[fine.colours[0].clone()] {
+        let p = p as usize;
+        let (x, y) = (p % wf, p / wf);
+        if x % 2 == 0 && y % 2 == 0 {
+            let (xc, yc) = (x / 2, y / 2);
+            buckets[(xc & 1) | ((yc & 1) << 1)].push(to_u32(yc * wc + xc));
+        }
     }
-    let pos: Vec<u32> = keyed.into_iter().map(|(_, p)| p).collect();
+    let nc = buckets.iter().map(Vec::len).sum();
+    let mut colours = Vec::with_capacity(4);
+    let mut pos: Vec<u32> = Vec::with_capacity(nc);
+    for bucket in &buckets {
+        colours.push(pos.len()..pos.len() + bucket.len());
+        pos.extend_from_slice(bucket);
+    }
     let cindex = PosIndex::new(wc, hc, &pos);
     let coarse_at =
         |xc: usize, yc: usize| -> Option<u32> { if xc < wc && yc < hc { cindex.get(xc, yc) } else { None } };

@@ -850,24 +850,19 @@ impl<const C: usize> Cycler<'_, C> {
         });
     }
 
-    /// One red-black sweep of level 0 (`reverse`: black first), as a wavefront.
-    fn sweep0(&mut self, reverse: bool) {
-        self.sweep0_from(reverse, 0);
-    }
-
-    /// [`Cycler::sweep0`] from phase `from` (1: the second colour only).
-    fn sweep0_from(&mut self, reverse: bool, from: usize) {
-        let (first, second) = if reverse { (1, 0) } else { (0, 1) };
+    /// `sweeps` red-black sweeps of level 0 (`reverse`: black first) as one wavefront, less the
+    /// first half-sweep when `skip_first`.
+    fn sweeps0(&mut self, sweeps: usize, reverse: bool, skip_first: bool) {
+        let skip = usize::from(skip_first);
+        let phases = (2 * sweeps).saturating_sub(skip);
         let u = Shared(self.work.u.as_mut_ptr());
         let this = &*self;
-        wavefront(this.g.h, this.band, |y, phase| {
-            if phase < from {
-                return;
-            }
-            // SAFETY: `wavefront` runs the second colour of a row only after the first colour of
-            // its neighbour rows, never two tasks on neighbouring rows of one colour, and
-            // red-black cells of one colour are never neighbours.
-            unsafe { this.relax_row0(u, y, if phase == 0 { first } else { second }) };
+        wavefront(this.g.h, this.band.max(2 * phases), phases, |y, phase| {
+            let colour = (usize::from(reverse) + phase + skip) % 2;
+            // SAFETY: `wavefront` runs phase p of a row only between phases p − 1 and p + 1 of
+            // its neighbour rows, never two tasks on neighbouring rows in one phase, and red-black
+            // cells of one colour are never neighbours.
+            unsafe { this.relax_row0(u, y, colour) };
         });
     }
 
@@ -1267,25 +1262,26 @@ impl<const C: usize> Cycler<'_, C> {
     // -----------------------------------------------------------------------------------------
     // Coarse levels.
 
-    /// One 4-colour Gauss-Seidel sweep of coarse level `l` (index into `levels`): colours
+    /// `sweeps` 4-colour Gauss-Seidel sweeps of coarse level `l` (index into `levels`): colours
     /// (even x, even y), (odd, even), (even, odd), (odd, odd), or the reverse. Rows of one parity
     /// never couple to each other, so each row takes its two colours in turn, and the rows run as
     /// a wavefront (even rows first, or odd rows first in reverse).
-    fn sweep_coarse(&mut self, l: usize, reverse: bool) {
+    fn sweeps_coarse(&mut self, l: usize, sweeps: usize, reverse: bool) {
         let e = Shared(self.work.e[l].as_mut_ptr());
         let buf = Shared(self.work.row_buf.as_mut_ptr());
         let this = &*self;
         let lv = &this.g.levels[l];
-        let first_parity = usize::from(reverse);
-        let band = coarse_band(this.band, l, lv);
+        let phases = 2 * sweeps;
+        // Fewer, larger bands than `coarse_band` leave the row buffers enough room.
+        let band = coarse_band(this.band, l, lv).max(2 * phases);
         debug_assert!(lv.h.div_ceil(band) * lv.pw * C <= this.work.row_buf.len());
-        wavefront(lv.h, band, |y, phase| {
-            let parity = if phase == 0 { first_parity } else { 1 - first_parity };
+        wavefront(lv.h, band, phases, |y, phase| {
+            let parity = (usize::from(reverse) + phase) % 2;
             if y % 2 == parity {
                 // SAFETY: a row's points couple to their own row and the two rows of the other
                 // parity; `wavefront` never runs a row while a neighbour row of the other phase
-                // is being written, and rows of one parity never touch. Each band's rows run one
-                // after another in one task, which alone uses the band's stretch of `buf`.
+                // is being written, and rows of one parity never touch. A band's rows are run by
+                // one task at a time, which alone uses the band's stretch of `buf`.
                 unsafe {
                     let buf = std::slice::from_raw_parts_mut(buf.get().add(y / band * lv.pw * C), lv.pw * C);
                     this.relax_coarse_row(l, e, y, usize::from(reverse), buf);
@@ -1375,12 +1371,10 @@ impl<const C: usize> Cycler<'_, C> {
     }
 
     fn smooth(&mut self, l: usize, sweeps: usize, reverse: bool) {
-        for _ in 0..sweeps {
-            if l == 0 {
-                self.sweep0(reverse);
-            } else {
-                self.sweep_coarse(l - 1, reverse);
-            }
+        if l == 0 {
+            self.sweeps0(sweeps, reverse, false);
+        } else {
+            self.sweeps_coarse(l - 1, sweeps, reverse);
         }
     }
 
@@ -1434,30 +1428,46 @@ fn task_rows(level: &Coarse) -> usize {
     if level.n <= SMALL_LEVEL { level.h + 2 } else { ROWS }
 }
 
-/// Runs a Gauss-Seidel sweep of two phases over rows `0..h` in bands of `band` rows:
-/// `relax(y, 0)` on every row, and `relax(y, 1)` on every row after `relax(·, 0)` is done on rows
-/// `y − 1..=y + 1`, where `relax(y, 1)` reads only phase-0 points of rows `y − 1..=y + 1` and
-/// `relax(y, 0)` only phase-1 points (not yet updated) of the same rows. Within a band the second
-/// phase trails the first by one row, so a sweep passes over the memory once; the rows at band
-/// edges take their second phase after every band has finished its first.
-fn wavefront(h: usize, band: usize, relax: impl Fn(usize, usize) + Sync) {
+/// Runs `phases` Gauss-Seidel half-sweeps over rows `0..h` as one wavefront: `relax(y, p)` for
+/// every row `y` and phase `p`, where phase `p` of row `y` runs after phase `p − 1` and before
+/// phase `p + 1` of rows `y − 1..=y + 1`, and rows in one phase do not read each other's updates.
+///
+/// The rows are cut into bands of `band` rows (at least `2·phases` when there are several). Each
+/// band first runs the trapezoid that needs no other band — phase `q` on its rows `y0 + q..y1 −
+/// q`, trailing phase `q − 1` by one row, so all phases pass over the band's memory once while a
+/// few rows are in cache — side by side with the other bands. Then the seams between bands take
+/// their remaining phases, `q` on rows `y0 − q..y0 + q` around each band start `y0`; seams two
+/// bands apart run side by side, so a band is worked on by one task at a time.
+fn wavefront(h: usize, band: usize, phases: usize, relax: impl Fn(usize, usize) + Sync) {
+    if phases == 0 || h == 0 {
+        return;
+    }
+    let band = band.max(1);
     let bands = h.div_ceil(band);
+    assert!(bands == 1 || band >= 2 * phases, "bands of {band} rows are too thin for {phases} phases");
     (0..bands).into_par_iter().for_each(|b| {
         let (y0, y1) = (b * band, ((b + 1) * band).min(h));
-        for y in y0..y1 {
-            relax(y, 0);
-            if y >= y0 + 2 {
-                relax(y - 1, 1);
+        let lo = |q: usize| if b == 0 { 0 } else { y0 + q };
+        let hi = |q: usize| if b + 1 == bands { y1 } else { y1 - q };
+        for step in y0..y1 + phases {
+            for q in 0..phases.min(step + 1) {
+                let y = step - q;
+                if y >= lo(q) && y < hi(q) {
+                    relax(y, q);
+                }
             }
         }
     });
-    (0..bands).into_par_iter().for_each(|b| {
-        let (y0, y1) = (b * band, ((b + 1) * band).min(h));
-        relax(y0, 1);
-        if y1 - 1 > y0 {
-            relax(y1 - 1, 1);
-        }
-    });
+    for parity in 0..2 {
+        (1..bands).into_par_iter().filter(|b| b % 2 == parity).for_each(|b| {
+            let y0 = b * band;
+            for q in 1..phases {
+                for y in y0 - q..(y0 + q).min(h) {
+                    relax(y, q);
+                }
+            }
+        });
+    }
 }
 
 impl<const C: usize> Levels for Cycler<'_, C> {
@@ -1468,8 +1478,7 @@ impl<const C: usize> Levels for Cycler<'_, C> {
         if l == 0 && self.relaxed_last == Some(0) && self.params.pre_smooth > 0 {
             // The last post-smoothing sweep ended with the red cells, and nothing changed since:
             // a red half-sweep now would recompute the same values, so start with black.
-            self.sweep0_from(false, 1);
-            self.smooth(l, self.params.pre_smooth - 1, false);
+            self.sweeps0(self.params.pre_smooth, false, true);
         } else {
             self.smooth(l, self.params.pre_smooth, false);
         }
@@ -1667,6 +1676,43 @@ mod tests {
     use super::*;
     use crate::fill::hierarchy::Hierarchy;
     use crate::mask::Mask;
+
+    #[test]
+    fn wavefront_runs_every_phase_of_every_row_once_in_dependency_order() {
+        use std::sync::Mutex;
+        use std::sync::atomic::{AtomicUsize, Ordering};
+        let pool = rayon::ThreadPoolBuilder::new().num_threads(3).build().expect("pool");
+        // Several bands with a short last band, one band, and bands exactly 2·phases thick.
+        for (h, band, phases) in [(50, 12, 6), (50, 50, 6), (7, 7, 4), (48, 8, 4), (33, 16, 2), (40, 10, 3)] {
+            let clock = AtomicUsize::new(0);
+            let times = Mutex::new(vec![Vec::new(); h * phases]);
+            pool.install(|| {
+                wavefront(h, band, phases, |y, p| {
+                    let start = clock.fetch_add(1, Ordering::SeqCst);
+                    let end = clock.fetch_add(1, Ordering::SeqCst);
+                    times.lock().expect("lock")[y * phases + p].push((start, end));
+                });
+            });
+            let times = times.into_inner().expect("lock");
+            for y in 0..h {
+                for p in 0..phases {
+                    let at = &times[y * phases + p];
+                    assert_eq!(at.len(), 1, "row {y} phase {p} ran {} times (h {h}, band {band})", at.len());
+                }
+            }
+            let span = |y: usize, p: usize| times[y * phases + p][0];
+            for y in 0..h {
+                for p in 1..phases {
+                    for ny in y.saturating_sub(1)..(y + 2).min(h) {
+                        // Phase p of row y starts after phase p − 1 of its neighbours (and itself)
+                        // has ended; over all rows this also keeps phase p + 1 of the neighbours
+                        // from starting before phase p of row y has ended.
+                        assert!(span(ny, p - 1).1 < span(y, p).0, "row {y} phase {p} before row {ny} phase {}", p - 1);
+                    }
+                }
+            }
+        }
+    }
 
     fn grid_of(mask: &Mask) -> Grid {
         let (w, h) = (mask.width(), mask.height());

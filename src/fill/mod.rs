@@ -438,6 +438,31 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     parts
 }
 
+/// A mask kept one bit per pixel, row-major.
+#[derive(Debug)]
+struct PackedMask {
+    width: usize,
+    height: usize,
+    bits: Vec<u64>,
+}
+
+impl PackedMask {
+    fn new(mask: &Mask) -> Self {
+        let bits = mask
+            .bits()
+            .par_chunks(64)
+            .map(|c| c.iter().enumerate().fold(0u64, |w, (i, &b)| w | u64::from(b) << i))
+            .collect();
+        Self { width: mask.width(), height: mask.height(), bits }
+    }
+
+    fn unpack(&self) -> Mask {
+        let n = self.width * self.height;
+        let bits = (0..n).into_par_iter().map(|p| self.bits[p / 64] >> (p % 64) & 1 == 1).collect();
+        Mask::from_bits(self.width, self.height, bits)
+    }
+}
+
 /// A mask's solver: the multigrid hierarchy, built once and reused for any number of images of
 /// that size (a bad-pixel map applied to many frames) or re-solves after an edit.
 #[derive(Debug)]
@@ -446,8 +471,9 @@ pub struct Solver {
     parts: Vec<Part>,
     /// The biharmonic hierarchy (biharmonic method only).
     biharmonic: Option<biharmonic::Hierarchy>,
-    /// The mask (guided fill and grain need the holes themselves).
-    mask: Mask,
+    /// The mask, one bit per pixel (guided fill, the biharmonic solve and grain need the holes
+    /// themselves; a full copy would cost a byte per pixel and the time to fault it in).
+    mask: PackedMask,
     /// Masked pixels.
     unknowns: usize,
     width: usize,
@@ -507,7 +533,7 @@ impl Solver {
             method,
             parts,
             biharmonic,
-            mask: mask.clone(),
+            mask: PackedMask::new(mask),
             unknowns,
             width,
             height,
@@ -615,7 +641,9 @@ impl Solver {
         }
         let t0 = Instant::now();
         let mut report = match self.method {
-            FillMethod::Guided => in_pool(params.threads, || guided::fill(planes, &self.mask, params, progress))?,
+            FillMethod::Guided => {
+                in_pool(params.threads, || guided::fill(planes, &self.mask.unpack(), params, progress))?
+            }
             method => {
                 let mut report = FillReport {
                     method,
@@ -626,7 +654,8 @@ impl Solver {
                     ..FillReport::default()
                 };
                 if let Some(b) = &self.biharmonic {
-                    report.channels = in_pool(params.threads, || b.solve(planes, &self.mask, params, start, progress))?;
+                    report.channels =
+                        in_pool(params.threads, || b.solve(planes, &self.mask.unpack(), params, start, progress))?;
                 } else if !self.parts.is_empty() {
                     report.channels = in_pool(params.threads, || self.solve_parts(planes, params, start, progress))?;
                 }
@@ -635,7 +664,7 @@ impl Solver {
             }
         };
         if let Some(seed) = params.grain {
-            report.grain = Some(grain::add(planes, &self.mask, seed));
+            report.grain = Some(grain::add(planes, &self.mask.unpack(), seed));
         }
         Ok(report)
     }
@@ -843,4 +872,18 @@ pub fn fill_near(
     let mut views: Vec<&mut [f32]> = cut.iter_mut().map(Vec::as_mut_slice).collect();
     let report = solver.solve(&mut views, params, Start::Warm, progress)?;
     Ok(Some(LocalFill { x0, y0, mask: cut_mask, planes: cut, report }))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_packed_mask_unpacks_to_the_same_pixels() {
+        // Sizes that end mid-word and span several words per row.
+        for (w, h) in [(1, 1), (7, 3), (64, 2), (65, 5), (130, 9)] {
+            let mask = Mask::from_fn(w, h, |x, y| (x * 7 + y * 13) % 5 < 2);
+            assert_eq!(PackedMask::new(&mask).unpack().bits(), mask.bits(), "{w}×{h}");
+        }
+    }
 }

@@ -1564,9 +1564,10 @@ pub(crate) fn solve_group<const C: usize>(
         .enumerate()
         .map(|(y, row)| {
             let gy = g.y0 + y;
+            let bits = &g.members.bits[y * g.members.words..(y + 1) * g.members.words];
             for x in 0..w {
                 let p = gy * g.img_w + g.x0 + x;
-                let member = g.members.get(x as isize, y as isize);
+                let member = bits[x / 64] >> (x % 64) & 1 == 1;
                 for c in 0..C {
                     let v = planes[c][p];
                     if member {
@@ -1616,31 +1617,40 @@ pub(crate) fn solve_group<const C: usize>(
     let mut cy =
         Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial, row_buf }, band, relaxed_last: None };
 
-    // ‖b‖: the known neighbours of every unknown, summed.
+    // ‖b‖: the known neighbours of every unknown, summed. Members whose four neighbours are all
+    // members have none, so only the others are visited.
     let b_sq = {
         let parts: Vec<[f64; C]> = (0..h.div_ceil(ROWS))
             .into_par_iter()
             .map(|t| {
                 let mut s = [0f64; C];
                 let u = &cy.work.u;
+                let m = &g.members;
+                let mut inner = vec![0u64; m.words];
                 for y in t * ROWS..((t + 1) * ROWS).min(h) {
-                    g.members.for_row(y, None, |x| {
-                        let (xi, yi) = (x as isize, y as isize);
-                        let mut b = [0f64; C];
-                        for (dx, dy) in [(-1isize, 0isize), (1, 0), (0, -1), (0, 1)] {
-                            let (nx, ny) = (xi + dx, yi + dy);
-                            if nx < 0 || ny < 0 || nx as usize >= w || ny as usize >= h || g.members.get(nx, ny) {
-                                continue;
+                    Level0 { g }.interior_bits(y, &mut inner);
+                    for (i, (&word, &inside)) in m.bits[y * m.words..(y + 1) * m.words].iter().zip(&inner).enumerate() {
+                        let mut rim = word & !inside;
+                        while rim != 0 {
+                            let x = i * 64 + rim.trailing_zeros() as usize;
+                            rim &= rim - 1;
+                            let (xi, yi) = (x as isize, y as isize);
+                            let mut b = [0f64; C];
+                            for (dx, dy) in [(-1isize, 0isize), (1, 0), (0, -1), (0, 1)] {
+                                let (nx, ny) = (xi + dx, yi + dy);
+                                if nx < 0 || ny < 0 || nx as usize >= w || ny as usize >= h || m.get(nx, ny) {
+                                    continue;
+                                }
+                                let j = ny as usize * w + nx as usize;
+                                for c in 0..C {
+                                    b[c] += u[j * C + c];
+                                }
                             }
-                            let j = ny as usize * w + nx as usize;
                             for c in 0..C {
-                                b[c] += u[j * C + c];
+                                s[c] += b[c] * b[c];
                             }
                         }
-                        for c in 0..C {
-                            s[c] += b[c] * b[c];
-                        }
-                    });
+                    }
                 }
                 s
             })

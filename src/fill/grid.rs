@@ -15,9 +15,10 @@
 //!   computed near known pixels and the image edge;
 //! - interpolation and restriction weights are computed on the fly: bilinear where every parent is
 //!   an interior point, operator-dependent (collapsed stencils) elsewhere;
-//! - the level-0 residual is computed row by row inside the restriction and never stored, and the
-//!   red-black sweep runs as one wavefront per sweep (the black cells of row `y − 1` right after the
-//!   red cells of row `y`), so one sweep reads and writes the iterate once;
+//! - the level-0 residual is computed row by row inside the restriction and never stored, and all
+//!   red-black sweeps of a smoothing run as one wavefront (the black cells of row `y − 1` right
+//!   after the red cells of row `y`, the next sweep a row behind), so a smoothing reads and writes
+//!   the iterate about once;
 //! - each coarse level keeps its rows' runs of interior points, along which sweeps, residuals and
 //!   interpolation use the one interior stencil and bilinear weights without per-point lookups.
 //!

@@ -45,8 +45,7 @@ fn pixel_bands(lv0: &Level, w: usize, h: usize) -> Vec<Band> {
 impl Band {
     /// Calls `f(i, colour, k)` for the unknowns `i` of the band in pixel order, where `k` is the
     /// index of `i` in the band's slice of that colour (see [`Band::split`]). Level 0 keeps its
-    /// unknowns by colour; merging the colours visits each image row once instead of twice, which
-    /// halves the cache misses on large images.
+    /// unknowns by colour; merging the colours visits each image row once instead of twice.
     fn for_each<E>(&self, pos: &[u32], mut f: impl FnMut(usize, usize, usize) -> Result<(), E>) -> Result<(), E> {
         let [red, black] = &self.colours;
         let (mut a, mut b) = (red.start, black.start);

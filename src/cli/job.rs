@@ -73,8 +73,14 @@ impl Outcome {
     pub fn summary(&self, input: &Path, output: &Path) -> String {
         let worst = self.fill.channels.iter().map(|c| c.relative_residual).fold(0.0, f64::max);
         let cycles = self.fill.channels.iter().map(|c| c.cycles).max().unwrap_or(0);
+        // Every hole solved by factorisation takes no cycle.
+        let how = match cycles {
+            0 => "solved directly".to_owned(),
+            1 => "after 1 cycle".to_owned(),
+            n => format!("after {n} cycles"),
+        };
         format!(
-            "filled {} pixels in {} hole{} (largest {}) of '{}' -> '{}': residual {:.1e} after {} cycle{}, {:.3} s",
+            "filled {} pixels in {} hole{} (largest {}) of '{}' -> '{}': residual {:.1e} {}, {:.3} s",
             self.filled,
             self.holes.holes,
             if self.holes.holes == 1 { "" } else { "s" },
@@ -82,8 +88,7 @@ impl Outcome {
             input.display(),
             output.display(),
             worst,
-            cycles,
-            if cycles == 1 { "" } else { "s" },
+            how,
             self.fill.setup_seconds + self.fill.solve_seconds,
         )
     }

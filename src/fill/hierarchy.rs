@@ -20,7 +20,6 @@ use std::ops::Range;
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
-use crate::mask::Mask;
 
 /// Stencil slots of level 0 (the 5-point operator without its centre).
 pub(crate) const K_FINE: usize = 4;
@@ -101,8 +100,15 @@ pub struct Hierarchy {
 
 impl Hierarchy {
     /// Builds the hierarchy of `mask`. Returns `None` when the mask is empty.
-    pub(crate) fn build(mask: &Mask) -> Option<Self> {
-        let fine = fine_level(mask);
+    #[cfg(test)]
+    pub(crate) fn build(mask: &crate::mask::Mask) -> Option<Self> {
+        Self::from_runs(mask.width(), mask.height(), &crate::mask::row_runs(mask))
+    }
+
+    /// [`Hierarchy::build`] for the mask whose unknowns are `runs` (`[a, b)` per row) in a
+    /// `w × h` image.
+    pub(crate) fn from_runs(w: usize, h: usize, runs: &[Vec<(u32, u32)>]) -> Option<Self> {
+        let fine = fine_level(w, h, runs);
         if fine.n == 0 {
             return None;
         }
@@ -128,7 +134,7 @@ impl Hierarchy {
         } else {
             Coarsest::Relax(8)
         };
-        Some(Self { width: mask.width(), height: mask.height(), levels, coarsest })
+        Some(Self { width: w, height: h, levels, coarsest })
     }
 
     /// Number of unknowns (masked pixels).
@@ -226,9 +232,7 @@ fn to_u32(i: usize) -> u32 {
 }
 
 /// Level 0: the masked pixels, 2 colours (red-black), 5-point operator.
-fn fine_level(mask: &Mask) -> Level {
-    let (w, h) = (mask.width(), mask.height());
-    let runs = crate::mask::row_runs(mask);
+fn fine_level(w: usize, h: usize, runs: &[Vec<(u32, u32)>]) -> Level {
     let mut pos = Vec::with_capacity(runs.iter().flatten().map(|&(a, b)| (b - a) as usize).sum());
     let mut colours = Vec::with_capacity(2);
     for colour in 0..2 {
@@ -575,6 +579,7 @@ fn dense_matrix(level: &Level) -> Vec<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::mask::Mask;
 
     #[test]
     fn interpolation_reproduces_constants_away_from_known_pixels() {

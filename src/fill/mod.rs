@@ -25,6 +25,7 @@
 
 pub mod biharmonic;
 mod dense;
+mod direct;
 pub mod grain;
 mod grid;
 pub mod guided;
@@ -216,6 +217,8 @@ const GRID_MIN_DENSITY: f64 = 0.3;
 enum Part {
     Compact(Hierarchy),
     Grid(grid::Grid),
+    /// Holes solved exactly, without a hierarchy.
+    Direct(direct::Holes),
 }
 
 impl Part {
@@ -223,6 +226,7 @@ impl Part {
         match self {
             Self::Compact(h) => h.unknowns(),
             Self::Grid(g) => g.unknowns(),
+            Self::Direct(d) => d.unknowns(),
         }
     }
 }
@@ -343,25 +347,28 @@ fn dense_enough(unknowns: usize, (_, _, w, h): (usize, usize, usize, usize)) -> 
     unknowns >= GRID_MIN_UNKNOWNS && unknowns as f64 >= GRID_MIN_DENSITY * (w * h) as f64
 }
 
-/// Splits `mask` into parts: grids where the unknowns are dense in their box, index lists for the
-/// rest.
+/// Splits `mask` into parts: holes solved directly where that is cheap (small or thin holes),
+/// grids where the unknowns are dense in their box, index lists for the rest.
 fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     let (width, height) = (mask.width(), mask.height());
-    let runs = crate::mask::row_runs(mask);
-    let mut count = 0usize;
-    let mut bbox = (usize::MAX, usize::MAX, 0, 0);
-    for (y, row) in runs.iter().enumerate() {
-        if let (Some(first), Some(last)) = (row.first(), row.last()) {
-            count += row.iter().map(|&(a, b)| (b - a) as usize).sum::<usize>();
-            bbox = (bbox.0.min(first.0 as usize), bbox.1.min(y), bbox.2.max(last.1 as usize - 1), bbox.3.max(y));
+    let mut runs = crate::mask::row_runs(mask);
+    let extent = |runs: &[Vec<(u32, u32)>]| {
+        let mut count = 0usize;
+        let mut bbox = (usize::MAX, usize::MAX, 0, 0);
+        for (y, row) in runs.iter().enumerate() {
+            if let (Some(first), Some(last)) = (row.first(), row.last()) {
+                count += row.iter().map(|&(a, b)| (b - a) as usize).sum::<usize>();
+                bbox = (bbox.0.min(first.0 as usize), bbox.1.min(y), bbox.2.max(last.1 as usize - 1), bbox.3.max(y));
+            }
         }
-    }
+        (count, bbox)
+    };
+    let (mut count, mut bbox) = extent(&runs);
     if count == 0 {
         return Vec::new();
     }
-    let whole = margin_box(bbox, width, height);
-    let compact = |m: &Mask| Hierarchy::build(m).map(Part::Compact);
-    let one_grid = || {
+    let compact = |runs: &[Vec<(u32, u32)>]| Hierarchy::from_runs(width, height, runs).map(Part::Compact);
+    let one_grid = |runs: &[Vec<(u32, u32)>], whole| {
         grid::Grid::build(whole, (width, height), |y, f| {
             for &(a, b) in &runs[y] {
                 f(a as usize, b as usize);
@@ -370,32 +377,65 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         .map(Part::Grid)
     };
     match structure {
-        Structure::Compact => return compact(mask).into_iter().collect(),
-        Structure::Grid => return one_grid().or_else(|| compact(mask)).into_iter().collect(),
+        Structure::Compact => return compact(&runs).into_iter().collect(),
+        Structure::Grid => {
+            return one_grid(&runs, margin_box(bbox, width, height)).or_else(|| compact(&runs)).into_iter().collect();
+        }
         Structure::Auto => {}
     }
-    if dense_enough(count, whole)
-        && let Some(part) = one_grid()
-    {
-        return vec![part];
-    }
-    // Hole by hole: each dense, large hole gets its own grid (holes never touch, so their boxes
-    // may overlap); everything else shares one compact hierarchy.
-    let (hole_of, holes) = crate::mask::run_holes(&runs);
-    let mut row_start = Vec::with_capacity(height + 1);
-    row_start.push(0usize);
-    for row in &runs {
-        row_start.push(row_start[row_start.len() - 1] + row.len());
-    }
+    let (mut hole_of, holes) = crate::mask::run_holes(&runs);
     let mut sizes = vec![0usize; holes];
     let mut boxes = vec![(usize::MAX, usize::MAX, 0, 0); holes];
+    let mut run = 0;
     for (y, row) in runs.iter().enumerate() {
-        for (k, &(a, b)) in row.iter().enumerate() {
-            let hole = hole_of[row_start[y] + k] as usize;
+        for &(a, b) in row {
+            let hole = hole_of[run] as usize;
+            run += 1;
             sizes[hole] += (b - a) as usize;
             let bx = &mut boxes[hole];
             *bx = (bx.0.min(a as usize), bx.1.min(y), bx.2.max(b as usize - 1), bx.3.max(y));
         }
+    }
+    // Small and thin holes first: they need no hierarchy. The rest of the mask goes on.
+    let mut parts = Vec::new();
+    let (direct, taken) = direct::plan((width, height), &runs, &hole_of, &sizes, &boxes);
+    if let Some(direct) = direct {
+        count -= direct.unknowns();
+        parts.push(Part::Direct(direct));
+        if count == 0 {
+            return parts;
+        }
+        let mut kept = Vec::with_capacity(hole_of.len());
+        let mut run = 0;
+        for row in &mut runs {
+            row.retain(|_| {
+                let hole = hole_of[run];
+                run += 1;
+                if taken[hole as usize] {
+                    sizes[hole as usize] = 0;
+                    false
+                } else {
+                    kept.push(hole);
+                    true
+                }
+            });
+        }
+        hole_of = kept;
+        bbox = extent(&runs).1;
+    }
+    let whole = margin_box(bbox, width, height);
+    if dense_enough(count, whole)
+        && let Some(part) = one_grid(&runs, whole)
+    {
+        parts.push(part);
+        return parts;
+    }
+    // Hole by hole: each dense, large hole gets its own grid (holes never touch, so their boxes
+    // may overlap); everything else shares one compact hierarchy.
+    let mut row_start = Vec::with_capacity(height + 1);
+    row_start.push(0usize);
+    for row in &runs {
+        row_start.push(row_start[row_start.len() - 1] + row.len());
     }
     let hole_runs = |hole: usize, y: usize, f: &mut dyn FnMut(usize, usize)| {
         for (k, &(a, b)) in runs[y].iter().enumerate() {
@@ -407,13 +447,12 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     // Dense holes' grids are built side by side (small holes keep one core busy only briefly).
     let dense: Vec<(usize, (usize, usize, usize, usize))> = (0..holes)
         .map(|hole| (hole, margin_box(boxes[hole], width, height)))
-        .filter(|&(hole, bx)| dense_enough(sizes[hole], bx))
+        .filter(|&(hole, bx)| sizes[hole] > 0 && dense_enough(sizes[hole], bx))
         .collect();
     let grids: Vec<Option<grid::Grid>> = dense
         .par_iter()
         .map(|&(hole, bx)| grid::Grid::build(bx, (width, height), |y, f| hole_runs(hole, y, f)))
         .collect();
-    let mut parts = Vec::new();
     let mut gridded = Vec::new();
     let mut left = count;
     for (&(hole, bx), g) in dense.iter().zip(grids) {
@@ -423,16 +462,24 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
             left -= sizes[hole];
         }
     }
-    if gridded.is_empty() {
-        return compact(mask).into_iter().collect();
-    }
     if left > 0 {
-        let mut rest = mask.clone();
-        for &(hole, bx) in &gridded {
-            for y in bx.1..bx.1 + bx.3 {
-                hole_runs(hole, y, &mut |a, b| rest.bits_mut()[y * width + a..y * width + b].fill(false));
-            }
+        let mut in_grid = vec![false; holes];
+        for &(hole, _) in &gridded {
+            in_grid[hole] = true;
         }
+        let mut run = 0;
+        let rest: Vec<Vec<(u32, u32)>> = runs
+            .iter()
+            .map(|row| {
+                let start = run;
+                run += row.len();
+                row.iter()
+                    .zip(&hole_of[start..run])
+                    .filter(|&(_, &hole)| !in_grid[hole as usize])
+                    .map(|(&r, _)| r)
+                    .collect()
+            })
+            .collect();
         parts.extend(compact(&rest));
     }
     parts
@@ -564,24 +611,28 @@ impl Solver {
             .map(|p| match p {
                 Part::Compact(h) => h.depth(),
                 Part::Grid(g) => g.depth(),
+                Part::Direct(_) => 1,
             })
             .max()
             .unwrap_or(0)
     }
 
-    /// Points per level of each part, finest first, and whether the part is a grid.
+    /// Points per level of each multigrid part, finest first, and whether the part is a grid
+    /// (holes solved directly have no levels and are left out).
     #[must_use]
     pub fn level_sizes(&self) -> Vec<(bool, Vec<usize>)> {
         self.parts
             .iter()
-            .map(|p| match p {
-                Part::Compact(h) => (false, h.level_sizes()),
-                Part::Grid(g) => (true, g.level_sizes()),
+            .filter_map(|p| match p {
+                Part::Compact(h) => Some((false, h.level_sizes())),
+                Part::Grid(g) => Some((true, g.level_sizes())),
+                Part::Direct(_) => None,
             })
             .collect()
     }
 
-    /// How the hierarchy is stored, in a few words: "2 grid, 1 compact" (harmonic parts),
+    /// How the hierarchy is stored, in a few words: "2 grid, 1 compact" (harmonic parts, with
+    /// ", direct" when some holes are solved directly),
     /// "grid" or "compact" (biharmonic), "a cut per hole" (guided).
     #[must_use]
     pub fn storage(&self) -> String {
@@ -589,9 +640,11 @@ impl Solver {
             (FillMethod::Guided, _) => "a cut per hole".to_owned(),
             (_, Some(b)) => if b.is_grid() { "grid" } else { "compact" }.to_owned(),
             _ => {
-                let sizes = self.level_sizes();
-                let grids = sizes.iter().filter(|(grid, _)| *grid).count();
-                format!("{grids} grid, {} compact", sizes.len() - grids)
+                let count = |f: fn(&Part) -> bool| self.parts.iter().filter(|p| f(p)).count();
+                let grids = count(|p| matches!(p, Part::Grid(_)));
+                let compact = count(|p| matches!(p, Part::Compact(_)));
+                let direct = if count(|p| matches!(p, Part::Direct(_))) > 0 { ", direct" } else { "" };
+                format!("{grids} grid, {compact} compact{direct}")
             }
         }
     }
@@ -607,6 +660,7 @@ impl Solver {
             .map(|p| match p {
                 Part::Compact(h) => h.memory_bytes(),
                 Part::Grid(g) => g.memory_bytes(),
+                Part::Direct(d) => d.memory_bytes(),
             })
             .sum()
     }
@@ -683,7 +737,10 @@ impl Solver {
         let mut r_sq = vec![0f64; channels];
         let mut b_sq = vec![0f64; channels];
         let mut reports = vec![ChannelReport::default(); channels];
-        let largest = (0..self.parts.len()).max_by_key(|&k| self.parts[k].unknowns()).unwrap_or(0);
+        // The history shown is the largest multigrid part's (a direct solve has one entry).
+        let largest = (0..self.parts.len())
+            .max_by_key(|&k| (!matches!(self.parts[k], Part::Direct(_)), self.parts[k].unknowns()))
+            .unwrap_or(0);
         // Parts are solved side by side (small holes' passes are too short to keep both cores
         // busy on their own); each part's result does not depend on which thread ran it.
         let progress = std::sync::Mutex::new(progress);
@@ -708,6 +765,12 @@ impl Solver {
                             2 => grid::solve_group::<2>(g, group, params, start, progress)?,
                             3 => grid::solve_group::<3>(g, group, params, start, progress)?,
                             _ => grid::solve_group::<4>(g, group, params, start, progress)?,
+                        },
+                        Part::Direct(d) => match group.len() {
+                            1 => direct::solve_group::<1>(d, group)?,
+                            2 => direct::solve_group::<2>(d, group)?,
+                            3 => direct::solve_group::<3>(d, group)?,
+                            _ => direct::solve_group::<4>(d, group)?,
                         },
                     };
                     out.push((first, result));
@@ -737,6 +800,7 @@ impl Solver {
             match &self.parts[k] {
                 Part::Compact(h) => solve::write_back(h, planes, first, result.scale.len(), &result.values),
                 Part::Grid(g) => grid::write_back(g, planes, first, &result),
+                Part::Direct(d) => direct::write_back(d, planes, first, result.scale.len(), &result.values),
             }
         }
         Ok(reports)

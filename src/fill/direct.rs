@@ -72,18 +72,33 @@ impl Lines {
         u32::try_from(k).expect("image index fits in u32")
     }
 
-    /// The pixel index `y·width + x` of a key.
-    fn pixel(&self, key: u32) -> usize {
-        let k = key as usize;
-        if self.by_columns { (k % self.len) * self.width + k / self.len } else { k }
+    /// The pixel indices `y·width + x` of increasing `keys`, dividing only where a line starts.
+    fn pixels<'k>(&self, keys: &'k [u32]) -> impl Iterator<Item = usize> + 'k {
+        let lines = *self;
+        let (mut line, mut line_start, mut line_end) = (0usize, 0usize, 0usize);
+        keys.iter().map(move |&key| {
+            let k = key as usize;
+            if !lines.by_columns {
+                return k;
+            }
+            if k >= line_end {
+                line = k / lines.len;
+                line_start = line * lines.len;
+                line_end = line_start + lines.len;
+            }
+            (k - line_start) * lines.width + line
+        })
     }
 }
 
-/// The couplings of one unknown of a hole: the indices (within the hole) of its neighbours before
-/// and after it on its line and on the previous and next lines ([`NONE`] where that neighbour is
-/// known or outside the image), and its number of in-image neighbours (the diagonal).
+/// The couplings of one unknown of a hole: its place (`a` along line `line`), the indices (within
+/// the hole) of its neighbours before and after it on its line and on the previous and next lines
+/// ([`NONE`] where that neighbour is known or outside the image), and its number of in-image
+/// neighbours (the diagonal).
 #[derive(Clone, Copy, Debug, Default)]
 struct Coupling {
+    a: u32,
+    line: u32,
     prev: u32,
     up: u32,
     next: u32,
@@ -109,10 +124,18 @@ fn couplings(keys: &[u32], lines: Lines, out: &mut Vec<Coupling>) {
     out.clear();
     let m = keys.len();
     let (mut up_at, mut down_at) = (0usize, 0usize);
+    // The current line and where it starts and ends, so a key's place needs no division unless
+    // it starts a new line.
+    let (mut line, mut line_start, mut line_end) = (0usize, 0usize, 0usize);
     for (i, &key) in keys.iter().enumerate() {
         let k = key as usize;
-        let (a, line) = (k % lines.len, k / lines.len);
-        let mut c = Coupling { prev: NONE, up: NONE, next: NONE, down: NONE, degree: 0 };
+        if k >= line_end {
+            line = k / lines.len;
+            line_start = line * lines.len;
+            line_end = line_start + lines.len;
+        }
+        let a = k - line_start;
+        let mut c = Coupling { a: a as u32, line: line as u32, prev: NONE, up: NONE, next: NONE, down: NONE, degree: 0 };
         if a > 0 {
             c.degree += 1;
             if i > 0 && keys[i - 1] == key - 1 {
@@ -350,28 +373,26 @@ fn solve_hole<const C: usize>(
     let mut b_sq = [0f64; C];
     s.b.clear();
     let w = lines.width;
-    let h = if lines.by_columns { lines.len } else { lines.count };
-    for (i, c) in cpl.iter().enumerate() {
-        let p = lines.pixel(keys[i]);
-        let (px, py) = (p % w, p / w);
+    // Pixel steps along a line and across lines.
+    let (along, across) = if lines.by_columns { (w, 1) } else { (1, w) };
+    for c in cpl {
+        let (a, line) = (c.a as usize, c.line as usize);
+        let p = if lines.by_columns { a * w + line } else { line * w + a };
         let mut sum = [0f64; C];
-        // Neighbours along the line and across it, as pixel positions.
-        let (along, across) = if lines.by_columns {
-            ([(0, -1), (0, 1)], [(-1, 0), (1, 0)])
-        } else {
-            ([(-1, 0), (1, 0)], [(0, -1), (0, 1)])
-        };
-        let sides = [(along[0], c.prev), (along[1], c.next), (across[0], c.up), (across[1], c.down)];
-        for ((dx, dy), j) in sides {
-            let (nx, ny) = (px as isize + dx, py as isize + dy);
-            if j != NONE || nx < 0 || ny < 0 || nx as usize >= w || ny as usize >= h {
+        let known = [
+            (a > 0 && c.prev == NONE, p.wrapping_sub(along)),
+            (a + 1 < lines.len && c.next == NONE, p + along),
+            (line > 0 && c.up == NONE, p.wrapping_sub(across)),
+            (line + 1 < lines.count && c.down == NONE, p + across),
+        ];
+        for (is_known, q) in known {
+            if !is_known {
                 continue;
             }
-            let q = ny as usize * w + nx as usize;
             for (cc, sc) in sum.iter_mut().enumerate() {
                 let v = planes[cc][q];
                 if !v.is_finite() {
-                    return Err(FillError::NonFiniteRim { x: nx as usize, y: ny as usize });
+                    return Err(FillError::NonFiniteRim { x: q % w, y: q / w });
                 }
                 *sc += f64::from(v);
             }
@@ -493,8 +514,7 @@ pub(crate) fn write_back(holes: &Holes, planes: &mut [&mut [f32]], first: usize,
             let p = ptr;
             for k in t[0] as usize..t[1] as usize {
                 let (range, lines) = holes.hole(k);
-                for (i, &key) in range.clone().zip(&holes.keys[range]) {
-                    let q = lines.pixel(key);
+                for (i, q) in range.clone().zip(lines.pixels(&holes.keys[range])) {
                     assert!(q < len, "an unknown lies in the image");
                     #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
                     // SAFETY: `q` is in the plane (checked) and written by this task only (see

@@ -7,11 +7,16 @@ use reweave::synth::{MaskFamily, smooth_plane};
 
 #[test]
 fn results_do_not_depend_on_the_thread_count() {
-    // Dropout is one grid; blob is several grids and an index-list part, solved side by side.
+    // Dropout's holes are solved directly, in tasks, or (forced) as one grid; blob is several
+    // grids and factored holes, solved side by side.
     let n = 300;
-    for family in [MaskFamily::Dropout, MaskFamily::Blob] {
+    for (family, structure) in [
+        (MaskFamily::Dropout, Structure::Auto),
+        (MaskFamily::Dropout, Structure::Grid),
+        (MaskFamily::Blob, Structure::Auto),
+    ] {
         let mask = family.mask(n, 2);
-        let solver = Solver::new(&mask).unwrap();
+        let solver = Solver::with_structure(&mask, structure).unwrap();
         let mut outputs = Vec::new();
         for threads in [1, 2, 3] {
             let mut plane = smooth_plane(n, n, 4);
@@ -20,7 +25,10 @@ fn results_do_not_depend_on_the_thread_count() {
             outputs.push(plane);
         }
         for o in &outputs[1..] {
-            assert!(o.iter().zip(&outputs[0]).all(|(a, b)| a.to_bits() == b.to_bits()), "{family}: bitwise identical");
+            assert!(
+                o.iter().zip(&outputs[0]).all(|(a, b)| a.to_bits() == b.to_bits()),
+                "{family} ({structure:?}): bitwise identical"
+            );
         }
     }
 }

@@ -19,7 +19,7 @@ use std::ops::Range;
 
 use rayon::prelude::*;
 
-use super::{ChannelReport, FillError, GroupResult};
+use super::{FillError, GroupResult, Sums};
 
 /// Largest hole solved directly.
 const MAX_UNKNOWNS: usize = 1 << 14;
@@ -135,7 +135,8 @@ fn couplings(keys: &[u32], lines: Lines, out: &mut Vec<Coupling>) {
             line_end = line_start + lines.len;
         }
         let a = k - line_start;
-        let mut c = Coupling { a: a as u32, line: line as u32, prev: NONE, up: NONE, next: NONE, down: NONE, degree: 0 };
+        let mut c =
+            Coupling { a: a as u32, line: line as u32, prev: NONE, up: NONE, next: NONE, down: NONE, degree: 0 };
         if a > 0 {
             c.degree += 1;
             if i > 0 && keys[i - 1] == key - 1 {
@@ -303,9 +304,6 @@ struct Scratch {
     b: Vec<f64>,
 }
 
-/// What one task found: the squared norms of the residual and of the right-hand side per channel.
-type Sums<const C: usize> = ([f64; C], [f64; C]);
-
 /// Solves every hole for `C` channels of `planes`. The values come back in the order of
 /// [`Holes::pixels`], `C` per unknown.
 pub(crate) fn solve_group<const C: usize>(holes: &Holes, planes: &[&mut [f32]]) -> Result<GroupResult, FillError> {
@@ -338,21 +336,7 @@ pub(crate) fn solve_group<const C: usize>(holes: &Holes, planes: &[&mut [f32]]) 
             Ok(sums)
         })
         .collect();
-    let (mut r_sq, mut b_sq) = (vec![0f64; C], vec![0f64; C]);
-    for s in sums {
-        let (r, b) = s?;
-        for c in 0..C {
-            r_sq[c] += r[c];
-            b_sq[c] += b[c];
-        }
-    }
-    let reports = (0..C)
-        .map(|c| {
-            let rel = r_sq[c].sqrt() / if b_sq[c] > 0.0 { b_sq[c].sqrt() } else { 1.0 };
-            ChannelReport { relative_residual: rel, cycles: 0, history: vec![rel] }
-        })
-        .collect();
-    Ok(GroupResult { values, reports, r_sq, b_sq, scale: vec![1.0; C] })
+    super::solved_exactly(values, sums)
 }
 
 /// Solves one hole into `x` (`C` values per unknown) and returns the squared norms of its

@@ -32,6 +32,7 @@ pub mod guided;
 mod hierarchy;
 mod kernels;
 mod solve;
+mod sparse;
 
 use std::time::Instant;
 
@@ -219,6 +220,8 @@ enum Part {
     Grid(grid::Grid),
     /// Holes solved exactly, without a hierarchy.
     Direct(direct::Holes),
+    /// Holes factored once.
+    Factored(sparse::Factored),
 }
 
 impl Part {
@@ -227,6 +230,7 @@ impl Part {
             Self::Compact(h) => h.unknowns(),
             Self::Grid(g) => g.unknowns(),
             Self::Direct(d) => d.unknowns(),
+            Self::Factored(f) => f.unknowns(),
         }
     }
 }
@@ -242,6 +246,33 @@ pub(crate) struct GroupResult {
     pub b_sq: Vec<f64>,
     /// The factor each channel's values were multiplied by while solving (a power of two).
     pub scale: Vec<f64>,
+}
+
+/// What an exact solve of some holes found: the squared norms of the residual and of the
+/// right-hand side per channel.
+pub(crate) type Sums<const C: usize> = ([f64; C], [f64; C]);
+
+/// The result of a group solved exactly (no cycles; the history is the solution's residual), from
+/// its values and the sums of its tasks in order (the first error wins).
+pub(crate) fn solved_exactly<const C: usize>(
+    values: Vec<f64>,
+    sums: Vec<Result<Sums<C>, FillError>>,
+) -> Result<GroupResult, FillError> {
+    let (mut r_sq, mut b_sq) = (vec![0f64; C], vec![0f64; C]);
+    for s in sums {
+        let (r, b) = s?;
+        for c in 0..C {
+            r_sq[c] += r[c];
+            b_sq[c] += b[c];
+        }
+    }
+    let reports = (0..C)
+        .map(|c| {
+            let rel = r_sq[c].sqrt() / if b_sq[c] > 0.0 { b_sq[c].sqrt() } else { 1.0 };
+            ChannelReport { relative_residual: rel, cycles: 0, history: vec![rel] }
+        })
+        .collect();
+    Ok(GroupResult { values, reports, r_sq, b_sq, scale: vec![1.0; C] })
 }
 
 /// The operations of one multigrid level that a cycle is made of, for either storage.
@@ -463,9 +494,56 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         }
     }
     if left > 0 {
-        let mut in_grid = vec![false; holes];
+        // The holes left: factored once where that is cheap (thin networks), else one compact
+        // hierarchy for all of them.
+        let mut elsewhere = vec![false; holes];
         for &(hole, _) in &gridded {
-            in_grid[hole] = true;
+            elsewhere[hole] = true;
+        }
+        let tried: Vec<usize> =
+            (0..holes).filter(|&k| sizes[k] > 0 && !elsewhere[k] && sizes[k] <= sparse::MAX_UNKNOWNS).collect();
+        let mut at = vec![usize::MAX; holes];
+        let mut start = vec![0usize];
+        for &k in &tried {
+            at[k] = start[start.len() - 1];
+            start.push(at[k] + sizes[k]);
+        }
+        let mut pixels = vec![0u32; start[start.len() - 1]];
+        let mut run = 0;
+        for (y, row) in runs.iter().enumerate() {
+            for &(a, b) in row {
+                let k = hole_of[run] as usize;
+                run += 1;
+                if at[k] != usize::MAX {
+                    for x in a..b {
+                        pixels[at[k]] = (y * width) as u32 + x;
+                        at[k] += 1;
+                    }
+                }
+            }
+        }
+        let mut slices = Vec::with_capacity(tried.len());
+        let mut tail = &mut pixels[..];
+        for w in start.windows(2) {
+            let (head, t) = tail.split_at_mut(w[1] - w[0]);
+            slices.push(head);
+            tail = t;
+        }
+        let factors: Vec<Option<sparse::Factor>> =
+            slices.into_par_iter().map(|px| sparse::factor(width, height, px)).collect();
+        let mut factored = Vec::new();
+        for (&k, f) in tried.iter().zip(factors) {
+            if let Some(f) = f {
+                elsewhere[k] = true;
+                left -= sizes[k];
+                factored.push(f);
+            }
+        }
+        if !factored.is_empty() {
+            parts.push(Part::Factored(sparse::Factored::new(width, height, factored)));
+        }
+        if left == 0 {
+            return parts;
         }
         let mut run = 0;
         let rest: Vec<Vec<(u32, u32)>> = runs
@@ -475,7 +553,7 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
                 run += row.len();
                 row.iter()
                     .zip(&hole_of[start..run])
-                    .filter(|&(_, &hole)| !in_grid[hole as usize])
+                    .filter(|&(_, &hole)| !elsewhere[hole as usize])
                     .map(|(&r, _)| r)
                     .collect()
             })
@@ -611,7 +689,7 @@ impl Solver {
             .map(|p| match p {
                 Part::Compact(h) => h.depth(),
                 Part::Grid(g) => g.depth(),
-                Part::Direct(_) => 1,
+                Part::Direct(_) | Part::Factored(_) => 1,
             })
             .max()
             .unwrap_or(0)
@@ -626,7 +704,7 @@ impl Solver {
             .filter_map(|p| match p {
                 Part::Compact(h) => Some((false, h.level_sizes())),
                 Part::Grid(g) => Some((true, g.level_sizes())),
-                Part::Direct(_) => None,
+                Part::Direct(_) | Part::Factored(_) => None,
             })
             .collect()
     }
@@ -643,7 +721,8 @@ impl Solver {
                 let count = |f: fn(&Part) -> bool| self.parts.iter().filter(|p| f(p)).count();
                 let grids = count(|p| matches!(p, Part::Grid(_)));
                 let compact = count(|p| matches!(p, Part::Compact(_)));
-                let direct = if count(|p| matches!(p, Part::Direct(_))) > 0 { ", direct" } else { "" };
+                let direct =
+                    if count(|p| matches!(p, Part::Direct(_) | Part::Factored(_))) > 0 { ", direct" } else { "" };
                 format!("{grids} grid, {compact} compact{direct}")
             }
         }
@@ -661,6 +740,7 @@ impl Solver {
                 Part::Compact(h) => h.memory_bytes(),
                 Part::Grid(g) => g.memory_bytes(),
                 Part::Direct(d) => d.memory_bytes(),
+                Part::Factored(f) => f.memory_bytes(),
             })
             .sum()
     }
@@ -739,7 +819,7 @@ impl Solver {
         let mut reports = vec![ChannelReport::default(); channels];
         // The history shown is the largest multigrid part's (a direct solve has one entry).
         let largest = (0..self.parts.len())
-            .max_by_key(|&k| (!matches!(self.parts[k], Part::Direct(_)), self.parts[k].unknowns()))
+            .max_by_key(|&k| (!matches!(self.parts[k], Part::Direct(_) | Part::Factored(_)), self.parts[k].unknowns()))
             .unwrap_or(0);
         // Parts are solved side by side (small holes' passes are too short to keep both cores
         // busy on their own); each part's result does not depend on which thread ran it.
@@ -772,6 +852,12 @@ impl Solver {
                             3 => direct::solve_group::<3>(d, group)?,
                             _ => direct::solve_group::<4>(d, group)?,
                         },
+                        Part::Factored(f) => match group.len() {
+                            1 => sparse::solve_group::<1>(f, group)?,
+                            2 => sparse::solve_group::<2>(f, group)?,
+                            3 => sparse::solve_group::<3>(f, group)?,
+                            _ => sparse::solve_group::<4>(f, group)?,
+                        },
                     };
                     out.push((first, result));
                 }
@@ -801,6 +887,7 @@ impl Solver {
                 Part::Compact(h) => solve::write_back(h, planes, first, result.scale.len(), &result.values),
                 Part::Grid(g) => grid::write_back(g, planes, first, &result),
                 Part::Direct(d) => direct::write_back(d, planes, first, result.scale.len(), &result.values),
+                Part::Factored(f) => sparse::write_back(f, planes, first, result.scale.len(), &result.values),
             }
         }
         Ok(reports)

@@ -1,0 +1,519 @@
+//! Thin holes of any shape solved exactly by a sparse Cholesky factorisation made once per mask.
+//!
+//! The envelope method of [`super::direct`] needs a hole that is thin across its lines; a network
+//! of crossing scratches or a dead row crossing dead columns is thin everywhere but wide in every
+//! line. Ordered by minimum degree (eliminate next the unknown with the fewest uneliminated
+//! neighbours; Tinney & Walker 1967, George & Liu 1981, ch. 5) the factor of such a hole has only
+//! a few entries per unknown: along a strip the elimination front stays as wide as the strip, and
+//! a crossing adds a small clique. The ordering is an explicit elimination graph, whose
+//! neighbour sets at each elimination are the columns of the factor, so the symbolic factorisation
+//! comes with it; [`factor`] gives up (the hole goes to multigrid) as soon as the factor would cost
+//! more than [`MAX_WORK_PER_UNKNOWN`] multiply-adds per unknown.
+//!
+//! Solving an image is then one forward and one backward substitution per hole, all channels
+//! together: the cheapest fill for a mask applied to many images and for re-fills in the window.
+
+use rayon::prelude::*;
+
+use super::{FillError, GroupResult, Sums};
+
+/// Largest multiply-add count of a factorisation, per unknown, before the hole is left to
+/// multigrid (a multigrid solve costs about 100–200 per unknown).
+const MAX_WORK_PER_UNKNOWN: usize = 150;
+/// Largest neighbour set an elimination may create before the hole is left to multigrid.
+const MAX_FRONT: usize = 48;
+/// Largest hole tried.
+pub(crate) const MAX_UNKNOWNS: usize = 1 << 21;
+/// No neighbour.
+const NONE: u32 = u32::MAX;
+
+/// One hole's factor `A = L·Lᵀ` in elimination order.
+#[derive(Debug)]
+pub(crate) struct Factor {
+    /// The pixel `y·width + x` of each unknown, in elimination order.
+    pixel: Vec<u32>,
+    /// The four neighbours (left, right, up, down) of each unknown as elimination positions, or
+    /// [`NONE`] where that neighbour is known or outside the image.
+    nbr: Vec<[u32; 4]>,
+    /// Column `k` of `L` below the diagonal: rows `row[col[k]..col[k + 1]]` (increasing, all
+    /// greater than `k`), values `val[..]` at the same places.
+    col: Vec<u32>,
+    row: Vec<u32>,
+    val: Vec<f64>,
+    /// `1 / L_kk`.
+    inv_diag: Vec<f64>,
+}
+
+/// The holes of a mask factored once.
+#[derive(Debug)]
+pub(crate) struct Factored {
+    width: usize,
+    height: usize,
+    holes: Vec<Factor>,
+}
+
+/// Orders and factors the hole whose unknowns are `pixels` (in any order) in a `width × height`
+/// image. `None` when its factor would cost too much (see the module documentation).
+pub(crate) fn factor(width: usize, height: usize, pixels: &mut [u32]) -> Option<Factor> {
+    pixels.sort_unstable();
+    let m = pixels.len();
+    // The hole's graph: 4-neighbours that are unknowns. The pixels increase, so the searches for
+    // the neighbours above and below move forward only.
+    let mut adj: Vec<Vec<u32>> = Vec::with_capacity(m);
+    let mut nbr0 = Vec::with_capacity(m);
+    let (mut up_at, mut down_at) = (0usize, 0usize);
+    for i in 0..m {
+        let p = pixels[i] as usize;
+        let (x, y) = (p % width, p / width);
+        let mut n = [NONE; 4];
+        if x > 0 && i > 0 && pixels[i - 1] as usize == p - 1 {
+            n[0] = (i - 1) as u32;
+        }
+        if x + 1 < width && i + 1 < m && pixels[i + 1] as usize == p + 1 {
+            n[1] = (i + 1) as u32;
+        }
+        if y > 0 {
+            while up_at < i && (pixels[up_at] as usize) < p - width {
+                up_at += 1;
+            }
+            if pixels[up_at] as usize == p - width {
+                n[2] = up_at as u32;
+            }
+        }
+        if y + 1 < height {
+            down_at = down_at.max(i + 1);
+            while down_at < m && (pixels[down_at] as usize) < p + width {
+                down_at += 1;
+            }
+            if down_at < m && pixels[down_at] as usize == p + width {
+                n[3] = down_at as u32;
+            }
+        }
+        adj.push(n.iter().copied().filter(|&j| j != NONE).collect());
+        nbr0.push(n);
+    }
+
+    // Minimum degree on the explicit elimination graph, with a bucket of unknowns per degree
+    // (doubly linked lists; the latest arrival is taken first within a bucket).
+    let mut buckets = Buckets::new(m);
+    for (v, a) in adj.iter().enumerate() {
+        buckets.insert(v, a.len());
+    }
+    let mut order = Vec::with_capacity(m);
+    // The neighbour set of each elimination (original indices): the factor's column pattern.
+    let mut pattern_at = Vec::with_capacity(m + 1);
+    let mut patterns: Vec<u32> = Vec::new();
+    pattern_at.push(0usize);
+    let mut work = 0usize;
+    while let Some(v) = buckets.pop_min() {
+        order.push(v as u32);
+        let front = std::mem::take(&mut adj[v]);
+        if front.len() > MAX_FRONT {
+            return None;
+        }
+        work += front.len() * (front.len() + 3) / 2;
+        if work > MAX_WORK_PER_UNKNOWN * m {
+            return None;
+        }
+        for &u in &front {
+            let a = &mut adj[u as usize];
+            a.retain(|&t| t as usize != v);
+            for &t in &front {
+                if t != u && !a.contains(&t) {
+                    a.push(t);
+                }
+            }
+            buckets.remove(u as usize);
+            buckets.insert(u as usize, a.len());
+        }
+        patterns.extend_from_slice(&front);
+        pattern_at.push(patterns.len());
+    }
+    drop(adj);
+    debug_assert_eq!(order.len(), m);
+    let mut pos = vec![0u32; m];
+    for (k, &v) in order.iter().enumerate() {
+        pos[v as usize] = k as u32;
+    }
+
+    // The structure of L in elimination order.
+    let mut col = Vec::with_capacity(m + 1);
+    col.push(0u32);
+    let mut row = Vec::with_capacity(patterns.len());
+    for k in 0..m {
+        let start = row.len();
+        row.extend(patterns[pattern_at[k]..pattern_at[k + 1]].iter().map(|&u| pos[u as usize]));
+        row[start..].sort_unstable();
+        col.push(u32::try_from(row.len()).expect("factor entries fit in u32"));
+    }
+    drop(patterns);
+    let nbr: Vec<[u32; 4]> =
+        order.iter().map(|&v| nbr0[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] })).collect();
+    let pixel: Vec<u32> = order.iter().map(|&v| pixels[v as usize]).collect();
+
+    // Numeric factorisation, right-looking: when column k is final, its outer product is taken
+    // from the later columns (every pair of its rows is an entry of L by construction).
+    let mut val = vec![0f64; row.len()];
+    let mut diag = vec![0f64; m];
+    for k in 0..m {
+        let p = pixel[k] as usize;
+        let (x, y) = (p % width, p / width);
+        diag[k] = f64::from(u8::from(x > 0) + u8::from(x + 1 < width) + u8::from(y > 0) + u8::from(y + 1 < height));
+        let (a, b) = (col[k] as usize, col[k + 1] as usize);
+        for &j in &nbr[k] {
+            if j != NONE && j as usize > k {
+                let at = a + row[a..b].binary_search(&j).expect("a neighbour is in its column");
+                val[at] = -1.0;
+            }
+        }
+    }
+    let mut inv_diag = vec![0f64; m];
+    for k in 0..m {
+        let d = diag[k];
+        if d <= 0.0 || !d.is_finite() {
+            return None;
+        }
+        let l = d.sqrt();
+        inv_diag[k] = 1.0 / l;
+        let (a, b) = (col[k] as usize, col[k + 1] as usize);
+        for v in &mut val[a..b] {
+            *v /= l;
+        }
+        for s in a..b {
+            let (i, li) = (row[s] as usize, val[s]);
+            diag[i] -= li * li;
+            // Rows after `s` are greater than i: they update column i.
+            let (ca, cb) = (col[i] as usize, col[i + 1] as usize);
+            let mut at = ca;
+            for t in s + 1..b {
+                let r = row[t];
+                // Both lists increase, so the search moves forward only.
+                while row[at] < r {
+                    at += 1;
+                }
+                debug_assert!(at < cb && row[at] == r);
+                val[at] -= val[t] * li;
+            }
+        }
+    }
+    Some(Factor { pixel, nbr, col, row, val, inv_diag })
+}
+
+/// Unknowns by degree, for the minimum-degree ordering: a doubly linked list per degree, taken
+/// from the front and joined at the back (ties go to the unknown waiting longest).
+struct Buckets {
+    head: Vec<u32>,
+    tail: Vec<u32>,
+    next: Vec<u32>,
+    prev: Vec<u32>,
+    degree: Vec<u32>,
+    /// No bucket below this one holds an unknown.
+    min: usize,
+}
+
+impl Buckets {
+    fn new(m: usize) -> Self {
+        Self {
+            head: vec![NONE; m + 1],
+            tail: vec![NONE; m + 1],
+            next: vec![NONE; m],
+            prev: vec![NONE; m],
+            degree: vec![0; m],
+            min: 0,
+        }
+    }
+
+    fn insert(&mut self, v: usize, d: usize) {
+        let d = d.min(self.head.len() - 1);
+        self.degree[v] = d as u32;
+        let t = self.tail[d];
+        self.prev[v] = t;
+        self.next[v] = NONE;
+        if t == NONE {
+            self.head[d] = v as u32;
+        } else {
+            self.next[t as usize] = v as u32;
+        }
+        self.tail[d] = v as u32;
+        self.min = self.min.min(d);
+    }
+
+    fn remove(&mut self, v: usize) {
+        let d = self.degree[v] as usize;
+        let (p, n) = (self.prev[v], self.next[v]);
+        if p == NONE {
+            self.head[d] = n;
+        } else {
+            self.next[p as usize] = n;
+        }
+        if n == NONE {
+            self.tail[d] = p;
+        } else {
+            self.prev[n as usize] = p;
+        }
+    }
+
+    fn pop_min(&mut self) -> Option<usize> {
+        while self.min < self.head.len() && self.head[self.min] == NONE {
+            self.min += 1;
+        }
+        let v = *self.head.get(self.min)? as usize;
+        self.remove(v);
+        Some(v)
+    }
+}
+
+impl Factor {
+    fn unknowns(&self) -> usize {
+        self.pixel.len()
+    }
+
+    fn memory_bytes(&self) -> usize {
+        self.pixel.len() * (4 + 16 + 4 + 8) + self.row.len() * 12
+    }
+}
+
+impl Factored {
+    pub(crate) fn new(width: usize, height: usize, holes: Vec<Factor>) -> Self {
+        Self { width, height, holes }
+    }
+
+    pub(crate) fn unknowns(&self) -> usize {
+        self.holes.iter().map(Factor::unknowns).sum()
+    }
+
+    pub(crate) fn memory_bytes(&self) -> usize {
+        self.holes.iter().map(Factor::memory_bytes).sum()
+    }
+}
+
+/// Solves every hole for `C` channels of `planes`; the values come back hole after hole in
+/// elimination order, `C` per unknown.
+pub(crate) fn solve_group<const C: usize>(f: &Factored, planes: &[&mut [f32]]) -> Result<GroupResult, FillError> {
+    let mut values = vec![0f64; f.unknowns() * C];
+    let mut slices = Vec::with_capacity(f.holes.len());
+    let mut rest = &mut values[..];
+    for hole in &f.holes {
+        let (s, r) = rest.split_at_mut(hole.unknowns() * C);
+        slices.push(s);
+        rest = r;
+    }
+    let sums: Vec<Result<Sums<C>, FillError>> = slices
+        .into_par_iter()
+        .zip(&f.holes)
+        .map(|(x, hole)| solve_hole::<C>(hole, f.width, f.height, planes, x))
+        .collect();
+    super::solved_exactly(values, sums)
+}
+
+/// Solves one hole into `x` and returns the squared norms of its residual and right-hand side.
+fn solve_hole<const C: usize>(
+    hole: &Factor,
+    width: usize,
+    height: usize,
+    planes: &[&mut [f32]],
+    x: &mut [f64],
+) -> Result<Sums<C>, FillError> {
+    let m = hole.unknowns();
+    // The right-hand side: the known in-image neighbours of each unknown, summed.
+    let mut b = vec![0f64; m * C];
+    let mut b_sq = [0f64; C];
+    for k in 0..m {
+        let p = hole.pixel[k] as usize;
+        let (px, py) = (p % width, p / width);
+        let sides = [
+            (px > 0, p.wrapping_sub(1)),
+            (px + 1 < width, p + 1),
+            (py > 0, p.wrapping_sub(width)),
+            (py + 1 < height, p + width),
+        ];
+        let mut sum = [0f64; C];
+        for ((inside, q), &j) in sides.into_iter().zip(&hole.nbr[k]) {
+            if !inside || j != NONE {
+                continue;
+            }
+            for (c, sc) in sum.iter_mut().enumerate() {
+                let v = planes[c][q];
+                if !v.is_finite() {
+                    return Err(FillError::NonFiniteRim { x: q % width, y: q / width });
+                }
+                *sc += f64::from(v);
+            }
+        }
+        b[k * C..(k + 1) * C].copy_from_slice(&sum);
+        for c in 0..C {
+            b_sq[c] += sum[c] * sum[c];
+        }
+    }
+    // L·y = b (by columns), then Lᵀ·x = y (by rows of Lᵀ, which are L's columns).
+    x.copy_from_slice(&b);
+    for k in 0..m {
+        let d = hole.inv_diag[k];
+        let mut yk = [0f64; C];
+        for c in 0..C {
+            yk[c] = x[k * C + c] * d;
+            x[k * C + c] = yk[c];
+        }
+        let (a, e) = (hole.col[k] as usize, hole.col[k + 1] as usize);
+        for (&i, &l) in hole.row[a..e].iter().zip(&hole.val[a..e]) {
+            for c in 0..C {
+                x[i as usize * C + c] -= l * yk[c];
+            }
+        }
+    }
+    for k in (0..m).rev() {
+        let (a, e) = (hole.col[k] as usize, hole.col[k + 1] as usize);
+        let mut s = [0f64; C];
+        s.copy_from_slice(&x[k * C..(k + 1) * C]);
+        for (&i, &l) in hole.row[a..e].iter().zip(&hole.val[a..e]) {
+            for c in 0..C {
+                s[c] -= l * x[i as usize * C + c];
+            }
+        }
+        for c in 0..C {
+            x[k * C + c] = s[c] * hole.inv_diag[k];
+        }
+    }
+    // The residual b − A·x for the report.
+    let mut r_sq = [0f64; C];
+    for k in 0..m {
+        let p = hole.pixel[k] as usize;
+        let (px, py) = (p % width, p / width);
+        let degree =
+            f64::from(u8::from(px > 0) + u8::from(px + 1 < width) + u8::from(py > 0) + u8::from(py + 1 < height));
+        let mut r = [0f64; C];
+        for c in 0..C {
+            r[c] = b[k * C + c] - degree * x[k * C + c];
+        }
+        for &j in &hole.nbr[k] {
+            if j != NONE {
+                for c in 0..C {
+                    r[c] += x[j as usize * C + c];
+                }
+            }
+        }
+        for c in 0..C {
+            r_sq[c] += r[c] * r[c];
+        }
+    }
+    Ok((r_sq, b_sq))
+}
+
+/// Writes a group's values (from [`solve_group`], `count` channels) into `planes[first..]`.
+pub(crate) fn write_back(f: &Factored, planes: &mut [&mut [f32]], first: usize, count: usize, values: &[f64]) {
+    for (c, plane) in planes[first..first + count].iter_mut().enumerate() {
+        let mut i = 0;
+        for hole in &f.holes {
+            for &p in &hole.pixel {
+                #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
+                {
+                    plane[p as usize] = values[i * count + c] as f32;
+                }
+                i += 1;
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::fill::dense::Cholesky;
+
+    /// The fill by a dense factorisation of the same equations, in pixel order, assembled without
+    /// `factor`'s neighbour search.
+    fn dense_fill(width: usize, height: usize, pixels: &[u32], plane: &[f32]) -> Vec<f64> {
+        let n = pixels.len();
+        let index = |p: usize| pixels.iter().position(|&q| q as usize == p);
+        let mut a = vec![0f64; n * n];
+        let mut b = vec![0f64; n];
+        for (i, &p) in pixels.iter().enumerate() {
+            let p = p as usize;
+            let (x, y) = (p % width, p / width);
+            let sides = [
+                (x > 0, p.wrapping_sub(1)),
+                (x + 1 < width, p + 1),
+                (y > 0, p.wrapping_sub(width)),
+                (y + 1 < height, p + width),
+            ];
+            for (inside, q) in sides {
+                if !inside {
+                    continue;
+                }
+                a[i * n + i] += 1.0;
+                match index(q) {
+                    Some(j) => a[i * n + j] = -1.0,
+                    None => b[i] += f64::from(plane[q]),
+                }
+            }
+        }
+        Cholesky::factor(n, a).expect("positive definite").solve_in_place(&mut b);
+        b
+    }
+
+    #[test]
+    fn a_crossing_network_at_the_image_edge_matches_a_dense_factorisation() {
+        // Two crossing diagonal strokes 2 px wide, a dead row and a dead column that run into the
+        // image edges and cross them: one hole, thin everywhere, wide in every row.
+        let (w, h) = (40, 31);
+        let inside = |x: usize, y: usize| {
+            let (xi, yi) = (x as isize, y as isize);
+            (xi - yi).abs() <= 1 && x < 30 || (xi + yi - 38).abs() <= 0 || y == 20 || x == 7
+        };
+        let mut pixels: Vec<u32> = (0..w * h).filter(|&p| inside(p % w, p / w)).map(|p| p as u32).collect();
+        let plane: Vec<f32> = (0..w * h).map(|p| ((p * 37) % 101) as f32 + 0.25 * (p % w) as f32).collect();
+        let expected = dense_fill(w, h, &pixels, &plane);
+        let f = factor(w, h, &mut pixels).expect("a thin hole is factored");
+        let holes = Factored::new(w, h, vec![f]);
+        for channels in [1usize, 2] {
+            let mut planes: Vec<Vec<f32>> =
+                (0..channels).map(|c| plane.iter().map(|v| v + 10.0 * c as f32).collect()).collect();
+            let refs: Vec<&mut [f32]> = planes.iter_mut().map(|p| &mut p[..]).collect();
+            let result = match channels {
+                1 => solve_group::<1>(&holes, &refs),
+                _ => solve_group::<2>(&holes, &refs),
+            }
+            .expect("solves");
+            let mut refs = refs;
+            write_back(&holes, &mut refs, 0, channels, &result.values);
+            for (c, out) in planes.iter().enumerate() {
+                for (j, &p) in pixels.iter().enumerate() {
+                    // A constant added to every known value is added to the fill (the rows of A
+                    // without a known neighbour sum to zero): the second channel is the first + 10.
+                    let want = expected[j] + 10.0 * c as f64;
+                    let got = f64::from(out[p as usize]);
+                    assert!((got - want).abs() <= 1e-3, "channel {c} pixel {p}: {got} vs {want}");
+                }
+                for p in 0..w * h {
+                    if !inside(p % w, p / w) {
+                        assert_eq!(out[p].to_bits(), (plane[p] + 10.0 * c as f32).to_bits());
+                    }
+                }
+                assert!(result.reports[c].relative_residual < 1e-12, "{:?}", result.reports[c]);
+            }
+        }
+    }
+
+    #[test]
+    fn a_wide_hole_is_left_to_multigrid() {
+        // A 60×60 square: minimum degree's fronts grow with the side, past the work bound.
+        let (w, h) = (80, 80);
+        let mut pixels: Vec<u32> = (0..w * h)
+            .filter(|&p| (10..70).contains(&(p % w)) && (10..70).contains(&(p / w)))
+            .map(|p| p as u32)
+            .collect();
+        assert!(factor(w, h, &mut pixels).is_none());
+    }
+
+    #[test]
+    fn the_degree_buckets_give_the_unknowns_by_least_degree_then_arrival() {
+        let mut b = Buckets::new(6);
+        for (v, d) in [(0, 3), (1, 1), (2, 3), (3, 0), (4, 1), (5, 2)] {
+            b.insert(v, d);
+        }
+        b.remove(4);
+        b.insert(4, 3);
+        let order: Vec<usize> = std::iter::from_fn(|| b.pop_min()).collect();
+        assert_eq!(order, [3, 1, 5, 0, 2, 4]);
+    }
+}

@@ -22,6 +22,12 @@ use super::{FillError, GroupResult, Sums};
 const MAX_WORK_PER_UNKNOWN: usize = 150;
 /// Largest neighbour set an elimination may create before the hole is left to multigrid.
 const MAX_FRONT: usize = 48;
+/// An unknown whose horizontal and vertical runs through the hole are both longer than this is
+/// thick: elimination fronts there grow about as wide, and the ordering's cost with them.
+const THICK: u32 = 8;
+/// Largest share of thick unknowns in a hole that is tried (crossings of thin strokes are thick
+/// but few; a ring or a stroke 12 pixels wide is thick everywhere and goes to multigrid at once).
+const MAX_THICK_SHARE: f64 = 1.0 / 64.0;
 /// Largest hole tried.
 pub(crate) const MAX_UNKNOWNS: usize = 1 << 21;
 /// No neighbour.
@@ -59,7 +65,6 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &mut [u32]) -> Option<
     let m = pixels.len();
     // The hole's graph: 4-neighbours that are unknowns. The pixels increase, so the searches for
     // the neighbours above and below move forward only.
-    let mut adj: Vec<Vec<u32>> = Vec::with_capacity(m);
     let mut nbr0 = Vec::with_capacity(m);
     let (mut up_at, mut down_at) = (0usize, 0usize);
     for i in 0..m {
@@ -89,9 +94,13 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &mut [u32]) -> Option<
                 n[3] = down_at as u32;
             }
         }
-        adj.push(n.iter().copied().filter(|&j| j != NONE).collect());
         nbr0.push(n);
     }
+    let share = thick_share(&nbr0);
+    if share > MAX_THICK_SHARE {
+        return None;
+    }
+    let mut adj: Vec<Vec<u32>> = nbr0.iter().map(|n| n.iter().copied().filter(|&j| j != NONE).collect()).collect();
 
     // Minimum degree on the explicit elimination graph, with a bucket of unknowns per degree
     // (doubly linked lists; the latest arrival is taken first within a bucket).
@@ -197,6 +206,33 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &mut [u32]) -> Option<
         }
     }
     Some(Factor { pixel, nbr, col, row, val, inv_diag })
+}
+
+/// The share of a hole's unknowns whose horizontal and vertical runs are both longer than
+/// [`THICK`], from the neighbours (left, right, up, down; [`NONE`] where absent) of unknowns in
+/// row order.
+#[allow(clippy::cast_precision_loss)] // counts are far below 2^52
+fn thick_share(nbr: &[[u32; 4]]) -> f64 {
+    let m = nbr.len();
+    // Run lengths along each direction: the count so far from the run's start, then each
+    // unknown takes its run's total from the run's end. Left and up neighbours come earlier in
+    // row order, right and down ones later.
+    let mut along = [vec![0u32; m], vec![0u32; m]];
+    for (dir, (back, fwd)) in [(0usize, 1usize), (2, 3)].into_iter().enumerate() {
+        let len = &mut along[dir];
+        for i in 0..m {
+            let b = nbr[i][back];
+            len[i] = if b == NONE { 1 } else { len[b as usize] + 1 };
+        }
+        for i in (0..m).rev() {
+            let f = nbr[i][fwd];
+            if f != NONE {
+                len[i] = len[f as usize];
+            }
+        }
+    }
+    let thick = (0..m).filter(|&i| along[0][i].min(along[1][i]) > THICK).count();
+    thick as f64 / m.max(1) as f64
 }
 
 /// Unknowns by degree, for the minimum-degree ordering: a doubly linked list per degree, taken
@@ -503,6 +539,28 @@ mod tests {
             .map(|p| p as u32)
             .collect();
         assert!(factor(w, h, &mut pixels).is_none());
+    }
+
+    #[test]
+    fn thickness_counts_unknowns_whose_runs_are_long_both_ways() {
+        // Neighbours (left, right, up, down) in row order of a w×h block of unknowns.
+        let block = |w: usize, h: usize| -> Vec<[u32; 4]> {
+            (0..w * h)
+                .map(|i| {
+                    let (x, y) = (i % w, i / w);
+                    let at = |ok: bool, j: usize| if ok { j as u32 } else { NONE };
+                    [
+                        at(x > 0, i.wrapping_sub(1)),
+                        at(x + 1 < w, i + 1),
+                        at(y > 0, i.wrapping_sub(w)),
+                        at(y + 1 < h, i + w),
+                    ]
+                })
+                .collect()
+        };
+        assert_eq!(thick_share(&block(40, 3)), 0.0, "a 3-pixel strip is thin");
+        assert_eq!(thick_share(&block(9, 9)), 1.0, "9 > THICK both ways");
+        assert_eq!(thick_share(&block(8, 30)), 0.0, "8 wide is not more than THICK");
     }
 
     #[test]

@@ -216,7 +216,7 @@ pub(crate) fn plan(
                 continue;
             }
             for x in a..b {
-                keys[at[k] as usize] = y as u32 * width as u32 + x;
+                keys[at[k] as usize] = u32::try_from(y * width).expect("pixel index fits in u32") + x;
                 at[k] += 1;
             }
         }

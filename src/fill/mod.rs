@@ -193,12 +193,15 @@ pub enum FillError {
     Cancelled,
     #[error("this solver was built for the {} fill, not the {} fill", built.name(), asked.name())]
     WrongMethod { built: FillMethod, asked: FillMethod },
+    #[error("the image is {width}×{height}, more pixels than the solver can index (2³² − 1); fill it in tiles")]
+    TooLarge { width: usize, height: usize },
 }
 
 /// How a [`Solver`] stores its multigrid levels.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 pub enum Structure {
-    /// Grids for the holes that fill much of their bounding box, index lists for the rest.
+    /// Small and thin holes solved directly (by factorisation), grids for the holes that fill
+    /// much of their bounding box, index lists for the rest.
     #[default]
     Auto,
     /// Index lists for every hole: memory and work follow the unknowns on any mask.
@@ -516,7 +519,7 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
                 run += 1;
                 if at[k] != usize::MAX {
                     for x in a..b {
-                        pixels[at[k]] = (y * width) as u32 + x;
+                        pixels[at[k]] = u32::try_from(y * width).expect("pixel index fits in u32") + x;
                         at[k] += 1;
                     }
                 }
@@ -610,7 +613,8 @@ impl Solver {
     /// Builds the hierarchy of `mask`.
     ///
     /// # Errors
-    /// [`FillError::NoKnownPixels`] when every pixel is masked.
+    /// [`FillError::NoKnownPixels`] when every pixel is masked, [`FillError::TooLarge`] for an
+    /// image of 2³² pixels or more.
     pub fn new(mask: &Mask) -> Result<Self, FillError> {
         Self::with_structure(mask, Structure::Auto)
     }
@@ -619,7 +623,8 @@ impl Solver {
     /// whichever is used).
     ///
     /// # Errors
-    /// [`FillError::NoKnownPixels`] when every pixel is masked.
+    /// [`FillError::NoKnownPixels`] when every pixel is masked, [`FillError::TooLarge`] for an
+    /// image of 2³² pixels or more.
     pub fn with_structure(mask: &Mask, structure: Structure) -> Result<Self, FillError> {
         Self::build(mask, FillMethod::Harmonic, structure)
     }
@@ -628,7 +633,8 @@ impl Solver {
     /// (guided fill, which places its sources per image) nothing but the mask.
     ///
     /// # Errors
-    /// [`FillError::NoKnownPixels`] when every pixel is masked.
+    /// [`FillError::NoKnownPixels`] when every pixel is masked, [`FillError::TooLarge`] for an
+    /// image of 2³² pixels or more.
     pub fn for_method(mask: &Mask, method: FillMethod) -> Result<Self, FillError> {
         Self::build(mask, method, Structure::Auto)
     }
@@ -637,7 +643,8 @@ impl Solver {
     /// hierarchies (results agree to the tolerance whichever is used).
     ///
     /// # Errors
-    /// [`FillError::NoKnownPixels`] when every pixel is masked.
+    /// [`FillError::NoKnownPixels`] when every pixel is masked, [`FillError::TooLarge`] for an
+    /// image of 2³² pixels or more.
     pub fn for_method_with(mask: &Mask, method: FillMethod, structure: Structure) -> Result<Self, FillError> {
         Self::build(mask, method, structure)
     }
@@ -645,6 +652,9 @@ impl Solver {
     fn build(mask: &Mask, method: FillMethod, structure: Structure) -> Result<Self, FillError> {
         let t0 = Instant::now();
         let (width, height) = (mask.width(), mask.height());
+        if u32::try_from(width * height).is_err() {
+            return Err(FillError::TooLarge { width, height });
+        }
         let unknowns = mask.bits().par_iter().filter(|&&b| b).count();
         if unknowns > 0 && unknowns == width * height {
             return Err(FillError::NoKnownPixels);

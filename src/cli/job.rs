@@ -75,7 +75,7 @@ impl Outcome {
         let cycles = self.fill.channels.iter().map(|c| c.cycles).max().unwrap_or(0);
         // Every hole solved by factorisation takes no cycle.
         let how = match cycles {
-            0 => "solved directly".to_owned(),
+            0 => "(solved directly)".to_owned(),
             1 => "after 1 cycle".to_owned(),
             n => format!("after {n} cycles"),
         };

@@ -20,8 +20,10 @@ use super::{FillError, GroupResult, Sums};
 /// Largest multiply-add count of a factorisation, per unknown, before the hole is left to
 /// multigrid (a multigrid solve costs about 100–200 per unknown).
 const MAX_WORK_PER_UNKNOWN: usize = 150;
-/// Largest neighbour set an elimination may create before the hole is left to multigrid.
-const MAX_FRONT: usize = 48;
+/// Largest neighbour set an elimination may create before the hole is left to multigrid. The
+/// work bound decides in practice (the crossings of scratches at 4096 make a few fronts of about
+/// 50, harmless among 300 k unknowns); this only caps a single elimination's cost.
+const MAX_FRONT: usize = 256;
 /// An unknown whose horizontal and vertical runs through the hole are both longer than this is
 /// thick: elimination fronts there grow about as wide, and the ordering's cost with them.
 const THICK: u32 = 8;
@@ -100,13 +102,13 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &mut [u32]) -> Option<
     if share > MAX_THICK_SHARE {
         return None;
     }
-    let mut adj: Vec<Vec<u32>> = nbr0.iter().map(|n| n.iter().copied().filter(|&j| j != NONE).collect()).collect();
+    // The elimination graph, each unknown's neighbours in one arena (see `Graph`).
+    let mut adj = Graph::new(&nbr0);
 
-    // Minimum degree on the explicit elimination graph, with a bucket of unknowns per degree
-    // (doubly linked lists; the latest arrival is taken first within a bucket).
+    // Minimum degree on the explicit elimination graph, with a bucket of unknowns per degree.
     let mut buckets = Buckets::new(m);
-    for (v, a) in adj.iter().enumerate() {
-        buckets.insert(v, a.len());
+    for v in 0..m {
+        buckets.insert(v, adj.neighbours(v).len());
     }
     let mut order = Vec::with_capacity(m);
     // The neighbour set of each elimination (original indices): the factor's column pattern.
@@ -114,28 +116,37 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &mut [u32]) -> Option<
     let mut patterns: Vec<u32> = Vec::new();
     pattern_at.push(0usize);
     let mut work = 0usize;
+    let mut front = [0u32; MAX_FRONT];
+    // `mark[t] == stamp` while t is known to be in the list being joined.
+    let mut mark = vec![u32::MAX; m];
     while let Some(v) = buckets.pop_min() {
         order.push(v as u32);
-        let front = std::mem::take(&mut adj[v]);
-        if front.len() > MAX_FRONT {
+        let f = adj.neighbours(v).len();
+        if f > MAX_FRONT {
             return None;
         }
-        work += front.len() * (front.len() + 3) / 2;
+        front[..f].copy_from_slice(adj.neighbours(v));
+        let front = &front[..f];
+        work += f * (f + 3) / 2;
         if work > MAX_WORK_PER_UNKNOWN * m {
             return None;
         }
-        for &u in &front {
-            let a = &mut adj[u as usize];
-            a.retain(|&t| t as usize != v);
-            for &t in &front {
-                if t != u && !a.contains(&t) {
-                    a.push(t);
+        for &u in front {
+            let u = u as usize;
+            adj.remove(u, v as u32);
+            mark[u] = u as u32;
+            for &t in adj.neighbours(u) {
+                mark[t as usize] = u as u32;
+            }
+            for &t in front {
+                if mark[t as usize] != u as u32 {
+                    adj.push(u, t);
                 }
             }
-            buckets.remove(u as usize);
-            buckets.insert(u as usize, a.len());
+            buckets.remove(u);
+            buckets.insert(u, adj.neighbours(u).len());
         }
-        patterns.extend_from_slice(&front);
+        patterns.extend_from_slice(front);
         pattern_at.push(patterns.len());
     }
     drop(adj);
@@ -233,6 +244,65 @@ fn thick_share(nbr: &[[u32; 4]]) -> f64 {
     }
     let thick = (0..m).filter(|&i| along[0][i].min(along[1][i]) > THICK).count();
     thick as f64 / m.max(1) as f64
+}
+
+/// The neighbour lists of an elimination graph in one arena: list `v` is
+/// `arena[at[v]..at[v] + len[v]]` with room for `cap[v]`; a full list moves to the arena's end
+/// with twice the room. One allocation instead of one per unknown.
+struct Graph {
+    at: Vec<u32>,
+    len: Vec<u32>,
+    cap: Vec<u32>,
+    arena: Vec<u32>,
+}
+
+impl Graph {
+    /// The graph of the 4-neighbours `nbr` ([`NONE`] where absent), room for 8 each.
+    fn new(nbr: &[[u32; 4]]) -> Self {
+        const ROOM: u32 = 8;
+        let m = nbr.len();
+        let mut g = Self {
+            at: (0..m as u32).map(|v| v * ROOM).collect(),
+            len: vec![0; m],
+            cap: vec![ROOM; m],
+            arena: vec![0; m * ROOM as usize],
+        };
+        for (v, n) in nbr.iter().enumerate() {
+            for &j in n.iter().filter(|&&j| j != NONE) {
+                g.push(v, j);
+            }
+        }
+        g
+    }
+
+    fn neighbours(&self, v: usize) -> &[u32] {
+        let at = self.at[v] as usize;
+        &self.arena[at..at + self.len[v] as usize]
+    }
+
+    fn push(&mut self, v: usize, t: u32) {
+        if self.len[v] == self.cap[v] {
+            let (at, len) = (self.at[v] as usize, self.len[v] as usize);
+            let to = self.arena.len();
+            self.arena.extend_from_within(at..at + len);
+            self.arena.resize(to + 2 * len, 0);
+            self.at[v] = u32::try_from(to).expect("graph fits in u32 indices");
+            self.cap[v] *= 2;
+        }
+        let end = (self.at[v] + self.len[v]) as usize;
+        self.arena[end] = t;
+        self.len[v] += 1;
+    }
+
+    /// Removes `t` from `v`'s list (order is not kept).
+    fn remove(&mut self, v: usize, t: u32) {
+        let at = self.at[v] as usize;
+        let len = self.len[v] as usize;
+        if let Some(k) = self.arena[at..at + len].iter().position(|&x| x == t) {
+            self.arena[at + k] = self.arena[at + len - 1];
+            self.len[v] -= 1;
+        }
+    }
 }
 
 /// Unknowns by degree, for the minimum-degree ordering: a doubly linked list per degree, taken

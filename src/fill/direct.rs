@@ -188,7 +188,7 @@ pub(crate) fn plan(
     runs: &[Vec<(u32, u32)>],
     hole_of: &[u32],
     sizes: &[usize],
-    boxes: &[(usize, usize, usize, usize)],
+    boxes: &[(u32, u32, u32, u32)],
 ) -> (Option<Holes>, Vec<bool>) {
     let holes = sizes.len();
     // Candidates' unknowns, bucketed by hole in row order.
@@ -199,7 +199,7 @@ pub(crate) fn plan(
         if size <= MAX_UNKNOWNS {
             at[k] = *cand_start.last().expect("starts with 0");
             cand_start.push(at[k] + u32::try_from(size).expect("hole size fits in u32"));
-            candidates.push(k);
+            candidates.push(u32::try_from(k).expect("holes fit in u32"));
         }
     }
     let total = *cand_start.last().expect("starts with 0") as usize;
@@ -222,57 +222,81 @@ pub(crate) fn plan(
         }
     }
     drop(at);
-    // Each candidate in its numbering, then its envelope's cost.
-    let mut slices = Vec::with_capacity(candidates.len());
+    // Each candidate in its numbering, then its envelope's cost; candidates go in groups of about
+    // TASK_UNKNOWNS unknowns, one task each.
+    let mut groups = vec![0usize];
+    for (i, w) in cand_start.windows(2).enumerate() {
+        if (w[1] - cand_start[groups[groups.len() - 1]]) as usize >= TASK_UNKNOWNS {
+            groups.push(i + 1);
+        }
+    }
+    if groups[groups.len() - 1] != candidates.len() {
+        groups.push(candidates.len());
+    }
+    let mut slices = Vec::with_capacity(groups.len());
     let mut rest = &mut keys[..];
-    for w in cand_start.windows(2) {
-        let (s, r) = rest.split_at_mut((w[1] - w[0]) as usize);
+    for g in groups.windows(2) {
+        let (s, r) = rest.split_at_mut((cand_start[g[1]] - cand_start[g[0]]) as usize);
         slices.push(s);
         rest = r;
     }
-    let taken_candidates: Vec<bool> = slices
-        .par_iter_mut()
-        .zip(&candidates)
-        .map_init(Vec::new, |cpl, (s, &k)| {
-            let (x0, y0, x1, y1) = boxes[k];
-            let by_columns = x1 - x0 > y1 - y0;
-            let lines = Lines::new(width, height, by_columns);
-            if by_columns {
-                for key in s.iter_mut() {
-                    let p = *key as usize;
-                    *key = lines.key(p % width, p / width);
-                }
-                s.sort_unstable();
-            }
-            couplings(s, lines, cpl);
-            envelope_cost(cpl) <= MAX_MEAN_ENVELOPE_SQ * s.len()
+    let accepted: Vec<Vec<bool>> = slices
+        .into_par_iter()
+        .zip(groups.par_windows(2))
+        .map(|(keys, g)| {
+            let mut cpl = Vec::new();
+            let base = cand_start[g[0]] as usize;
+            (g[0]..g[1])
+                .map(|i| {
+                    let s = &mut keys[cand_start[i] as usize - base..cand_start[i + 1] as usize - base];
+                    let (x0, y0, x1, y1) = boxes[candidates[i] as usize];
+                    let by_columns = x1 - x0 > y1 - y0;
+                    let lines = Lines::new(width, height, by_columns);
+                    if by_columns {
+                        for key in s.iter_mut() {
+                            let p = *key as usize;
+                            *key = lines.key(p % width, p / width);
+                        }
+                        s.sort_unstable();
+                    }
+                    couplings(s, lines, &mut cpl);
+                    envelope_cost(&cpl) <= MAX_MEAN_ENVELOPE_SQ * s.len()
+                })
+                .collect()
         })
         .collect();
+    // The taken holes' keys moved together, in place.
     let mut taken = vec![false; holes];
     let mut out = Holes { width, height, keys: Vec::new(), start: vec![0], by_columns: Vec::new(), tasks: vec![0] };
     let mut in_task = 0usize;
-    for ((&k, s), ok) in candidates.iter().zip(&slices).zip(taken_candidates) {
+    let mut end = 0usize;
+    for (i, ok) in accepted.into_iter().flatten().enumerate() {
         if !ok {
             continue;
         }
+        let k = candidates[i] as usize;
         taken[k] = true;
         let (x0, y0, x1, y1) = boxes[k];
-        out.keys.extend_from_slice(s);
-        out.start.push(u32::try_from(out.keys.len()).expect("unknowns fit in u32"));
+        let (a, b) = (cand_start[i] as usize, cand_start[i + 1] as usize);
+        keys.copy_within(a..b, end);
+        end += b - a;
+        out.start.push(u32::try_from(end).expect("unknowns fit in u32"));
         out.by_columns.push(x1 - x0 > y1 - y0);
-        in_task += s.len();
+        in_task += b - a;
         if in_task >= TASK_UNKNOWNS {
             out.tasks.push(u32::try_from(out.by_columns.len()).expect("holes fit in u32"));
             in_task = 0;
         }
     }
+    keys.truncate(end);
+    keys.shrink_to_fit();
+    out.keys = keys;
     if out.by_columns.is_empty() {
         return (None, taken);
     }
     if in_task > 0 {
         out.tasks.push(u32::try_from(out.by_columns.len()).expect("holes fit in u32"));
     }
-    out.keys.shrink_to_fit();
     (Some(out), taken)
 }
 
@@ -523,15 +547,15 @@ mod tests {
         let runs = row_runs(mask);
         let (hole_of, count) = run_holes(&runs);
         let mut sizes = vec![0; count];
-        let mut boxes = vec![(usize::MAX, usize::MAX, 0, 0); count];
+        let mut boxes = vec![(u32::MAX, u32::MAX, 0u32, 0u32); count];
         let mut run = 0;
         for (y, row) in runs.iter().enumerate() {
             for &(a, b) in row {
                 let k = hole_of[run] as usize;
                 run += 1;
                 sizes[k] += (b - a) as usize;
-                let bx = &mut boxes[k];
-                *bx = (bx.0.min(a as usize), bx.1.min(y), bx.2.max(b as usize - 1), bx.3.max(y));
+                let (bx, y) = (&mut boxes[k], y as u32);
+                *bx = (bx.0.min(a), bx.1.min(y), bx.2.max(b - 1), bx.3.max(y));
             }
         }
         plan((mask.width(), mask.height()), &runs, &hole_of, &sizes, &boxes)

@@ -419,15 +419,16 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     }
     let (mut hole_of, holes) = crate::mask::run_holes(&runs);
     let mut sizes = vec![0usize; holes];
-    let mut boxes = vec![(usize::MAX, usize::MAX, 0, 0); holes];
+    // (x_min, y_min, x_max, y_max) in u32: a hole per few pixels on dropout-like masks.
+    let mut boxes = vec![(u32::MAX, u32::MAX, 0u32, 0u32); holes];
     let mut run = 0;
     for (y, row) in runs.iter().enumerate() {
         for &(a, b) in row {
             let hole = hole_of[run] as usize;
             run += 1;
             sizes[hole] += (b - a) as usize;
-            let bx = &mut boxes[hole];
-            *bx = (bx.0.min(a as usize), bx.1.min(y), bx.2.max(b as usize - 1), bx.3.max(y));
+            let (bx, y) = (&mut boxes[hole], u32::try_from(y).expect("row fits in u32"));
+            *bx = (bx.0.min(a), bx.1.min(y), bx.2.max(b - 1), bx.3.max(y));
         }
     }
     // Small and thin holes first: they need no hierarchy. The rest of the mask goes on.
@@ -480,7 +481,10 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
     };
     // Dense holes' grids are built side by side (small holes keep one core busy only briefly).
     let dense: Vec<(usize, (usize, usize, usize, usize))> = (0..holes)
-        .map(|hole| (hole, margin_box(boxes[hole], width, height)))
+        .map(|hole| {
+            let (x0, y0, x1, y1) = boxes[hole];
+            (hole, margin_box((x0 as usize, y0 as usize, x1 as usize, y1 as usize), width, height))
+        })
         .filter(|&(hole, bx)| sizes[hole] > 0 && dense_enough(sizes[hole], bx))
         .collect();
     let grids: Vec<Option<grid::Grid>> = dense

@@ -188,7 +188,7 @@ pub(crate) fn plan(
     runs: &[Vec<(u32, u32)>],
     hole_of: &[u32],
     sizes: &[usize],
-    boxes: &[(u32, u32, u32, u32)],
+    boxes: &[super::HoleBox],
 ) -> (Option<Holes>, Vec<bool>) {
     let holes = sizes.len();
     // Candidates' unknowns, bucketed by hole in row order.
@@ -486,20 +486,7 @@ fn solve_hole<const C: usize>(
     // of its hole neighbours' x.
     let mut r_sq = [0f64; C];
     for (i, c) in cpl.iter().enumerate() {
-        let mut r = [0f64; C];
-        for cc in 0..C {
-            r[cc] = s.b[i * C + cc] - f64::from(c.degree) * x[i * C + cc];
-        }
-        for j in [c.prev, c.next, c.up, c.down] {
-            if j != NONE {
-                for cc in 0..C {
-                    r[cc] += x[j as usize * C + cc];
-                }
-            }
-        }
-        for cc in 0..C {
-            r_sq[cc] += r[cc] * r[cc];
-        }
+        super::add_residual_sq(&mut r_sq, &s.b, x, i, f64::from(c.degree), [c.prev, c.next, c.up, c.down]);
     }
     Ok((r_sq, b_sq))
 }
@@ -546,18 +533,7 @@ mod tests {
     fn holes_of(mask: &Mask) -> (Option<Holes>, Vec<bool>) {
         let runs = row_runs(mask);
         let (hole_of, count) = run_holes(&runs);
-        let mut sizes = vec![0; count];
-        let mut boxes = vec![(u32::MAX, u32::MAX, 0u32, 0u32); count];
-        let mut run = 0;
-        for (y, row) in runs.iter().enumerate() {
-            for &(a, b) in row {
-                let k = hole_of[run] as usize;
-                run += 1;
-                sizes[k] += (b - a) as usize;
-                let (bx, y) = (&mut boxes[k], y as u32);
-                *bx = (bx.0.min(a), bx.1.min(y), bx.2.max(b - 1), bx.3.max(y));
-            }
-        }
+        let (sizes, boxes) = crate::fill::hole_extents(&runs, &hole_of, count);
         plan((mask.width(), mask.height()), &runs, &hole_of, &sizes, &boxes)
     }
 

@@ -255,6 +255,55 @@ pub(crate) struct GroupResult {
 /// right-hand side per channel.
 pub(crate) type Sums<const C: usize> = ([f64; C], [f64; C]);
 
+/// Adds to `r_sq` the squares of unknown `i`'s residual `b_i − degree·x_i + Σ x_j` over its
+/// unknown neighbours `j` (`u32::MAX` for none); `b` and `x` hold `C` values per unknown.
+pub(crate) fn add_residual_sq<const C: usize>(
+    r_sq: &mut [f64; C],
+    b: &[f64],
+    x: &[f64],
+    i: usize,
+    degree: f64,
+    neighbours: [u32; 4],
+) {
+    let mut r = [0f64; C];
+    for c in 0..C {
+        r[c] = b[i * C + c] - degree * x[i * C + c];
+    }
+    for j in neighbours {
+        if j != u32::MAX {
+            for c in 0..C {
+                r[c] += x[j as usize * C + c];
+            }
+        }
+    }
+    for c in 0..C {
+        r_sq[c] += r[c] * r[c];
+    }
+}
+
+/// A hole's box `(x_min, y_min, x_max, y_max)`, inclusive; `u32` because dropout-like masks have a
+/// hole per few pixels.
+pub(crate) type HoleBox = (u32, u32, u32, u32);
+
+/// Each hole's unknowns and box, from the row runs and each run's
+/// hole (in row order).
+pub(crate) fn hole_extents(runs: &[Vec<(u32, u32)>], hole_of: &[u32], holes: usize) -> (Vec<usize>, Vec<HoleBox>) {
+    let mut sizes = vec![0usize; holes];
+    let mut boxes: Vec<HoleBox> = vec![(u32::MAX, u32::MAX, 0, 0); holes];
+    let mut run = 0;
+    for (y, row) in runs.iter().enumerate() {
+        let y = u32::try_from(y).expect("row fits in u32");
+        for &(a, b) in row {
+            let hole = hole_of[run] as usize;
+            run += 1;
+            sizes[hole] += (b - a) as usize;
+            let bx = &mut boxes[hole];
+            *bx = (bx.0.min(a), bx.1.min(y), bx.2.max(b - 1), bx.3.max(y));
+        }
+    }
+    (sizes, boxes)
+}
+
 /// The result of a group solved exactly (no cycles; the history is the solution's residual), from
 /// its values and the sums of its tasks in order (the first error wins).
 pub(crate) fn solved_exactly<const C: usize>(
@@ -418,19 +467,7 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         Structure::Auto => {}
     }
     let (mut hole_of, holes) = crate::mask::run_holes(&runs);
-    let mut sizes = vec![0usize; holes];
-    // (x_min, y_min, x_max, y_max) in u32: a hole per few pixels on dropout-like masks.
-    let mut boxes = vec![(u32::MAX, u32::MAX, 0u32, 0u32); holes];
-    let mut run = 0;
-    for (y, row) in runs.iter().enumerate() {
-        for &(a, b) in row {
-            let hole = hole_of[run] as usize;
-            run += 1;
-            sizes[hole] += (b - a) as usize;
-            let (bx, y) = (&mut boxes[hole], u32::try_from(y).expect("row fits in u32"));
-            *bx = (bx.0.min(a), bx.1.min(y), bx.2.max(b - 1), bx.3.max(y));
-        }
-    }
+    let (mut sizes, boxes) = hole_extents(&runs, &hole_of, holes);
     // Small and thin holes first: they need no hierarchy. The rest of the mask goes on.
     let mut parts = Vec::new();
     let (direct, taken) = direct::plan((width, height), &runs, &hole_of, &sizes, &boxes);

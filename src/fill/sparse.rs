@@ -487,20 +487,7 @@ fn solve_hole<const C: usize>(
         let (px, py) = (p % width, p / width);
         let degree =
             f64::from(u8::from(px > 0) + u8::from(px + 1 < width) + u8::from(py > 0) + u8::from(py + 1 < height));
-        let mut r = [0f64; C];
-        for c in 0..C {
-            r[c] = b[k * C + c] - degree * x[k * C + c];
-        }
-        for &j in &hole.nbr[k] {
-            if j != NONE {
-                for c in 0..C {
-                    r[c] += x[j as usize * C + c];
-                }
-            }
-        }
-        for c in 0..C {
-            r_sq[c] += r[c] * r[c];
-        }
+        super::add_residual_sq(&mut r_sq, &b, x, k, degree, hole.nbr[k]);
     }
     Ok((r_sq, b_sq))
 }

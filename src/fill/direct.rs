@@ -191,37 +191,12 @@ pub(crate) fn plan(
     boxes: &[super::HoleBox],
 ) -> (Option<Holes>, Vec<bool>) {
     let holes = sizes.len();
-    // Candidates' unknowns, bucketed by hole in row order.
-    let mut at = vec![u32::MAX; holes];
-    let mut cand_start = vec![0u32];
-    let mut candidates = Vec::new();
-    for (k, &size) in sizes.iter().enumerate() {
-        if size <= MAX_UNKNOWNS {
-            at[k] = *cand_start.last().expect("starts with 0");
-            cand_start.push(at[k] + u32::try_from(size).expect("hole size fits in u32"));
-            candidates.push(u32::try_from(k).expect("holes fit in u32"));
-        }
-    }
-    let total = *cand_start.last().expect("starts with 0") as usize;
-    if total == 0 {
+    let candidates: Vec<u32> =
+        (0..holes).filter(|&k| sizes[k] <= MAX_UNKNOWNS).map(|k| u32::try_from(k).expect("holes fit in u32")).collect();
+    let (mut keys, cand_start) = super::hole_pixels(runs, hole_of, width, sizes, &candidates);
+    if keys.is_empty() {
         return (None, vec![false; holes]);
     }
-    let mut keys = vec![0u32; total];
-    let mut run = 0usize;
-    for (y, row) in runs.iter().enumerate() {
-        for &(a, b) in row {
-            let k = hole_of[run] as usize;
-            run += 1;
-            if at[k] == u32::MAX {
-                continue;
-            }
-            for x in a..b {
-                keys[at[k] as usize] = u32::try_from(y * width).expect("pixel index fits in u32") + x;
-                at[k] += 1;
-            }
-        }
-    }
-    drop(at);
     // Each candidate in its numbering, then its envelope's cost; candidates go in groups of about
     // TASK_UNKNOWNS unknowns, one task each.
     let mut groups = vec![0usize];
@@ -233,13 +208,8 @@ pub(crate) fn plan(
     if groups[groups.len() - 1] != candidates.len() {
         groups.push(candidates.len());
     }
-    let mut slices = Vec::with_capacity(groups.len());
-    let mut rest = &mut keys[..];
-    for g in groups.windows(2) {
-        let (s, r) = rest.split_at_mut((cand_start[g[1]] - cand_start[g[0]]) as usize);
-        slices.push(s);
-        rest = r;
-    }
+    let slices =
+        super::split_lengths(&mut keys, groups.windows(2).map(|g| (cand_start[g[1]] - cand_start[g[0]]) as usize));
     let accepted: Vec<Vec<bool>> = slices
         .into_par_iter()
         .zip(groups.par_windows(2))
@@ -334,14 +304,10 @@ pub(crate) fn solve_group<const C: usize>(holes: &Holes, planes: &[&mut [f32]]) 
     let n = holes.unknowns();
     // Written before read (each task stores its solutions), so the pages fault once.
     let mut values = vec![0f64; n * C];
-    let mut slices = Vec::with_capacity(holes.tasks.len());
-    let mut rest = &mut values[..];
-    for t in holes.tasks.windows(2) {
-        let len = (holes.start[t[1] as usize] - holes.start[t[0] as usize]) as usize * C;
-        let (s, r) = rest.split_at_mut(len);
-        slices.push(s);
-        rest = r;
-    }
+    let slices = super::split_lengths(
+        &mut values,
+        holes.tasks.windows(2).map(|t| (holes.start[t[1] as usize] - holes.start[t[0] as usize]) as usize * C),
+    );
     let sums: Vec<Result<Sums<C>, FillError>> = slices
         .into_par_iter()
         .zip(holes.tasks.par_windows(2))

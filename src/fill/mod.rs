@@ -281,6 +281,53 @@ pub(crate) fn add_residual_sq<const C: usize>(
     }
 }
 
+/// `v` cut into consecutive slices of the given lengths (their sum must not exceed `v.len()`).
+pub(crate) fn split_lengths<T>(mut v: &mut [T], lengths: impl IntoIterator<Item = usize>) -> Vec<&mut [T]> {
+    lengths
+        .into_iter()
+        .map(|len| {
+            let (head, tail) = std::mem::take(&mut v).split_at_mut(len);
+            v = tail;
+            head
+        })
+        .collect()
+}
+
+/// The unknowns of the holes `chosen` (increasing hole ids), as pixel indices `y·width + x`,
+/// hole after hole, each in row order; `start[i]..start[i + 1]` are hole `chosen[i]`'s.
+pub(crate) fn hole_pixels(
+    runs: &[Vec<(u32, u32)>],
+    hole_of: &[u32],
+    width: usize,
+    sizes: &[usize],
+    chosen: &[u32],
+) -> (Vec<u32>, Vec<u32>) {
+    let mut at = vec![u32::MAX; sizes.len()];
+    let mut start = Vec::with_capacity(chosen.len() + 1);
+    start.push(0u32);
+    for &k in chosen {
+        let end = start[start.len() - 1];
+        at[k as usize] = end;
+        start.push(end + u32::try_from(sizes[k as usize]).expect("unknowns fit in u32"));
+    }
+    let mut pixels = vec![0u32; start[start.len() - 1] as usize];
+    let mut run = 0;
+    for (y, row) in runs.iter().enumerate() {
+        let row_start = u32::try_from(y * width).expect("pixel index fits in u32");
+        for &(a, b) in row {
+            let k = hole_of[run] as usize;
+            run += 1;
+            if at[k] != u32::MAX {
+                for x in a..b {
+                    pixels[at[k] as usize] = row_start + x;
+                    at[k] += 1;
+                }
+            }
+        }
+    }
+    (pixels, start)
+}
+
 /// A hole's box `(x_min, y_min, x_max, y_max)`, inclusive; `u32` because dropout-like masks have a
 /// hole per few pixels.
 pub(crate) type HoleBox = (u32, u32, u32, u32);
@@ -544,39 +591,19 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         for &(hole, _) in &gridded {
             elsewhere[hole] = true;
         }
-        let tried: Vec<usize> =
-            (0..holes).filter(|&k| sizes[k] > 0 && !elsewhere[k] && sizes[k] <= sparse::MAX_UNKNOWNS).collect();
-        let mut at = vec![usize::MAX; holes];
-        let mut start = vec![0usize];
-        for &k in &tried {
-            at[k] = start[start.len() - 1];
-            start.push(at[k] + sizes[k]);
-        }
-        let mut pixels = vec![0u32; start[start.len() - 1]];
-        let mut run = 0;
-        for (y, row) in runs.iter().enumerate() {
-            for &(a, b) in row {
-                let k = hole_of[run] as usize;
-                run += 1;
-                if at[k] != usize::MAX {
-                    for x in a..b {
-                        pixels[at[k]] = u32::try_from(y * width).expect("pixel index fits in u32") + x;
-                        at[k] += 1;
-                    }
-                }
-            }
-        }
-        let mut slices = Vec::with_capacity(tried.len());
-        let mut tail = &mut pixels[..];
-        for w in start.windows(2) {
-            let (head, t) = tail.split_at_mut(w[1] - w[0]);
-            slices.push(head);
-            tail = t;
-        }
-        let factors: Vec<Option<sparse::Factor>> =
-            slices.into_par_iter().map(|px| sparse::factor(width, height, px)).collect();
+        let tried: Vec<u32> = (0..holes)
+            .filter(|&k| sizes[k] > 0 && !elsewhere[k] && sizes[k] <= sparse::MAX_UNKNOWNS)
+            .map(|k| u32::try_from(k).expect("holes fit in u32"))
+            .collect();
+        let (pixels, start) = hole_pixels(&runs, &hole_of, width, &sizes, &tried);
+        let factors: Vec<Option<sparse::Factor>> = start
+            .par_windows(2)
+            .map(|w| sparse::factor(width, height, &pixels[w[0] as usize..w[1] as usize]))
+            .collect();
+        drop(pixels);
         let mut factored = Vec::new();
         for (&k, f) in tried.iter().zip(factors) {
+            let k = k as usize;
             if let Some(f) = f {
                 elsewhere[k] = true;
                 left -= sizes[k];

@@ -60,10 +60,11 @@ pub(crate) struct Factored {
     holes: Vec<Factor>,
 }
 
-/// Orders and factors the hole whose unknowns are `pixels` (in any order) in a `width × height`
-/// image. `None` when its factor would cost too much (see the module documentation).
-pub(crate) fn factor(width: usize, height: usize, pixels: &mut [u32]) -> Option<Factor> {
-    pixels.sort_unstable();
+/// Orders and factors the hole whose unknowns are `pixels` (increasing pixel indices, as
+/// `hole_pixels` gives them) in a `width × height` image. `None` when its factor would cost too
+/// much (see the module documentation).
+pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Factor> {
+    debug_assert!(pixels.windows(2).all(|w| w[0] < w[1]), "pixels increase");
     let m = pixels.len();
     // The hole's graph: 4-neighbours that are unknowns. The pixels increase, so the searches for
     // the neighbours above and below move forward only.
@@ -397,13 +398,7 @@ impl Factored {
 /// elimination order, `C` per unknown.
 pub(crate) fn solve_group<const C: usize>(f: &Factored, planes: &[&mut [f32]]) -> Result<GroupResult, FillError> {
     let mut values = vec![0f64; f.unknowns() * C];
-    let mut slices = Vec::with_capacity(f.holes.len());
-    let mut rest = &mut values[..];
-    for hole in &f.holes {
-        let (s, r) = rest.split_at_mut(hole.unknowns() * C);
-        slices.push(s);
-        rest = r;
-    }
+    let slices = super::split_lengths(&mut values, f.holes.iter().map(|h| h.unknowns() * C));
     let sums: Vec<Result<Sums<C>, FillError>> = slices
         .into_par_iter()
         .zip(&f.holes)
@@ -553,10 +548,10 @@ mod tests {
             let (xi, yi) = (x as isize, y as isize);
             (xi - yi).abs() <= 1 && x < 30 || (xi + yi - 38).abs() <= 0 || y == 20 || x == 7
         };
-        let mut pixels: Vec<u32> = (0..w * h).filter(|&p| inside(p % w, p / w)).map(|p| p as u32).collect();
+        let pixels: Vec<u32> = (0..w * h).filter(|&p| inside(p % w, p / w)).map(|p| p as u32).collect();
         let plane: Vec<f32> = (0..w * h).map(|p| ((p * 37) % 101) as f32 + 0.25 * (p % w) as f32).collect();
         let expected = dense_fill(w, h, &pixels, &plane);
-        let f = factor(w, h, &mut pixels).expect("a thin hole is factored");
+        let f = factor(w, h, &pixels).expect("a thin hole is factored");
         let holes = Factored::new(w, h, vec![f]);
         for channels in [1usize, 2] {
             let mut planes: Vec<Vec<f32>> =
@@ -591,11 +586,11 @@ mod tests {
     fn a_wide_hole_is_left_to_multigrid() {
         // A 60×60 square: minimum degree's fronts grow with the side, past the work bound.
         let (w, h) = (80, 80);
-        let mut pixels: Vec<u32> = (0..w * h)
+        let pixels: Vec<u32> = (0..w * h)
             .filter(|&p| (10..70).contains(&(p % w)) && (10..70).contains(&(p / w)))
             .map(|p| p as u32)
             .collect();
-        assert!(factor(w, h, &mut pixels).is_none());
+        assert!(factor(w, h, &pixels).is_none());
     }
 
     #[test]

@@ -524,22 +524,10 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         if count == 0 {
             return parts;
         }
-        let mut kept = Vec::with_capacity(hole_of.len());
-        let mut run = 0;
-        for row in &mut runs {
-            row.retain(|_| {
-                let hole = hole_of[run];
-                run += 1;
-                if taken[hole as usize] {
-                    sizes[hole as usize] = 0;
-                    false
-                } else {
-                    kept.push(hole);
-                    true
-                }
-            });
+        (runs, hole_of) = runs_of(&runs, &hole_of, |hole| !taken[hole]);
+        for (size, _) in sizes.iter_mut().zip(&taken).filter(|(_, t)| **t) {
+            *size = 0;
         }
-        hole_of = kept;
         bbox = extent(&runs).1;
     }
     let whole = margin_box(bbox, width, height);
@@ -550,7 +538,8 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         return parts;
     }
     // Hole by hole: each dense, large hole gets its own grid (holes never touch, so their boxes
-    // may overlap); everything else shares one compact hierarchy.
+    // may overlap); the others are factored where that is cheap, the rest share one compact
+    // hierarchy.
     let mut row_start = Vec::with_capacity(height + 1);
     row_start.push(0usize);
     for row in &runs {
@@ -575,22 +564,19 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         .par_iter()
         .map(|&(hole, bx)| grid::Grid::build(bx, (width, height), |y, f| hole_runs(hole, y, f)))
         .collect();
-    let mut gridded = Vec::new();
+    // Holes given a part of their own.
+    let mut elsewhere = vec![false; holes];
     let mut left = count;
-    for (&(hole, bx), g) in dense.iter().zip(grids) {
+    for (&(hole, _), g) in dense.iter().zip(grids) {
         if let Some(g) = g {
             parts.push(Part::Grid(g));
-            gridded.push((hole, bx));
+            elsewhere[hole] = true;
             left -= sizes[hole];
         }
     }
     if left > 0 {
         // The holes left: factored once where that is cheap (thin networks), else one compact
         // hierarchy for all of them.
-        let mut elsewhere = vec![false; holes];
-        for &(hole, _) in &gridded {
-            elsewhere[hole] = true;
-        }
         let tried: Vec<u32> = (0..holes)
             .filter(|&k| sizes[k] > 0 && !elsewhere[k] && sizes[k] <= sparse::MAX_UNKNOWNS)
             .map(|k| u32::try_from(k).expect("holes fit in u32"))
@@ -616,22 +602,36 @@ fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
         if left == 0 {
             return parts;
         }
-        let mut run = 0;
-        let rest: Vec<Vec<(u32, u32)>> = runs
-            .iter()
-            .map(|row| {
-                let start = run;
-                run += row.len();
-                row.iter()
-                    .zip(&hole_of[start..run])
-                    .filter(|&(_, &hole)| !elsewhere[hole as usize])
-                    .map(|(&r, _)| r)
-                    .collect()
-            })
-            .collect();
+        let (rest, _) = runs_of(&runs, &hole_of, |hole| !elsewhere[hole]);
         parts.extend(compact(&rest));
     }
     parts
+}
+
+/// The runs of the holes that `keep` accepts, row by row, and the hole of each (in row order).
+fn runs_of(
+    runs: &[Vec<(u32, u32)>],
+    hole_of: &[u32],
+    keep: impl Fn(usize) -> bool,
+) -> (Vec<Vec<(u32, u32)>>, Vec<u32>) {
+    let mut kept_holes = Vec::with_capacity(hole_of.len());
+    let mut run = 0;
+    let kept = runs
+        .iter()
+        .map(|row| {
+            let start = run;
+            run += row.len();
+            row.iter()
+                .zip(&hole_of[start..run])
+                .filter(|&(_, &hole)| keep(hole as usize))
+                .map(|(&r, &hole)| {
+                    kept_holes.push(hole);
+                    r
+                })
+                .collect()
+        })
+        .collect();
+    (kept, kept_holes)
 }
 
 /// A mask kept one bit per pixel, row-major.

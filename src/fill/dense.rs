@@ -4,11 +4,17 @@
 //! per mask and an O(n²) solve per cycle cost less than the smoothing of the fine level.
 
 /// Lower-triangular Cholesky factor `L` of a symmetric positive definite matrix, `A = L·Lᵀ`,
-/// stored row-major in an `n × n` array (the upper triangle is unused).
+/// its rows stored one after another (row `i` holds `L_i0 ..= L_ii` from `i·(i + 1)/2`).
 #[derive(Clone, Debug)]
 pub(crate) struct Cholesky {
     n: usize,
     l: Vec<f64>,
+}
+
+/// Where `L_ij` (`j ≤ i`) is stored.
+#[inline]
+fn at(i: usize, j: usize) -> usize {
+    i * (i + 1) / 2 + j
 }
 
 impl Cholesky {
@@ -34,7 +40,8 @@ impl Cholesky {
                 a[i * n + j] = s / d;
             }
         }
-        Some(Self { n, l: a })
+        let l = (0..n).flat_map(|i| a[i * n..=i * n + i].iter().copied()).collect();
+        Some(Self { n, l })
     }
 
     /// Solves `A x = b` in place (`x` holds `b` on entry).
@@ -43,17 +50,18 @@ impl Cholesky {
         debug_assert_eq!(x.len(), n);
         for i in 0..n {
             let mut s = x[i];
-            for k in 0..i {
-                s -= l[i * n + k] * x[k];
+            let row = &l[at(i, 0)..at(i, i)];
+            for (lk, xk) in row.iter().zip(&x[..i]) {
+                s -= lk * xk;
             }
-            x[i] = s / l[i * n + i];
+            x[i] = s / l[at(i, i)];
         }
         for i in (0..n).rev() {
             let mut s = x[i];
             for k in i + 1..n {
-                s -= l[k * n + i] * x[k];
+                s -= l[at(k, i)] * x[k];
             }
-            x[i] = s / l[i * n + i];
+            x[i] = s / l[at(i, i)];
         }
     }
 }

@@ -46,9 +46,12 @@ const ROWS: usize = 16;
 /// threads for each pass over them would cost more than the pass.
 const SMALL_LEVEL: usize = 1 << 13;
 /// Stencil id of "no point here".
-const NONE: u32 = 0;
+const NONE: u8 = 0;
 /// Stencil id of the level's interior stencil.
-const INTERIOR: u32 = 1;
+const INTERIOR: u8 = 1;
+/// Padded cells per segment of a row whose own stencils are numbered together (from 2, so the
+/// ids fit a byte).
+const SEGMENT: usize = 64;
 
 /// The interpolation column of an interior point: bilinear.
 const BILINEAR: [f32; 9] = [0.25, 0.5, 0.25, 0.5, 1.0, 0.5, 0.25, 0.5, 0.25];
@@ -170,9 +173,16 @@ pub(crate) struct Coarse {
     h: usize,
     /// Padded row length, `w + 2`.
     pw: usize,
-    /// Stencil id per padded point: [`NONE`], [`INTERIOR`] or an index into `table`.
-    id: Vec<u32>,
-    /// Stencils by id (9 entries, row-major 3×3, centre = diagonal); `table[0]` is all zero.
+    /// Stencil id per padded point: [`NONE`], [`INTERIOR`], or `2 + k` for the `k`-th stencil of
+    /// its own in its row's [`SEGMENT`] of cells (see [`Coarse::stencil_index`]). Numbered per
+    /// segment so a byte suffices: at `u32` the ids were a quarter of the image's f32 size, the
+    /// largest item of a wide hole's hierarchy.
+    id: Vec<u8>,
+    /// Where each segment's own stencils start in `table`, less 2: `segs` per padded row.
+    seg_base: Vec<u32>,
+    segs: usize,
+    /// Stencils (9 entries, row-major 3×3, centre = diagonal); `table[0]` is all zero and
+    /// `table[1]` the interior stencil.
     table: Vec<[f32; 9]>,
     /// Interpolation columns by id: the weight of the point in the rows of the 3×3 fine points
     /// around it (bilinear for the interior id).
@@ -257,6 +267,24 @@ impl Coarse {
 
     fn padded_len(&self) -> usize {
         self.pw * (self.h + 2)
+    }
+
+    /// The index into `table` and `pcol` of padded cell `i`, in padded row `i / pw`.
+    #[inline]
+    fn stencil_index(&self, i: usize) -> usize {
+        self.stencil_index_in_row(i, i / self.pw)
+    }
+
+    /// [`Coarse::stencil_index`] of padded cell `i` of padded row `row`.
+    #[inline]
+    fn stencil_index_in_row(&self, i: usize, row: usize) -> usize {
+        debug_assert_eq!(i / self.pw, row);
+        let id = self.id[i];
+        if id <= INTERIOR {
+            usize::from(id)
+        } else {
+            self.seg_base[row * self.segs + (i - row * self.pw) / SEGMENT] as usize + usize::from(id)
+        }
     }
 
     /// Offsets of the 9 stencil slots in the padded grid.
@@ -382,7 +410,7 @@ impl FineView for Coarse {
             && self.id[self.at(x as usize, y as usize)] != NONE
     }
     fn stencil(&self, x: usize, y: usize) -> [f64; 9] {
-        self.table[self.id[self.at(x, y)] as usize].map(f64::from)
+        self.table[self.stencil_index_in_row(self.at(x, y), y + 1)].map(f64::from)
     }
     fn interior_bits(&self, y: usize, out: &mut [u64]) {
         out.fill(0);
@@ -566,67 +594,78 @@ fn coarsen<F: FineView>(f: &F, interior: [f32; 9]) -> Coarse {
             *o = (-3..=3).fold(!0, |acc, d| acc & shifted(&inner, i, d));
         }
     });
-    // ... then check the seven rows around each coarse row.
-    type Row = (Vec<u32>, Vec<([f32; 9], [f32; 9])>);
-    let rows: Vec<Row> = (0..hc)
-        .into_par_iter()
-        .map(|cy| {
-            let mut ids = vec![NONE; wc];
-            let mut local = Vec::new();
+    // ... then check the seven rows around each coarse row. Ids go straight into the padded
+    // grid; each segment's own stencils are numbered from 2 (a stencil equal to the previous one
+    // of its segment, as along a straight edge, shares its id).
+    type Own = (Vec<([f32; 9], [f32; 9])>, Vec<u32>);
+    let segs = pw.div_ceil(SEGMENT);
+    let mut id = vec![NONE; pw * (hc + 2)];
+    let rows: Vec<(Own, usize)> = id[pw..(hc + 1) * pw]
+        .par_chunks_mut(pw)
+        .enumerate()
+        .map(|(cy, ids)| {
+            // The row's own stencils, and where each segment's begin among them.
+            let (mut own, mut starts) = (Vec::new(), vec![0u32; segs]);
+            let mut n = 0;
             let fy = 2 * cy;
             let column: Vec<u64> = if fy >= 3 && fy + 3 < hf {
                 (0..words).map(|i| (fy - 3..=fy + 3).fold(!0, |acc, y| acc & eroded[y * words + i])).collect()
             } else {
                 vec![0; words]
             };
-            for (cx, id) in ids.iter_mut().enumerate() {
+            for (cx, id) in ids[1..=wc].iter_mut().enumerate() {
+                let seg = (cx + 1) / SEGMENT;
+                if (cx + 1) % SEGMENT == 0 || cx == 0 {
+                    starts[seg] = own.len() as u32;
+                }
                 if !f.active(2 * cx as isize, fy as isize) {
                     continue;
                 }
+                n += 1;
                 if column[2 * cx / 64] >> (2 * cx % 64) & 1 == 1 {
                     *id = INTERIOR;
-                } else {
-                    let (s, p) = galerkin(f, cx, cy);
-                    *id = 2 + local.len() as u32;
-                    local.push((s.map(|v| v as f32), p.map(|v| v as f32)));
+                    continue;
                 }
+                let (s, p) = galerkin(f, cx, cy);
+                let entry = (s.map(|v| v as f32), p.map(|v| v as f32));
+                if own.len() == starts[seg] as usize || own.last() != Some(&entry) {
+                    own.push(entry);
+                }
+                // At most SEGMENT stencils a segment: the id stays below 2 + SEGMENT.
+                *id = INTERIOR + (own.len() - starts[seg] as usize) as u8;
             }
-            (ids, local)
+            ((own, starts), n)
         })
         .collect();
     drop(eroded);
-    // Rows' stencils go to the table in row order: row `cy`'s first at `first[cy]`.
-    let mut first = Vec::with_capacity(hc);
-    let mut next = 2u32;
-    for (_, local) in &rows {
-        first.push(next);
-        next += local.len() as u32;
-    }
-    let mut id = vec![NONE; pw * (hc + 2)];
-    let n = id[pw..(hc + 1) * pw]
-        .par_chunks_mut(pw)
-        .zip(&rows)
-        .zip(&first)
-        .map(|((out, (ids, _)), &first)| {
-            let mut n = 0;
-            for (cx, &v) in ids.iter().enumerate() {
-                if v != NONE {
-                    n += 1;
-                    out[cx + 1] = if v == INTERIOR { INTERIOR } else { v - 2 + first };
-                }
-            }
-            n
-        })
-        .sum();
     let mut table = vec![[0f32; 9], interior];
     let mut pcol = vec![[0f32; 9], BILINEAR];
-    for (_, local) in rows {
-        for (st, col) in local {
+    let mut seg_base = vec![0u32; segs * (hc + 2)];
+    let mut n = 0;
+    for (cy, ((own, starts), count)) in rows.into_iter().enumerate() {
+        // Id 2 is a segment's first stencil.
+        for (base, start) in seg_base[(cy + 1) * segs..(cy + 2) * segs].iter_mut().zip(starts) {
+            *base = u32::try_from(table.len() - 2).expect("stencils fit in u32") + start;
+        }
+        n += count;
+        for (st, col) in own {
             table.push(st);
             pcol.push(col);
         }
     }
-    let mut c = Coarse { w: wc, h: hc, pw, id, table, pcol, n, runs: Runs::default(), pair_runs: Runs::default() };
+    let mut c = Coarse {
+        w: wc,
+        h: hc,
+        pw,
+        id,
+        seg_base,
+        segs,
+        table,
+        pcol,
+        n,
+        runs: Runs::default(),
+        pair_runs: Runs::default(),
+    };
     c.runs = Runs::of(wc, hc, |x, y| c.id[c.at(x, y)] == INTERIOR);
     c.pair_runs =
         Runs::of(wc, hc, |x, y| y + 1 < hc && c.id[c.at(x, y)] == INTERIOR && c.id[c.at(x, y + 1)] == INTERIOR);
@@ -707,10 +746,10 @@ impl Grid {
     pub(crate) fn memory_bytes(&self) -> usize {
         let mut total = self.members.bits.len() * 8;
         for l in &self.levels {
-            total += l.id.len() * 4 + l.table.len() * 72 + l.runs.bytes() + l.pair_runs.bytes();
+            total += l.id.len() + l.seg_base.len() * 4 + l.table.len() * 72 + l.runs.bytes() + l.pair_runs.bytes();
         }
         if let Coarsest::Dense { points, .. } = &self.coarsest {
-            total += points.len() * (8 + points.len() * 8);
+            total += points.len() * (8 + (points.len() + 1) * 4);
         }
         total
     }
@@ -732,7 +771,7 @@ fn dense_coarsest(level: &Coarse) -> Option<Coarsest> {
     let off = level.offsets();
     let mut a = vec![0f64; n * n];
     for (r, &i) in points.iter().enumerate() {
-        let s = &level.table[level.id[i] as usize];
+        let s = &level.table[level.stencil_index(i)];
         for k in 0..9 {
             let j = (i as isize + off[k]) as usize;
             if index[j] != usize::MAX {
@@ -772,6 +811,8 @@ struct Cycler<'a, const C: usize> {
     work: Work<C>,
     /// Rows per band of the level-0 wavefront sweep.
     band: usize,
+    /// Threads of the pool the cycles run in.
+    threads: usize,
     /// The colour of the level-0 cells relaxed last, if nothing changed level 0 since: those
     /// cells are the Gauss-Seidel update of the others, so their residuals are zero.
     relaxed_last: Option<usize>,
@@ -989,7 +1030,7 @@ impl<const C: usize> Cycler<'_, C> {
             let cw = coarse.pw * C;
             let (fw, fh) = this.fine_dims(l);
             // Coarse rows in tasks; each task keeps the three fine residual rows it needs.
-            let per_task = task_rows(coarse);
+            let per_task = restrict_rows(coarse, this.threads);
             rhs.par_chunks_mut(cw * per_task).zip(scratch.par_chunks_mut(3 * fw * C)).enumerate().for_each(
                 |(t, (chunk, buf))| {
                     let (r0, rest) = buf.split_at_mut(fw * C);
@@ -1050,7 +1091,7 @@ impl<const C: usize> Cycler<'_, C> {
             if !run {
                 for x in a..b {
                     let i = lv.at(x, y);
-                    let id = lv.id[i] as usize;
+                    let id = lv.stencil_index_in_row(i, y + 1);
                     if id == 0 {
                         out[x * C..x * C + C].fill(0.0);
                         continue;
@@ -1110,7 +1151,7 @@ impl<const C: usize> Cycler<'_, C> {
                         + b[C + c];
                 }
             } else {
-                let col = &coarse.pcol[id as usize];
+                let col = &coarse.pcol[coarse.stencil_index_in_row(pi, cy + 1)];
                 for r in 0..3 {
                     if have[r] == usize::MAX {
                         continue;
@@ -1137,7 +1178,7 @@ impl<const C: usize> Cycler<'_, C> {
     #[inline]
     fn interpolate(&self, l: usize, ec: &[f32], x: usize, y: usize) -> [f64; C] {
         let coarse = &self.g.levels[l];
-        let (id, pw) = (&coarse.id, coarse.pw);
+        let pw = coarse.pw;
         // Padded index of the parent (x/2, y/2); the padding keeps one right and one down in
         // bounds at the grid's last row and column.
         let i = coarse.at(x / 2, y / 2);
@@ -1151,7 +1192,7 @@ impl<const C: usize> Cycler<'_, C> {
             }
             let j = i + dy * pw + dx;
             let k = (1 + oy - 2 * dy) * 3 + (1 + ox - 2 * dx);
-            let wgt = f64::from(coarse.pcol[id[j] as usize][k]);
+            let wgt = f64::from(coarse.pcol[coarse.stencil_index_in_row(j, y / 2 + 1 + dy)][k]);
             if wgt != 0.0 {
                 for (c, o) in out.iter_mut().enumerate() {
                     *o += wgt * f64::from(ec[j * C + c]);
@@ -1351,7 +1392,7 @@ impl<const C: usize> Cycler<'_, C> {
                         if id == NONE {
                             continue;
                         }
-                        let st = &lv.table[id as usize];
+                        let st = &lv.table[lv.stencil_index_in_row(i, y + 1)];
                         let inv = 1.0 / st[4];
                         for c in 0..C {
                             // SAFETY: the padded ring keeps every neighbour index in bounds; see
@@ -1427,6 +1468,17 @@ fn coarse_band(band: usize, l: usize, level: &Coarse) -> usize {
 /// Rows per task of the passes over `level` (its padded rows for one task).
 fn task_rows(level: &Coarse) -> usize {
     if level.n <= SMALL_LEVEL { level.h + 2 } else { ROWS }
+}
+
+/// Tasks per thread of the restriction to a coarse level.
+const RESTRICT_TASKS_PER_THREAD: usize = 2;
+
+/// Coarse rows per task of the restriction to `level` on `threads` threads. Each task keeps
+/// three fine residual rows of scratch, so the tasks are a few per thread rather than a few
+/// rows each (with 16-row tasks the scratch of a 2048² frame took 4 MB, a quarter of the image);
+/// the result does not depend on the split, every coarse row being computed on its own.
+fn restrict_rows(level: &Coarse, threads: usize) -> usize {
+    task_rows(level).max((level.h + 2).div_ceil(RESTRICT_TASKS_PER_THREAD * threads))
 }
 
 /// Runs `phases` Gauss-Seidel half-sweeps over rows `0..h` as one wavefront: `relax(y, p)` for
@@ -1601,7 +1653,7 @@ pub(crate) fn solve_group<const C: usize>(
     let scratch = (0..g.levels.len())
         .map(|l| {
             let fw = if l == 0 { w } else { g.levels[l - 1].w };
-            let tasks = (g.levels[l].h + 2).div_ceil(task_rows(&g.levels[l]));
+            let tasks = (g.levels[l].h + 2).div_ceil(restrict_rows(&g.levels[l], threads));
             vec![0f64; tasks * 3 * fw * C]
         })
         .collect();
@@ -1615,8 +1667,14 @@ pub(crate) fn solve_group<const C: usize>(
             .max()
             .unwrap_or(0)
     ];
-    let mut cy =
-        Cycler { g, params, work: Work { u, e, rhs, coarse_x, scratch, partial, row_buf }, band, relaxed_last: None };
+    let mut cy = Cycler {
+        g,
+        params,
+        work: Work { u, e, rhs, coarse_x, scratch, partial, row_buf },
+        band,
+        threads,
+        relaxed_last: None,
+    };
 
     // ‖b‖: the known neighbours of every unknown, summed. Members whose four neighbours are all
     // members have none, so only the others are visited.
@@ -1761,7 +1819,7 @@ mod tests {
             for i in 0..c.n {
                 let p = c.pos[i] as usize;
                 let (x, y) = (p % c.w, p / c.w);
-                let s = &g.table[g.id[g.at(x, y)] as usize];
+                let s = &g.table[g.stencil_index(g.at(x, y))];
                 assert!((f64::from(s[4]) - c.diag[i]).abs() <= 1e-5 * c.diag[i], "level {} diag at ({x},{y})", k + 1);
                 for t in 0..c.k {
                     let j = c.nbr[i * c.k + t] as usize;
@@ -1802,6 +1860,20 @@ mod tests {
     fn coarse_operators_match_the_compact_hierarchy_on_random_dropout() {
         let mut rng = crate::synth::Rng::new(7);
         let mask = Mask::from_fn(90, 90, |x, y| (x, y) == (1, 1) || rng.uniform() < 0.6);
+        check_same_operators(&mask);
+    }
+
+    #[test]
+    fn coarse_operators_match_the_compact_hierarchy_across_row_segments() {
+        // Coarse rows of 150 and 75 points: stencil ids are numbered per segment of 64 cells, and
+        // nearly every point of dropout has a stencil of its own.
+        let mut rng = crate::synth::Rng::new(11);
+        let mask = Mask::from_fn(300, 40, |x, y| (x, y) == (1, 1) || rng.uniform() < 0.6);
+        let grid = grid_of(&mask);
+        let level = &grid.levels[0];
+        assert!(level.segs >= 3, "{} segments", level.segs);
+        let own = (0..level.w).filter(|&x| level.id[level.at(x, 7)] > INTERIOR).count();
+        assert!(own > 2 * SEGMENT / 2, "{own} points of row 7 with a stencil of their own");
         check_same_operators(&mask);
     }
 

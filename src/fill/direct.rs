@@ -294,8 +294,9 @@ struct Scratch {
     row_at: Vec<usize>,
     env: Vec<f64>,
     inv_diag: Vec<f64>,
-    /// The right-hand side, `C` values per unknown.
+    /// The right-hand side and the solution, `C` values per unknown.
     b: Vec<f64>,
+    x: Vec<f64>,
 }
 
 /// Solves every hole for `C` channels of `planes`. The values come back in the order of
@@ -303,9 +304,9 @@ struct Scratch {
 pub(crate) fn solve_group<const C: usize>(holes: &Holes, planes: &[&mut [f32]]) -> Result<GroupResult, FillError> {
     let n = holes.unknowns();
     // Written before read (each task stores its solutions), so the pages fault once.
-    let mut values = vec![0f64; n * C];
+    let mut rounded = vec![0f32; n * C];
     let slices = super::split_lengths(
-        &mut values,
+        &mut rounded,
         holes.tasks.windows(2).map(|t| (holes.start[t[1] as usize] - holes.start[t[0] as usize]) as usize * C),
     );
     let sums: Vec<Result<Sums<C>, FillError>> = slices
@@ -316,8 +317,14 @@ pub(crate) fn solve_group<const C: usize>(holes: &Holes, planes: &[&mut [f32]]) 
             let base = holes.start[t[0] as usize] as usize;
             for k in t[0] as usize..t[1] as usize {
                 let (range, lines) = holes.hole(k);
-                let x = &mut out[(range.start - base) * C..(range.end - base) * C];
-                let (r_sq, b_sq) = solve_hole::<C>(&holes.keys[range], lines, planes, scratch, x)?;
+                let out = &mut out[(range.start - base) * C..(range.end - base) * C];
+                let (r_sq, b_sq) = solve_hole::<C>(&holes.keys[range], lines, planes, scratch)?;
+                for (o, &x) in out.iter_mut().zip(&scratch.x) {
+                    #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
+                    {
+                        *o = x as f32;
+                    }
+                }
                 for c in 0..C {
                     sums.0[c] += r_sq[c];
                     sums.1[c] += b_sq[c];
@@ -326,22 +333,20 @@ pub(crate) fn solve_group<const C: usize>(holes: &Holes, planes: &[&mut [f32]]) 
             Ok(sums)
         })
         .collect();
-    super::solved_exactly(values, sums)
+    super::solved_exactly((Vec::new(), rounded), sums)
 }
 
-/// Solves one hole into `x` (`C` values per unknown) and returns the squared norms of its
+/// Solves one hole into `s.x` (`C` values per unknown) and returns the squared norms of its
 /// residual and right-hand side per channel.
 fn solve_hole<const C: usize>(
     keys: &[u32],
     lines: Lines,
     planes: &[&mut [f32]],
     s: &mut Scratch,
-    x: &mut [f64],
 ) -> Result<Sums<C>, FillError> {
     let m = keys.len();
     couplings(keys, lines, &mut s.cpl);
     let cpl = &s.cpl;
-    debug_assert_eq!(x.len(), m * C);
 
     // The right-hand side: each unknown's known in-image neighbours, summed.
     let mut b_sq = [0f64; C];
@@ -417,7 +422,8 @@ fn solve_hole<const C: usize>(
     }
 
     // L·y = b, then Lᵀ·x = y, in place, all channels together.
-    x.copy_from_slice(&s.b);
+    let x = &mut s.x;
+    x.clone_from(&s.b);
     for (i, c) in cpl.iter().enumerate() {
         let fi = c.first(i);
         let row = &s.env[s.row_at[i]..s.row_at[i] + (i - fi)];
@@ -467,7 +473,7 @@ unsafe impl Send for SharedPlane {}
 unsafe impl Sync for SharedPlane {}
 
 /// Writes a group's values (from [`solve_group`], `count` channels) into `planes[first..]`.
-pub(crate) fn write_back(holes: &Holes, planes: &mut [&mut [f32]], first: usize, count: usize, values: &[f64]) {
+pub(crate) fn write_back(holes: &Holes, planes: &mut [&mut [f32]], first: usize, count: usize, values: &[f32]) {
     for (c, plane) in planes[first..first + count].iter_mut().enumerate() {
         let len = plane.len();
         let ptr = SharedPlane(plane.as_mut_ptr());
@@ -477,11 +483,10 @@ pub(crate) fn write_back(holes: &Holes, planes: &mut [&mut [f32]], first: usize,
                 let (range, lines) = holes.hole(k);
                 for (i, q) in range.clone().zip(lines.pixels(&holes.keys[range])) {
                     assert!(q < len, "an unknown lies in the image");
-                    #[allow(clippy::cast_possible_truncation)] // planes are f32 by design
                     // SAFETY: `q` is in the plane (checked) and written by this task only (see
                     // `SharedPlane`).
                     unsafe {
-                        *p.0.add(q) = values[i * count + c] as f32;
+                        *p.0.add(q) = values[i * count + c];
                     }
                 }
             }
@@ -576,7 +581,7 @@ mod tests {
             }
             .expect("solves");
             let mut refs = refs;
-            write_back(&holes, &mut refs, 0, channels, &result.values);
+            write_back(&holes, &mut refs, 0, channels, &result.rounded);
             for (c, plane) in planes.iter().enumerate() {
                 let expected = dense_fill(&mask, plane);
                 let mut j = 0;

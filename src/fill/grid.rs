@@ -1724,7 +1724,14 @@ pub(crate) fn solve_group<const C: usize>(
     let (reports, r_sq) = super::iterate(&mut cy, params, start, bnorm, progress)?;
     // Norms in the planes' own units, so parts with different scales add up correctly.
     let unscale = |v: [f64; C]| (0..C).map(|c| v[c] / (scale[c] * scale[c])).collect();
-    Ok(GroupResult { values: cy.work.u, reports, r_sq: unscale(r_sq), b_sq: unscale(b_sq), scale: scale.to_vec() })
+    Ok(GroupResult {
+        values: cy.work.u,
+        rounded: Vec::new(),
+        reports,
+        r_sq: unscale(r_sq),
+        b_sq: unscale(b_sq),
+        scale: scale.to_vec(),
+    })
 }
 
 /// Writes a group's values (the level-0 iterate over the box) into the planes.

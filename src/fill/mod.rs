@@ -240,9 +240,12 @@ impl Part {
 
 /// The solution of one channel group of one part, held until every part has succeeded.
 pub(crate) struct GroupResult {
-    /// The part's iterate, `C` channels interleaved (over the unknowns of a compact part, over the
-    /// box of a grid part).
+    /// The part's iterate, `C` channels interleaved (over the unknowns of a compact or factored
+    /// part, over the box of a grid part).
     pub values: Vec<f64>,
+    /// A direct part's solution, already rounded to the planes' `f32` (half the memory of
+    /// `values` while every part waits to be written).
+    pub rounded: Vec<f32>,
     pub reports: Vec<ChannelReport>,
     /// Squared norms of the final residual and of the right-hand side, per channel.
     pub r_sq: Vec<f64>,
@@ -354,7 +357,7 @@ pub(crate) fn hole_extents(runs: &[Vec<(u32, u32)>], hole_of: &[u32], holes: usi
 /// The result of a group solved exactly (no cycles; the history is the solution's residual), from
 /// its values and the sums of its tasks in order (the first error wins).
 pub(crate) fn solved_exactly<const C: usize>(
-    values: Vec<f64>,
+    (values, rounded): (Vec<f64>, Vec<f32>),
     sums: Vec<Result<Sums<C>, FillError>>,
 ) -> Result<GroupResult, FillError> {
     let (mut r_sq, mut b_sq) = (vec![0f64; C], vec![0f64; C]);
@@ -371,7 +374,7 @@ pub(crate) fn solved_exactly<const C: usize>(
             ChannelReport { relative_residual: rel, cycles: 0, history: vec![rel] }
         })
         .collect();
-    Ok(GroupResult { values, reports, r_sq, b_sq, scale: vec![1.0; C] })
+    Ok(GroupResult { values, rounded, reports, r_sq, b_sq, scale: vec![1.0; C] })
 }
 
 /// The operations of one multigrid level that a cycle is made of, for either storage.
@@ -964,7 +967,7 @@ impl Solver {
             match &self.parts[k] {
                 Part::Compact(h) => solve::write_back(h, planes, first, result.scale.len(), &result.values),
                 Part::Grid(g) => grid::write_back(g, planes, first, &result),
-                Part::Direct(d) => direct::write_back(d, planes, first, result.scale.len(), &result.values),
+                Part::Direct(d) => direct::write_back(d, planes, first, result.scale.len(), &result.rounded),
                 Part::Factored(f) => sparse::write_back(f, planes, first, result.scale.len(), &result.values),
             }
         }

@@ -281,7 +281,14 @@ pub(super) fn solve_group<const C: usize>(
     let (reports, r_sq) = super::iterate(&mut cy, params, start, bnorm, progress)?;
     let mut values = std::mem::take(&mut cy.work[0].u);
     values.truncate(lv0.n * C);
-    Ok(GroupResult { values, reports, r_sq: r_sq.to_vec(), b_sq: b_sq.to_vec(), scale: vec![1.0; C] })
+    Ok(GroupResult {
+        values,
+        rounded: Vec::new(),
+        reports,
+        r_sq: r_sq.to_vec(),
+        b_sq: b_sq.to_vec(),
+        scale: vec![1.0; C],
+    })
 }
 
 impl<const C: usize> Levels for Cycler<'_, C> {

@@ -404,7 +404,7 @@ pub(crate) fn solve_group<const C: usize>(f: &Factored, planes: &[&mut [f32]]) -
         .zip(&f.holes)
         .map(|(x, hole)| solve_hole::<C>(hole, f.width, f.height, planes, x))
         .collect();
-    super::solved_exactly(values, sums)
+    super::solved_exactly((values, Vec::new()), sums)
 }
 
 /// Solves one hole into `x` and returns the squared norms of its residual and right-hand side.

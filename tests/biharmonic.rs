@@ -163,9 +163,13 @@ fn biharmonic_agrees_with_sparse_cholesky_on_every_family() {
         let known: Vec<f32> = truth.iter().zip(mask.bits()).map(|(&v, &m)| if m { 0.0 } else { v * 1000.0 }).collect();
         let reference = direct(&mask, &known);
         let range = reference.iter().fold(0f64, |m, v| m.max(v.abs())).max(1.0);
-        // Both storages of the hierarchy: index lists and grids (the automatic choice picks one
-        // by the mask's density).
-        for structure in [Structure::Compact, Structure::Grid] {
+        // Both storages of the hierarchy, index lists and grids, and the automatic choice, which
+        // factors the thin components (scratches, dead pixels) and picks a storage for the rest.
+        for structure in [Structure::Compact, Structure::Grid, Structure::Auto] {
+            if structure == Structure::Auto && matches!(family.name(), "scratches" | "deadpix") {
+                let solver = Solver::for_method_with(&mask, FillMethod::Biharmonic, structure).expect("known pixels");
+                assert!(solver.storage().contains("direct"), "{}: {}", family.name(), solver.storage());
+            }
             let mut plane = known.clone();
             let report = fill_stored(FillMethod::Biharmonic, structure, &mask, &mut plane, 1e-9);
             let filled: Vec<f64> = (0..n * n).filter(|&i| mask.bits()[i]).map(|i| f64::from(plane[i])).collect();

@@ -791,13 +791,19 @@ impl Solver {
     }
 
     /// How the hierarchy is stored, in a few words: "2 grid, 1 compact" (harmonic parts, with
-    /// ", direct" when some holes are solved directly),
-    /// "grid" or "compact" (biharmonic), "a cut per hole" (guided).
+    /// ", direct" when some holes are solved directly), "grid" or "compact" (biharmonic; "direct"
+    /// when every unknown is in a factored component, ", direct" after the storage when some
+    /// are), "a cut per hole" (guided).
     #[must_use]
     pub fn storage(&self) -> String {
         match (self.method, &self.biharmonic) {
             (FillMethod::Guided, _) => "a cut per hole".to_owned(),
-            (_, Some(b)) => if b.is_grid() { "grid" } else { "compact" }.to_owned(),
+            (_, Some(b)) => match (b.factored_unknowns(), b.unknowns()) {
+                (f, n) if f == n && n > 0 => "direct".to_owned(),
+                (f, _) => {
+                    format!("{}{}", if b.is_grid() { "grid" } else { "compact" }, if f > 0 { ", direct" } else { "" })
+                }
+            },
             _ => {
                 let count = |f: fn(&Part) -> bool| self.parts.iter().filter(|p| f(p)).count();
                 let grids = count(|p| matches!(p, Part::Grid(_)));

@@ -29,11 +29,26 @@ const MAX_FRONT: usize = 256;
 const THICK: u32 = 8;
 /// Largest share of thick unknowns in a hole that is tried (crossings of thin strokes are thick
 /// but few; a ring or a stroke 12 pixels wide is thick everywhere and goes to multigrid at once).
-const MAX_THICK_SHARE: f64 = 1.0 / 64.0;
+pub(crate) const MAX_THICK_SHARE: f64 = 1.0 / 64.0;
 /// Largest hole tried.
 pub(crate) const MAX_UNKNOWNS: usize = 1 << 21;
 /// No neighbour.
 const NONE: u32 = u32::MAX;
+
+/// The Cholesky factor `L·Lᵀ` of a sparse symmetric positive definite matrix with its rows and
+/// columns in minimum-degree order.
+#[derive(Debug)]
+pub(crate) struct SparseCholesky {
+    /// The matrix's index of the unknown eliminated `k`-th.
+    order: Vec<u32>,
+    /// Column `k` of `L` below the diagonal: rows `row[col[k]..col[k + 1]]` (increasing, all
+    /// greater than `k`), values `val[..]` at the same places.
+    col: Vec<u32>,
+    row: Vec<u32>,
+    val: Vec<f64>,
+    /// `1 / L_kk`.
+    inv_diag: Vec<f64>,
+}
 
 /// One hole's factor `A = L·Lᵀ` in elimination order.
 #[derive(Debug)]
@@ -43,13 +58,7 @@ pub(crate) struct Factor {
     /// The four neighbours (left, right, up, down) of each unknown as elimination positions, or
     /// [`NONE`] where that neighbour is known or outside the image.
     nbr: Vec<[u32; 4]>,
-    /// Column `k` of `L` below the diagonal: rows `row[col[k]..col[k + 1]]` (increasing, all
-    /// greater than `k`), values `val[..]` at the same places.
-    col: Vec<u32>,
-    row: Vec<u32>,
-    val: Vec<f64>,
-    /// `1 / L_kk`.
-    inv_diag: Vec<f64>,
+    chol: SparseCholesky,
 }
 
 /// The holes of a mask factored once.
@@ -103,128 +112,210 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Fact
     if share > MAX_THICK_SHARE {
         return None;
     }
-    // The elimination graph, each unknown's neighbours in one arena (see `Graph`).
-    let mut adj = Graph::new(&nbr0);
-
-    // Minimum degree on the explicit elimination graph, with a bucket of unknowns per degree.
-    let mut buckets = Buckets::new(m);
-    for v in 0..m {
-        buckets.insert(v, adj.neighbours(v).len());
+    // The matrix: the degree on the diagonal, −1 towards each hole neighbour.
+    let mut at = Vec::with_capacity(m + 1);
+    at.push(0u32);
+    let mut adj = Vec::with_capacity(4 * m);
+    for n in &nbr0 {
+        adj.extend(n.iter().copied().filter(|&j| j != NONE));
+        at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
     }
-    let mut order = Vec::with_capacity(m);
-    // The neighbour set of each elimination (original indices): the factor's column pattern.
-    let mut pattern_at = Vec::with_capacity(m + 1);
-    let mut patterns: Vec<u32> = Vec::new();
-    pattern_at.push(0usize);
-    let mut work = 0usize;
-    let mut front = [0u32; MAX_FRONT];
-    // `mark[t] == stamp` while t is known to be in the list being joined.
-    let mut mark = vec![u32::MAX; m];
-    while let Some(v) = buckets.pop_min() {
-        order.push(v as u32);
-        let f = adj.neighbours(v).len();
-        if f > MAX_FRONT {
-            return None;
+    let off = vec![-1f64; adj.len()];
+    let diag: Vec<f64> = pixels
+        .iter()
+        .map(|&p| {
+            let (x, y) = (p as usize % width, p as usize / width);
+            f64::from(u8::from(x > 0) + u8::from(x + 1 < width) + u8::from(y > 0) + u8::from(y + 1 < height))
+        })
+        .collect();
+    let chol = SparseCholesky::new(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
+    let pos = chol.positions();
+    let nbr =
+        chol.order.iter().map(|&v| nbr0[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] })).collect();
+    let pixel = chol.order.iter().map(|&v| pixels[v as usize]).collect();
+    Some(Factor { pixel, nbr, chol })
+}
+
+impl SparseCholesky {
+    /// Orders (minimum degree, see the module documentation) and factors the symmetric matrix
+    /// whose row `i` holds `diag[i]` on the diagonal and `off[t]` in column `adj[t]` for `t` in
+    /// `at[i]..at[i + 1]` (the diagonal not among them). `None` when an elimination's neighbour
+    /// set passes [`MAX_FRONT`], the multiply-adds pass `limit`, or a pivot is not positive.
+    pub(crate) fn new(at: &[u32], adj: &[u32], off: &[f64], diag: &[f64], limit: usize) -> Option<Self> {
+        let m = diag.len();
+        // The elimination graph, each unknown's neighbours in one arena (see `Graph`).
+        let mut graph = Graph::new(at, adj);
+        // Minimum degree on the explicit elimination graph, with a bucket of unknowns per degree.
+        let mut buckets = Buckets::new(m);
+        for v in 0..m {
+            buckets.insert(v, graph.neighbours(v).len());
         }
-        front[..f].copy_from_slice(adj.neighbours(v));
-        let front = &front[..f];
-        work += f * (f + 3) / 2;
-        if work > MAX_WORK_PER_UNKNOWN * m {
-            return None;
-        }
-        for &u in front {
-            let u = u as usize;
-            adj.remove(u, v as u32);
-            mark[u] = u as u32;
-            for &t in adj.neighbours(u) {
-                mark[t as usize] = u as u32;
+        let mut order = Vec::with_capacity(m);
+        // The neighbour set of each elimination (original indices): the factor's column pattern.
+        let mut pattern_at = Vec::with_capacity(m + 1);
+        let mut patterns: Vec<u32> = Vec::new();
+        pattern_at.push(0usize);
+        let mut work = 0usize;
+        let mut front = [0u32; MAX_FRONT];
+        // `mark[t] == stamp` while t is known to be in the list being joined.
+        let mut mark = vec![u32::MAX; m];
+        while let Some(v) = buckets.pop_min() {
+            order.push(v as u32);
+            let f = graph.neighbours(v).len();
+            if f > MAX_FRONT {
+                return None;
             }
-            for &t in front {
-                if mark[t as usize] != u as u32 {
-                    adj.push(u, t);
+            front[..f].copy_from_slice(graph.neighbours(v));
+            let front = &front[..f];
+            work += f * (f + 3) / 2;
+            if work > limit {
+                return None;
+            }
+            for &u in front {
+                let u = u as usize;
+                graph.remove(u, v as u32);
+                mark[u] = u as u32;
+                for &t in graph.neighbours(u) {
+                    mark[t as usize] = u as u32;
+                }
+                for &t in front {
+                    if mark[t as usize] != u as u32 {
+                        graph.push(u, t);
+                    }
+                }
+                buckets.remove(u);
+                buckets.insert(u, graph.neighbours(u).len());
+            }
+            patterns.extend_from_slice(front);
+            pattern_at.push(patterns.len());
+        }
+        drop(graph);
+        debug_assert_eq!(order.len(), m);
+        let mut pos = vec![0u32; m];
+        for (k, &v) in order.iter().enumerate() {
+            pos[v as usize] = k as u32;
+        }
+
+        // The structure of L in elimination order.
+        let mut col = Vec::with_capacity(m + 1);
+        col.push(0u32);
+        let mut row = Vec::with_capacity(patterns.len());
+        for k in 0..m {
+            let start = row.len();
+            row.extend(patterns[pattern_at[k]..pattern_at[k + 1]].iter().map(|&u| pos[u as usize]));
+            row[start..].sort_unstable();
+            col.push(u32::try_from(row.len()).expect("factor entries fit in u32"));
+        }
+        drop(patterns);
+
+        // Numeric factorisation, right-looking: when column k is final, its outer product is
+        // taken from the later columns (every pair of its rows is an entry of L by construction).
+        let mut val = vec![0f64; row.len()];
+        let mut d = vec![0f64; m];
+        for (k, &v) in order.iter().enumerate() {
+            let v = v as usize;
+            d[k] = diag[v];
+            let (a, b) = (col[k] as usize, col[k + 1] as usize);
+            for t in at[v] as usize..at[v + 1] as usize {
+                let j = pos[adj[t] as usize];
+                if j as usize > k {
+                    let at = a + row[a..b].binary_search(&j).expect("a neighbour is in its column");
+                    val[at] = off[t];
                 }
             }
-            buckets.remove(u);
-            buckets.insert(u, adj.neighbours(u).len());
         }
-        patterns.extend_from_slice(front);
-        pattern_at.push(patterns.len());
-    }
-    drop(adj);
-    debug_assert_eq!(order.len(), m);
-    let mut pos = vec![0u32; m];
-    for (k, &v) in order.iter().enumerate() {
-        pos[v as usize] = k as u32;
-    }
-
-    // The structure of L in elimination order.
-    let mut col = Vec::with_capacity(m + 1);
-    col.push(0u32);
-    let mut row = Vec::with_capacity(patterns.len());
-    for k in 0..m {
-        let start = row.len();
-        row.extend(patterns[pattern_at[k]..pattern_at[k + 1]].iter().map(|&u| pos[u as usize]));
-        row[start..].sort_unstable();
-        col.push(u32::try_from(row.len()).expect("factor entries fit in u32"));
-    }
-    drop(patterns);
-    let nbr: Vec<[u32; 4]> =
-        order.iter().map(|&v| nbr0[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] })).collect();
-    let pixel: Vec<u32> = order.iter().map(|&v| pixels[v as usize]).collect();
-
-    // Numeric factorisation, right-looking: when column k is final, its outer product is taken
-    // from the later columns (every pair of its rows is an entry of L by construction).
-    let mut val = vec![0f64; row.len()];
-    let mut diag = vec![0f64; m];
-    for k in 0..m {
-        let p = pixel[k] as usize;
-        let (x, y) = (p % width, p / width);
-        diag[k] = f64::from(u8::from(x > 0) + u8::from(x + 1 < width) + u8::from(y > 0) + u8::from(y + 1 < height));
-        let (a, b) = (col[k] as usize, col[k + 1] as usize);
-        for &j in &nbr[k] {
-            if j != NONE && j as usize > k {
-                let at = a + row[a..b].binary_search(&j).expect("a neighbour is in its column");
-                val[at] = -1.0;
+        let mut inv_diag = vec![0f64; m];
+        for k in 0..m {
+            let dk = d[k];
+            if dk <= 0.0 || !dk.is_finite() {
+                return None;
             }
-        }
-    }
-    let mut inv_diag = vec![0f64; m];
-    for k in 0..m {
-        let d = diag[k];
-        if d <= 0.0 || !d.is_finite() {
-            return None;
-        }
-        let l = d.sqrt();
-        inv_diag[k] = 1.0 / l;
-        let (a, b) = (col[k] as usize, col[k + 1] as usize);
-        for v in &mut val[a..b] {
-            *v /= l;
-        }
-        for s in a..b {
-            let (i, li) = (row[s] as usize, val[s]);
-            diag[i] -= li * li;
-            // Rows after `s` are greater than i: they update column i.
-            let (ca, cb) = (col[i] as usize, col[i + 1] as usize);
-            let mut at = ca;
-            for t in s + 1..b {
-                let r = row[t];
-                // Both lists increase, so the search moves forward only.
-                while row[at] < r {
-                    at += 1;
+            let l = dk.sqrt();
+            inv_diag[k] = 1.0 / l;
+            let (a, b) = (col[k] as usize, col[k + 1] as usize);
+            for v in &mut val[a..b] {
+                *v /= l;
+            }
+            for s in a..b {
+                let (i, li) = (row[s] as usize, val[s]);
+                d[i] -= li * li;
+                // Rows after `s` are greater than i: they update column i.
+                let (ca, cb) = (col[i] as usize, col[i + 1] as usize);
+                let mut at = ca;
+                for t in s + 1..b {
+                    let r = row[t];
+                    // Both lists increase, so the search moves forward only.
+                    while row[at] < r {
+                        at += 1;
+                    }
+                    debug_assert!(at < cb && row[at] == r);
+                    val[at] -= val[t] * li;
                 }
-                debug_assert!(at < cb && row[at] == r);
-                val[at] -= val[t] * li;
+            }
+        }
+        Some(Self { order, col, row, val, inv_diag })
+    }
+
+    /// The elimination position of each of the matrix's unknowns.
+    pub(crate) fn positions(&self) -> Vec<u32> {
+        let mut pos = vec![0u32; self.order.len()];
+        for (k, &v) in self.order.iter().enumerate() {
+            pos[v as usize] = k as u32;
+        }
+        pos
+    }
+
+    /// The matrix's index of the unknown eliminated `k`-th.
+    pub(crate) fn order(&self) -> &[u32] {
+        &self.order
+    }
+
+    /// Bytes held.
+    pub(crate) fn memory_bytes(&self) -> usize {
+        self.order.len() * (4 + 4 + 8) + self.row.len() * 12
+    }
+
+    /// Solves `A·x = b` for `C` right-hand sides at once: `x` holds `b` in elimination order (`C`
+    /// values per unknown) and receives the solution in the same order.
+    pub(crate) fn solve_in_place<const C: usize>(&self, x: &mut [f64]) {
+        let m = self.order.len();
+        debug_assert_eq!(x.len(), m * C);
+        // L·y = b (by columns), then Lᵀ·x = y (by rows of Lᵀ, which are L's columns).
+        for k in 0..m {
+            let d = self.inv_diag[k];
+            let mut yk = [0f64; C];
+            for c in 0..C {
+                yk[c] = x[k * C + c] * d;
+                x[k * C + c] = yk[c];
+            }
+            let (a, e) = (self.col[k] as usize, self.col[k + 1] as usize);
+            for (&i, &l) in self.row[a..e].iter().zip(&self.val[a..e]) {
+                for c in 0..C {
+                    x[i as usize * C + c] -= l * yk[c];
+                }
+            }
+        }
+        for k in (0..m).rev() {
+            let (a, e) = (self.col[k] as usize, self.col[k + 1] as usize);
+            let mut s = [0f64; C];
+            s.copy_from_slice(&x[k * C..(k + 1) * C]);
+            for (&i, &l) in self.row[a..e].iter().zip(&self.val[a..e]) {
+                for c in 0..C {
+                    s[c] -= l * x[i as usize * C + c];
+                }
+            }
+            for c in 0..C {
+                x[k * C + c] = s[c] * self.inv_diag[k];
             }
         }
     }
-    Some(Factor { pixel, nbr, col, row, val, inv_diag })
 }
 
 /// The share of a hole's unknowns whose horizontal and vertical runs are both longer than
 /// [`THICK`], from the neighbours (left, right, up, down; [`NONE`] where absent) of unknowns in
 /// row order.
 #[allow(clippy::cast_precision_loss)] // counts are far below 2^52
-fn thick_share(nbr: &[[u32; 4]]) -> f64 {
+pub(crate) fn thick_share(nbr: &[[u32; 4]]) -> f64 {
     let m = nbr.len();
     // Run lengths along each direction: the count so far from the run's start, then each
     // unknown takes its run's total from the run's end. Left and up neighbours come earlier in
@@ -258,18 +349,21 @@ struct Graph {
 }
 
 impl Graph {
-    /// The graph of the 4-neighbours `nbr` ([`NONE`] where absent), room for 8 each.
-    fn new(nbr: &[[u32; 4]]) -> Self {
-        const ROOM: u32 = 8;
-        let m = nbr.len();
-        let mut g = Self {
-            at: (0..m as u32).map(|v| v * ROOM).collect(),
-            len: vec![0; m],
-            cap: vec![ROOM; m],
-            arena: vec![0; m * ROOM as usize],
-        };
-        for (v, n) in nbr.iter().enumerate() {
-            for &j in n.iter().filter(|&&j| j != NONE) {
+    /// The graph whose unknown `v` has the neighbours `adj[at[v]..at[v + 1]]`, with room for twice
+    /// as many (at least 8).
+    fn new(at: &[u32], adj: &[u32]) -> Self {
+        let m = at.len() - 1;
+        let room = |v: usize| (2 * (at[v + 1] - at[v])).max(8);
+        let mut start = Vec::with_capacity(m);
+        let mut total = 0u32;
+        for v in 0..m {
+            start.push(total);
+            total += room(v);
+        }
+        let mut g =
+            Self { at: start, len: vec![0; m], cap: (0..m).map(room).collect(), arena: vec![0; total as usize] };
+        for v in 0..m {
+            for &j in &adj[at[v] as usize..at[v + 1] as usize] {
                 g.push(v, j);
             }
         }
@@ -376,7 +470,7 @@ impl Factor {
     }
 
     fn memory_bytes(&self) -> usize {
-        self.pixel.len() * (4 + 16 + 4 + 8) + self.row.len() * 12
+        self.pixel.len() * (4 + 16) + self.chol.memory_bytes()
     }
 }
 
@@ -446,35 +540,8 @@ fn solve_hole<const C: usize>(
             b_sq[c] += sum[c] * sum[c];
         }
     }
-    // L·y = b (by columns), then Lᵀ·x = y (by rows of Lᵀ, which are L's columns).
     x.copy_from_slice(&b);
-    for k in 0..m {
-        let d = hole.inv_diag[k];
-        let mut yk = [0f64; C];
-        for c in 0..C {
-            yk[c] = x[k * C + c] * d;
-            x[k * C + c] = yk[c];
-        }
-        let (a, e) = (hole.col[k] as usize, hole.col[k + 1] as usize);
-        for (&i, &l) in hole.row[a..e].iter().zip(&hole.val[a..e]) {
-            for c in 0..C {
-                x[i as usize * C + c] -= l * yk[c];
-            }
-        }
-    }
-    for k in (0..m).rev() {
-        let (a, e) = (hole.col[k] as usize, hole.col[k + 1] as usize);
-        let mut s = [0f64; C];
-        s.copy_from_slice(&x[k * C..(k + 1) * C]);
-        for (&i, &l) in hole.row[a..e].iter().zip(&hole.val[a..e]) {
-            for c in 0..C {
-                s[c] -= l * x[i as usize * C + c];
-            }
-        }
-        for c in 0..C {
-            x[k * C + c] = s[c] * hole.inv_diag[k];
-        }
-    }
+    hole.chol.solve_in_place::<C>(x);
     // The residual b − A·x for the report.
     let mut r_sq = [0f64; C];
     for k in 0..m {

@@ -30,6 +30,7 @@ use crate::mask::Mask;
 
 mod compact;
 mod grid;
+mod thin;
 
 const NONE: u32 = u32::MAX;
 /// Stencil offsets of level 0, centre first.
@@ -429,6 +430,8 @@ pub struct Hierarchy {
     len: usize,
     layout: Layout,
     storage: Storage,
+    /// Thin components solved by a factorisation instead (none for an explicit storage).
+    thin: thin::Thin,
     setup_seconds: f64,
 }
 
@@ -451,17 +454,43 @@ impl Hierarchy {
     pub fn with_structure(mask: &Mask, structure: Structure) -> Result<Self, FillError> {
         let t0 = Instant::now();
         let (w, h) = (mask.width(), mask.height());
-        let runs = crate::mask::row_runs(mask);
+        let mut runs = crate::mask::row_runs(mask);
         let mut pixels = Vec::new();
-        let mut bbox = (usize::MAX, usize::MAX, 0, 0);
         for (y, row) in runs.iter().enumerate() {
             for &(a, b) in row {
                 pixels.extend((a..b).map(|x| crate::mask::index_u32(y * w + x as usize)));
-                bbox = (bbox.0.min(a as usize), bbox.1.min(y), bbox.2.max(b as usize - 1), bbox.3.max(y));
             }
         }
         if !pixels.is_empty() && pixels.len() == w * h {
             return Err(FillError::NoKnownPixels);
+        }
+        // Thin components are factored; the multigrid takes the rest.
+        let thin = if structure == Structure::Auto && !pixels.is_empty() {
+            let (thin, taken) = thin::Thin::plan(w, h, &pixels);
+            if thin.unknowns() > 0 {
+                let mut k = 0;
+                pixels.retain(|_| {
+                    k += 1;
+                    !taken[k - 1]
+                });
+                runs = vec![Vec::new(); h];
+                for &p in &pixels {
+                    let (x, y) = (p % w as u32, p as usize / w);
+                    match runs[y].last_mut() {
+                        Some(run) if run.1 == x => run.1 = x + 1,
+                        _ => runs[y].push((x, x + 1)),
+                    }
+                }
+            }
+            thin
+        } else {
+            thin::Thin::default()
+        };
+        let mut bbox = (usize::MAX, usize::MAX, 0, 0);
+        for (y, row) in runs.iter().enumerate() {
+            for &(a, b) in row {
+                bbox = (bbox.0.min(a as usize), bbox.1.min(y), bbox.2.max(b as usize - 1), bbox.3.max(y));
+            }
         }
         #[allow(clippy::cast_precision_loss)]
         let grid = match structure {
@@ -482,13 +511,29 @@ impl Hierarchy {
             let n = pos.len();
             (Storage::Compact(compact::Levels::new(pos, w, h)), (0..n).collect(), n, Layout::contiguous(n))
         };
-        Ok(Self { width: w, height: h, pixels, slots, len, layout, storage, setup_seconds: t0.elapsed().as_secs_f64() })
+        Ok(Self {
+            width: w,
+            height: h,
+            pixels,
+            slots,
+            len,
+            layout,
+            storage,
+            thin,
+            setup_seconds: t0.elapsed().as_secs_f64(),
+        })
     }
 
     /// Number of unknowns.
     #[must_use]
     pub fn unknowns(&self) -> usize {
-        self.pixels.len()
+        self.pixels.len() + self.thin.unknowns()
+    }
+
+    /// Unknowns solved by a factorisation rather than the multigrid.
+    #[must_use]
+    pub fn factored_unknowns(&self) -> usize {
+        self.thin.unknowns()
     }
 
     /// Number of levels.
@@ -506,7 +551,9 @@ impl Hierarchy {
     /// Bytes held by the hierarchy (not counting the per-image workspace).
     #[must_use]
     pub fn memory_bytes(&self) -> usize {
-        let own = std::mem::size_of_val(self.pixels.as_slice()) + std::mem::size_of_val(self.slots.as_slice());
+        let own = std::mem::size_of_val(self.pixels.as_slice())
+            + std::mem::size_of_val(self.slots.as_slice())
+            + self.thin.memory_bytes();
         own + match &self.storage {
             Storage::Compact(c) => c.memory_bytes(),
             Storage::Grid(g) => g.memory_bytes(),
@@ -615,8 +662,25 @@ impl Hierarchy {
         start: Start,
         progress: &mut (dyn FnMut(&Progress) -> bool + Send),
     ) -> Result<Vec<ChannelReport>, FillError> {
+        // The factored components first: cheap, and a bad rim value stops everything before any
+        // plane is written.
+        let thin: Vec<thin::Solved> =
+            planes.iter().map(|p| self.thin.solve(p, mask.bits())).collect::<Result<_, _>>()?;
+        let combined = |rn_sq: f64, bn_sq: f64, t: &thin::Solved| {
+            let (r, b) = (rn_sq + t.r_sq, bn_sq + t.b_sq);
+            if b > 0.0 { (r / b).sqrt() } else { r.sqrt() }
+        };
         if self.pixels.is_empty() {
-            return Ok(vec![ChannelReport::default(); planes.len()]);
+            for (plane, t) in planes.iter_mut().zip(&thin) {
+                self.thin.write(plane, t);
+            }
+            return Ok(thin
+                .iter()
+                .map(|t| {
+                    let rel = combined(0.0, 0.0, t);
+                    ChannelReport { relative_residual: rel, cycles: 0, history: vec![rel] }
+                })
+                .collect());
         }
         let rhs: Vec<Vec<f64>> = planes.iter().map(|p| self.rhs(p, mask.bits())).collect::<Result<_, _>>()?;
         let starts: Vec<Vec<f64>> = planes
@@ -666,15 +730,19 @@ impl Hierarchy {
             states.par_iter_mut().zip(&done).filter(|(_, d)| !**d).for_each(|(s, _)| s.step(self));
             iteration += 1;
         }
-        // The recurrence's residual drifts from the true one; report the true one.
+        // The recurrence's residual drifts from the true one; report the true one, together with
+        // the factored components'.
         for (c, s) in states.iter_mut().enumerate() {
-            let rel = s.true_relative(self);
+            let own = s.true_relative(self);
+            let bn = if s.bnorm > 0.0 { s.bnorm } else { 1.0 };
+            let rel = combined((own * bn).powi(2), s.bnorm * s.bnorm, &thin[c]);
             reports[c].relative_residual = rel;
             if let Some(last) = reports[c].history.last_mut() {
                 *last = rel;
             }
         }
-        for (plane, s) in planes.iter_mut().zip(&states) {
+        for ((plane, s), t) in planes.iter_mut().zip(&states).zip(&thin) {
+            self.thin.write(plane, t);
             for (&p, &slot) in self.pixels.iter().zip(&self.slots) {
                 #[allow(clippy::cast_possible_truncation)]
                 {

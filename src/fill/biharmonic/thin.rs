@@ -1,0 +1,306 @@
+//! Thin biharmonic holes solved exactly by a sparse Cholesky factorisation made once per mask.
+//!
+//! The biharmonic couplings reach two pixels (the 13-point stencil), so unknowns that close form
+//! one system even across a known pixel between them. Each such component that is thin — few
+//! unknowns with long runs both ways, and sparse in its bounding box — is ordered by minimum
+//! degree and factored ([`SparseCholesky`]), as the harmonic fill does with its thin holes: the
+//! elimination fronts of a scratch stay a few pixels wide. Solving an image is then one forward
+//! and one backward substitution per component. Wide holes and dense scatter (dropout, whose
+//! couplings join half the image into one mesh) stay with the multigrid.
+
+use rayon::prelude::*;
+
+use super::{FINE, fine_row, square_index};
+use crate::fill::FillError;
+use crate::fill::sparse::{MAX_THICK_SHARE, MAX_UNKNOWNS, SparseCholesky, thick_share};
+
+const NONE: u32 = u32::MAX;
+/// Largest multiply-add count of a factorisation, per unknown, before the component is left to
+/// multigrid (one conjugate-gradient solve with its multigrid preconditioner costs over 1000).
+const MAX_WORK_PER_UNKNOWN: usize = 400;
+/// Components of more unknowns than this are tried only when they fill at most
+/// [`MAX_BOX_SHARE`] of their bounding box: random dropout is thin pixel by pixel, but its
+/// couplings make a two-dimensional mesh whose factor grows faster than its size.
+const SMALL: usize = 4096;
+const MAX_BOX_SHARE: f64 = 1.0 / 8.0;
+
+/// One component's factor, its unknowns in elimination order.
+#[derive(Debug)]
+struct Component {
+    pixel: Vec<u32>,
+    /// The neighbours at `FINE[1..]` as elimination positions, [`NONE`] where known or outside.
+    nbr: Vec<[u32; 12]>,
+    chol: SparseCholesky,
+}
+
+/// The factored components of a mask.
+#[derive(Debug, Default)]
+pub(super) struct Thin {
+    width: usize,
+    height: usize,
+    parts: Vec<Component>,
+}
+
+/// What solving the components of one plane gave: the values (component after component, in
+/// elimination order) and the squared norms of the residual and right-hand side.
+pub(super) struct Solved {
+    values: Vec<f32>,
+    pub(super) r_sq: f64,
+    pub(super) b_sq: f64,
+}
+
+/// The union-find root of `i`, halving the path.
+fn root(parent: &mut [u32], mut i: usize) -> usize {
+    while parent[i] as usize != i {
+        let p = parent[i] as usize;
+        parent[i] = parent[p];
+        i = parent[i] as usize;
+    }
+    i
+}
+
+impl Thin {
+    /// Splits the unknowns `pixels` (row-major) of a `width × height` image into coupled
+    /// components and factors the thin ones. Returns them and, per unknown, whether it was taken.
+    #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
+    #[allow(clippy::cast_precision_loss)] // counts are far below 2^52
+    pub(super) fn plan(width: usize, height: usize, pixels: &[u32]) -> (Self, Vec<bool>) {
+        let n = pixels.len();
+        // Each row's unknowns, to find a pixel's index.
+        let mut row_at = vec![0usize; height + 1];
+        for &p in pixels {
+            row_at[p as usize / width + 1] += 1;
+        }
+        for y in 0..height {
+            row_at[y + 1] += row_at[y];
+        }
+        let find = |x: i64, y: i64| -> Option<usize> {
+            if x < 0 || y < 0 || x >= width as i64 || y >= height as i64 {
+                return None;
+            }
+            let (a, b) = (row_at[y as usize], row_at[y as usize + 1]);
+            let p = (y as usize * width + x as usize) as u32;
+            pixels[a..b].binary_search(&p).ok().map(|k| a + k)
+        };
+        // Components: join each unknown to the earlier ones its stencil reaches.
+        let mut parent: Vec<u32> = (0..n as u32).collect();
+        for (i, &p) in pixels.iter().enumerate() {
+            let (x, y) = ((p as usize % width) as i64, (p as usize / width) as i64);
+            for (dx, dy) in [(-1, 0), (-2, 0), (-1, -1), (0, -1), (1, -1), (0, -2)] {
+                if let Some(j) = find(x + dx, y + dy) {
+                    let (a, b) = (root(&mut parent, i), root(&mut parent, j));
+                    if a != b {
+                        parent[a.max(b)] = a.min(b) as u32;
+                    }
+                }
+            }
+        }
+        // Each component's unknowns, in row order; its index of each unknown.
+        let mut members: Vec<Vec<u32>> = Vec::new();
+        let mut slot = vec![NONE; n];
+        let mut local = vec![0u32; n];
+        for (i, l) in local.iter_mut().enumerate() {
+            let r = root(&mut parent, i);
+            if slot[r] == NONE {
+                slot[r] = members.len() as u32;
+                members.push(Vec::new());
+            }
+            let c = &mut members[slot[r] as usize];
+            *l = c.len() as u32;
+            c.push(i as u32);
+        }
+        let interior = fine_row(2, 2, 5, 5);
+        let (w, h) = (width as i64, height as i64);
+        let parts: Vec<Option<Component>> = members
+            .par_iter()
+            .map(|idx| {
+                let m = idx.len();
+                if m > MAX_UNKNOWNS {
+                    return None;
+                }
+                let xy = |i: u32| {
+                    ((pixels[i as usize] as usize % width) as i64, (pixels[i as usize] as usize / width) as i64)
+                };
+                if m > SMALL {
+                    let (mut x0, mut y0, mut x1, mut y1) = (i64::MAX, i64::MAX, i64::MIN, i64::MIN);
+                    for &i in idx {
+                        let (x, y) = xy(i);
+                        (x0, y0, x1, y1) = (x0.min(x), y0.min(y), x1.max(x), y1.max(y));
+                    }
+                    if m as f64 > MAX_BOX_SHARE * ((x1 - x0 + 1) * (y1 - y0 + 1)) as f64 {
+                        return None;
+                    }
+                }
+                let nbr: Vec<[u32; 12]> = idx
+                    .iter()
+                    .map(|&i| {
+                        let (x, y) = xy(i);
+                        std::array::from_fn(|t| {
+                            let (dx, dy) = FINE[t + 1];
+                            find(x + dx, y + dy).map_or(NONE, |j| local[j])
+                        })
+                    })
+                    .collect();
+                // Left, right, up and down are FINE[1..5].
+                let four: Vec<[u32; 4]> = nbr.iter().map(|n| [n[0], n[1], n[2], n[3]]).collect();
+                if thick_share(&four) > MAX_THICK_SHARE {
+                    return None;
+                }
+                // The rows of B: the 13-point stencil, its own near the image edge.
+                let mut at = Vec::with_capacity(m + 1);
+                at.push(0u32);
+                let (mut adj, mut off, mut diag) = (Vec::new(), Vec::new(), Vec::with_capacity(m));
+                for (k, &i) in idx.iter().enumerate() {
+                    let (x, y) = xy(i);
+                    let edge = x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
+                    let square = if edge { fine_row(x, y, w, h) } else { interior };
+                    diag.push(square[square_index((0, 0))]);
+                    for (t, &j) in nbr[k].iter().enumerate() {
+                        let a = square[square_index(FINE[t + 1])];
+                        if j != NONE && a != 0.0 {
+                            adj.push(j);
+                            off.push(a);
+                        }
+                    }
+                    at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
+                }
+                let chol = SparseCholesky::new(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
+                let pos = chol.positions();
+                let order = chol.order();
+                let pixel = order.iter().map(|&k| pixels[idx[k as usize] as usize]).collect();
+                let nbr = order
+                    .iter()
+                    .map(|&k| nbr[k as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] }))
+                    .collect();
+                Some(Component { pixel, nbr, chol })
+            })
+            .collect();
+        let mut taken = vec![false; n];
+        let mut kept = Vec::new();
+        for (idx, part) in members.iter().zip(parts) {
+            if let Some(part) = part {
+                for &i in idx {
+                    taken[i as usize] = true;
+                }
+                kept.push(part);
+            }
+        }
+        (Self { width, height, parts: kept }, taken)
+    }
+
+    /// Unknowns taken.
+    pub(super) fn unknowns(&self) -> usize {
+        self.parts.iter().map(|p| p.pixel.len()).sum()
+    }
+
+    /// Bytes held.
+    pub(super) fn memory_bytes(&self) -> usize {
+        self.parts.iter().map(|p| p.pixel.len() * (4 + 48) + p.chol.memory_bytes()).sum()
+    }
+
+    /// Solves every component for `plane` (`mask`: the image's unknowns, one per pixel).
+    ///
+    /// # Errors
+    /// [`FillError::NonFiniteRim`] when a known value the fill reads is not finite.
+    #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
+    pub(super) fn solve(&self, plane: &[f32], mask: &[bool]) -> Result<Solved, FillError> {
+        let (w, h) = (self.width as i64, self.height as i64);
+        let interior = fine_row(2, 2, 5, 5);
+        let parts: Vec<Result<Solved, FillError>> = self
+            .parts
+            .par_iter()
+            .map(|part| {
+                let m = part.pixel.len();
+                let square_of = |k: usize| {
+                    let p = i64::from(part.pixel[k]);
+                    let (x, y) = (p % w, p / w);
+                    let edge = x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
+                    (x, y, if edge { fine_row(x, y, w, h) } else { interior })
+                };
+                // b = −Σ B_pr·f_r over the known pixels r the row reaches.
+                let mut b = vec![0f64; m];
+                let mut b_sq = 0f64;
+                for (k, bk) in b.iter_mut().enumerate() {
+                    let (x, y, square) = square_of(k);
+                    for &(dx, dy) in &FINE[1..] {
+                        let (ax, ay) = (x + dx, y + dy);
+                        let a = square[square_index((dx, dy))];
+                        if ax < 0 || ay < 0 || ax >= w || ay >= h || a == 0.0 {
+                            continue;
+                        }
+                        let q = (ay * w + ax) as usize;
+                        if mask[q] {
+                            continue;
+                        }
+                        let v = plane[q];
+                        if !v.is_finite() {
+                            return Err(FillError::NonFiniteRim { x: ax as usize, y: ay as usize });
+                        }
+                        *bk -= a * f64::from(v);
+                    }
+                    b_sq += *bk * *bk;
+                }
+                let mut x = b.clone();
+                part.chol.solve_in_place::<1>(&mut x);
+                // The residual b − B·x, for the report.
+                let mut r_sq = 0f64;
+                for k in 0..m {
+                    let (_, _, square) = square_of(k);
+                    let mut r = b[k] - square[square_index((0, 0))] * x[k];
+                    for (t, &j) in part.nbr[k].iter().enumerate() {
+                        if j != NONE {
+                            r -= square[square_index(FINE[t + 1])] * x[j as usize];
+                        }
+                    }
+                    r_sq += r * r;
+                }
+                Ok(Solved { values: x.iter().map(|&v| v as f32).collect(), r_sq, b_sq })
+            })
+            .collect();
+        let mut out = Solved { values: Vec::with_capacity(self.unknowns()), r_sq: 0.0, b_sq: 0.0 };
+        for part in parts {
+            let part = part?;
+            out.values.extend(part.values);
+            out.r_sq += part.r_sq;
+            out.b_sq += part.b_sq;
+        }
+        Ok(out)
+    }
+
+    /// Writes what [`Thin::solve`] gave into `plane`.
+    pub(super) fn write(&self, plane: &mut [f32], solved: &Solved) {
+        for (&p, &v) in self.parts.iter().flat_map(|part| &part.pixel).zip(&solved.values) {
+            plane[p as usize] = v;
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn pixels_of(w: usize, h: usize, mut f: impl FnMut(usize, usize) -> bool) -> Vec<u32> {
+        (0..w * h).filter(|&p| f(p % w, p / w)).map(|p| p as u32).collect()
+    }
+
+    #[test]
+    fn components_join_across_one_known_pixel_but_not_two() {
+        // (5,5) and (7,5) are two apart, within the 13-point stencil's reach; (10,5) is three
+        // from (7,5), and (8,7) one across and two down from it: three steps, out of reach.
+        let pixels = pixels_of(16, 12, |x, y| matches!((x, y), (5, 5) | (7, 5) | (10, 5) | (8, 7)));
+        let (thin, taken) = Thin::plan(16, 12, &pixels);
+        assert!(taken.iter().all(|&t| t), "isolated pixels are thin");
+        let sizes: Vec<usize> = thin.parts.iter().map(|p| p.pixel.len()).collect();
+        assert_eq!(sizes, [2, 1, 1]);
+    }
+
+    #[test]
+    fn dense_scatter_is_left_to_the_multigrid() {
+        let mut rng = crate::synth::Rng::new(3);
+        let pixels = pixels_of(160, 160, |_, _| rng.uniform() < 0.5);
+        let (thin, taken) = Thin::plan(160, 160, &pixels);
+        let share = taken.iter().filter(|&&t| t).count() as f64 / pixels.len() as f64;
+        assert!(share < 0.1, "{share:.3} of dropout's unknowns factored");
+        assert_eq!(thin.unknowns(), taken.iter().filter(|&&t| t).count());
+    }
+}

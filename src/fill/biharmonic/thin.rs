@@ -82,16 +82,46 @@ impl Thin {
             let p = (y as usize * width + x as usize) as u32;
             pixels[a..b].binary_search(&p).ok().map(|k| a + k)
         };
-        // Components: join each unknown to the earlier ones its stencil reaches.
+        // Components: join each unknown to the earlier ones its stencil reaches — two to the left,
+        // three in the row above, one two rows up. The pixels increase, so the searches in the
+        // rows above move forward only.
         let mut parent: Vec<u32> = (0..n as u32).collect();
+        let mut join = |i: usize, j: usize| {
+            let (a, b) = (root(&mut parent, i), root(&mut parent, j));
+            if a != b {
+                parent[a.max(b)] = a.min(b) as u32;
+            }
+        };
+        let (mut above, mut two_above) = (0usize, 0usize);
         for (i, &p) in pixels.iter().enumerate() {
-            let (x, y) = ((p as usize % width) as i64, (p as usize / width) as i64);
-            for (dx, dy) in [(-1, 0), (-2, 0), (-1, -1), (0, -1), (1, -1), (0, -2)] {
-                if let Some(j) = find(x + dx, y + dy) {
-                    let (a, b) = (root(&mut parent, i), root(&mut parent, j));
-                    if a != b {
-                        parent[a.max(b)] = a.min(b) as u32;
-                    }
+            let p = p as usize;
+            let (x, y) = (p % width, p / width);
+            // One or two to the left: the previous two unknowns, if in this row that close.
+            let first = i.saturating_sub(2);
+            for (j, &q) in pixels[first..i].iter().enumerate() {
+                if p - q as usize <= 2 && q as usize >= y * width {
+                    join(i, first + j);
+                }
+            }
+            if y >= 1 {
+                // The first unknown at or after (x − 1, y − 1), then up to (x + 1, y − 1).
+                let from = p - width - usize::from(x > 0);
+                let to = (p - width + usize::from(x + 1 < width)).min(y * width - 1);
+                while above < i && (pixels[above] as usize) < from {
+                    above += 1;
+                }
+                let mut j = above;
+                while j < i && pixels[j] as usize <= to {
+                    join(i, j);
+                    j += 1;
+                }
+            }
+            if y >= 2 {
+                while two_above < i && (pixels[two_above] as usize) < p - 2 * width {
+                    two_above += 1;
+                }
+                if two_above < i && pixels[two_above] as usize == p - 2 * width {
+                    join(i, two_above);
                 }
             }
         }

@@ -97,6 +97,38 @@ fn fine_row(x: i64, y: i64, w: i64, h: i64) -> [f64; 25] {
     row
 }
 
+/// The row of `B` at `(x, y)` of a `w × h` image: `interior` (the row away from the edge) or the
+/// row's own near the edge.
+fn row_square(x: i64, y: i64, w: i64, h: i64, interior: &[f64; 25]) -> [f64; 25] {
+    let edge = x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
+    if edge { fine_row(x, y, w, h) } else { *interior }
+}
+
+/// The right-hand side of the unknown at `(x, y)` whose row is `square`: `−Σ B_pr·f_r` over the
+/// known pixels `r` the row reaches (`mask`: the image's unknowns, `w` pixels a row).
+#[allow(clippy::cast_possible_wrap, clippy::cast_sign_loss, clippy::cast_possible_truncation)]
+fn rhs_at(x: i64, y: i64, square: &[f64; 25], w: i64, plane: &[f32], mask: &[bool]) -> Result<f64, FillError> {
+    let h = (mask.len() as i64) / w;
+    let mut s = 0f64;
+    for &(dx, dy) in &FINE[1..] {
+        let (ax, ay) = (x + dx, y + dy);
+        let a = square[square_index((dx, dy))];
+        if ax < 0 || ay < 0 || ax >= w || ay >= h || a == 0.0 {
+            continue;
+        }
+        let q = (ay * w + ax) as usize;
+        if mask[q] {
+            continue;
+        }
+        let v = plane[q];
+        if !v.is_finite() {
+            return Err(FillError::NonFiniteRim { x: ax as usize, y: ay as usize });
+        }
+        s -= a * f64::from(v);
+    }
+    Ok(s)
+}
+
 #[allow(clippy::cast_sign_loss)]
 fn square_index((dx, dy): (i64, i64)) -> usize {
     ((dy + 2) * 5 + dx + 2) as usize
@@ -624,26 +656,7 @@ impl Hierarchy {
             .par_iter()
             .map(|&p| {
                 let (x, y) = (i64::from(p) % w, i64::from(p) / w);
-                let edge = x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
-                let square = if edge { fine_row(x, y, w, h) } else { interior };
-                let mut s = 0f64;
-                for &(dx, dy) in FINE.iter().skip(1) {
-                    let (ax, ay) = (x + dx, y + dy);
-                    let a = square[square_index((dx, dy))];
-                    if ax < 0 || ay < 0 || ax >= w || ay >= h || a == 0.0 {
-                        continue;
-                    }
-                    let q = (ay * w + ax) as usize;
-                    if mask[q] {
-                        continue;
-                    }
-                    let v = plane[q];
-                    if !v.is_finite() {
-                        return Err(FillError::NonFiniteRim { x: ax as usize, y: ay as usize });
-                    }
-                    s -= a * f64::from(v);
-                }
-                Ok(s)
+                rhs_at(x, y, &row_square(x, y, w, h, &interior), w, plane, mask)
             })
             .collect::<Result<_, _>>()?;
         let mut b = vec![0f64; self.len];

@@ -10,7 +10,7 @@
 
 use rayon::prelude::*;
 
-use super::{FINE, fine_row, square_index};
+use super::{FINE, fine_row, rhs_at, row_square, square_index};
 use crate::fill::FillError;
 use crate::fill::sparse::{MAX_THICK_SHARE, MAX_UNKNOWNS, SparseCholesky, thick_share};
 
@@ -182,8 +182,7 @@ impl Thin {
                 let (mut adj, mut off, mut diag) = (Vec::new(), Vec::new(), Vec::with_capacity(m));
                 for (k, &i) in idx.iter().enumerate() {
                     let (x, y) = xy(i);
-                    let edge = x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
-                    let square = if edge { fine_row(x, y, w, h) } else { interior };
+                    let square = row_square(x, y, w, h, &interior);
                     diag.push(square[square_index((0, 0))]);
                     for (t, &j) in nbr[k].iter().enumerate() {
                         let a = square[square_index(FINE[t + 1])];
@@ -244,30 +243,14 @@ impl Thin {
                 let square_of = |k: usize| {
                     let p = i64::from(part.pixel[k]);
                     let (x, y) = (p % w, p / w);
-                    let edge = x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
-                    (x, y, if edge { fine_row(x, y, w, h) } else { interior })
+                    (x, y, row_square(x, y, w, h, &interior))
                 };
                 // b = −Σ B_pr·f_r over the known pixels r the row reaches.
                 let mut b = vec![0f64; m];
                 let mut b_sq = 0f64;
                 for (k, bk) in b.iter_mut().enumerate() {
                     let (x, y, square) = square_of(k);
-                    for &(dx, dy) in &FINE[1..] {
-                        let (ax, ay) = (x + dx, y + dy);
-                        let a = square[square_index((dx, dy))];
-                        if ax < 0 || ay < 0 || ax >= w || ay >= h || a == 0.0 {
-                            continue;
-                        }
-                        let q = (ay * w + ax) as usize;
-                        if mask[q] {
-                            continue;
-                        }
-                        let v = plane[q];
-                        if !v.is_finite() {
-                            return Err(FillError::NonFiniteRim { x: ax as usize, y: ay as usize });
-                        }
-                        *bk -= a * f64::from(v);
-                    }
+                    *bk = rhs_at(x, y, &square, w, plane, mask)?;
                     b_sq += *bk * *bk;
                 }
                 let mut x = b.clone();

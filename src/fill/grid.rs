@@ -1881,7 +1881,7 @@ mod tests {
         let level = &grid.levels[0];
         assert!(level.segs >= 3, "{} segments", level.segs);
         let own = (0..level.w).filter(|&x| level.id[level.at(x, 7)] > INTERIOR).count();
-        assert!(own > 2 * SEGMENT / 2, "{own} points of row 7 with a stencil of their own");
+        assert!(own > SEGMENT, "{own} points of row 7 with a stencil of their own");
         check_same_operators(&mask);
     }
 

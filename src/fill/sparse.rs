@@ -33,7 +33,7 @@ pub(crate) const MAX_THICK_SHARE: f64 = 1.0 / 64.0;
 /// Largest hole tried.
 pub(crate) const MAX_UNKNOWNS: usize = 1 << 21;
 /// No neighbour.
-const NONE: u32 = u32::MAX;
+pub(crate) const NONE: u32 = u32::MAX;
 
 /// The Cholesky factor `L·Lᵀ` of a sparse symmetric positive definite matrix with its rows and
 /// columns in minimum-degree order.
@@ -129,11 +129,17 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Fact
         })
         .collect();
     let chol = SparseCholesky::new(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
-    let pos = chol.positions();
-    let nbr =
-        chol.order.iter().map(|&v| nbr0[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] })).collect();
-    let pixel = chol.order.iter().map(|&v| pixels[v as usize]).collect();
-    Some(Factor { pixel, nbr, chol })
+    Some(Factor { pixel: chol.in_order(pixels), nbr: chol.renumber(&nbr0), chol })
+}
+
+/// The elimination position of each unknown, from the unknowns in elimination order.
+#[allow(clippy::cast_possible_truncation)] // the unknowns are counted in u32
+fn positions(order: &[u32]) -> Vec<u32> {
+    let mut pos = vec![0u32; order.len()];
+    for (k, &v) in order.iter().enumerate() {
+        pos[v as usize] = k as u32;
+    }
+    pos
 }
 
 impl SparseCholesky {
@@ -191,10 +197,7 @@ impl SparseCholesky {
         }
         drop(graph);
         debug_assert_eq!(order.len(), m);
-        let mut pos = vec![0u32; m];
-        for (k, &v) in order.iter().enumerate() {
-            pos[v as usize] = k as u32;
-        }
+        let pos = positions(&order);
 
         // The structure of L in elimination order.
         let mut col = Vec::with_capacity(m + 1);
@@ -256,18 +259,16 @@ impl SparseCholesky {
         Some(Self { order, col, row, val, inv_diag })
     }
 
-    /// The elimination position of each of the matrix's unknowns.
-    pub(crate) fn positions(&self) -> Vec<u32> {
-        let mut pos = vec![0u32; self.order.len()];
-        for (k, &v) in self.order.iter().enumerate() {
-            pos[v as usize] = k as u32;
-        }
-        pos
+    /// `of` (one item per unknown of the matrix) in elimination order.
+    pub(crate) fn in_order<T: Copy>(&self, of: &[T]) -> Vec<T> {
+        self.order.iter().map(|&v| of[v as usize]).collect()
     }
 
-    /// The matrix's index of the unknown eliminated `k`-th.
-    pub(crate) fn order(&self) -> &[u32] {
-        &self.order
+    /// Neighbour lists (the matrix's indices, [`NONE`] for none) in elimination order, and as
+    /// elimination positions.
+    pub(crate) fn renumber<const K: usize>(&self, nbr: &[[u32; K]]) -> Vec<[u32; K]> {
+        let pos = positions(&self.order);
+        self.order.iter().map(|&v| nbr[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] })).collect()
     }
 
     /// Bytes held.

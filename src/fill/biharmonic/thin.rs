@@ -12,9 +12,7 @@ use rayon::prelude::*;
 
 use super::{FINE, fine_row, rhs_at, row_square, square_index};
 use crate::fill::FillError;
-use crate::fill::sparse::{MAX_THICK_SHARE, MAX_UNKNOWNS, SparseCholesky, thick_share};
-
-const NONE: u32 = u32::MAX;
+use crate::fill::sparse::{MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, thick_share};
 /// Largest multiply-add count of a factorisation, per unknown, before the component is left to
 /// multigrid (one conjugate-gradient solve with its multigrid preconditioner costs over 1000).
 const MAX_WORK_PER_UNKNOWN: usize = 400;
@@ -194,14 +192,8 @@ impl Thin {
                     at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
                 }
                 let chol = SparseCholesky::new(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
-                let pos = chol.positions();
-                let order = chol.order();
-                let pixel = order.iter().map(|&k| pixels[idx[k as usize] as usize]).collect();
-                let nbr = order
-                    .iter()
-                    .map(|&k| nbr[k as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] }))
-                    .collect();
-                Some(Component { pixel, nbr, chol })
+                let pixel = chol.in_order(idx).iter().map(|&i| pixels[i as usize]).collect();
+                Some(Component { pixel, nbr: chol.renumber(&nbr), chol })
             })
             .collect();
         let mut taken = vec![false; n];

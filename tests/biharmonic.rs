@@ -214,11 +214,12 @@ fn iterations_barely_grow_with_the_hole() {
         let report = fill_with(FillMethod::Biharmonic, &mask, &mut plane, 1e-6);
         counts.push(report.channels[0].cycles);
     }
-    // Multigrid-preconditioned conjugate gradients: a count that grows at most by a few
-    // iterations per doubling keeps the work close to linear in the unknowns (common practice;
-    // a V-cycle preconditioner needed 17, 26, 38 and 53 iterations on 128²–1024² squares).
-    assert!(counts.iter().all(|&c| c <= 20), "iterations {counts:?}");
-    assert!(counts[3] <= counts[0] + 6, "iterations grow with the size: {counts:?}");
+    // Conjugate gradients preconditioned by a K-cycle keep the count nearly independent of the
+    // size (Notay & Vassilevski 2008, §4), so the work stays linear in the unknowns; a V-cycle
+    // preconditioner needed 17, 26, 38 and 53 iterations on 128²–1024² squares, a W-cycle 11
+    // to 17.
+    assert!(counts.iter().all(|&c| c <= 12), "iterations {counts:?}");
+    assert!(counts[3] <= counts[0] + 2, "iterations grow with the size: {counts:?}");
 }
 
 #[test]

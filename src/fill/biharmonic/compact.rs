@@ -8,9 +8,8 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, LevelWork,
-    MIN_REDUCTION, NONE, Shared, banded, bands, dense_coarsest, fine_row, square_index,
+    MIN_REDUCTION, NONE, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights, square_index,
 };
-use crate::fill::Cycle;
 
 /// One level: points sorted row-major, their neighbours and operator rows, and the transfer to
 /// the next coarser level.
@@ -328,8 +327,8 @@ impl Levels {
         Self { levels, coarsest }
     }
 
-    /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
-    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f64>], kind: Cycle) {
+    /// One K-cycle from level `l` with a zero start: `u ≈ A⁻¹·b`.
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f64>]) {
         let level = &self.levels[l];
         let (head, tail) = work.split_at_mut(l + 1);
         let w = &mut head[l];
@@ -364,28 +363,9 @@ impl Levels {
                 }
             }
         }
-        let (first, second) = match kind {
-            Cycle::V => (Cycle::V, None),
-            Cycle::W => (Cycle::W, Some(Cycle::W)),
-            Cycle::F => (Cycle::F, Some(Cycle::V)),
-        };
-        self.cycle(l + 1, work, first);
-        if let Some(second) = second
-            && l + 2 < self.levels.len()
-        {
-            // A second visit, on what the first left of the coarse residual.
-            let coarse = &self.levels[l + 1];
-            let next = &mut work[l + 1];
-            next.keep.copy_from_slice(&next.u);
-            coarse.apply(&next.u, &mut next.r);
-            for (b, ax) in next.b.iter_mut().zip(&next.r) {
-                *b -= ax;
-            }
-            self.cycle(l + 1, work, second);
-            let next = &mut work[l + 1];
-            for (u, k) in next.u.iter_mut().zip(&next.keep) {
-                *u += k;
-            }
+        self.cycle(l + 1, work);
+        if l + 2 < self.levels.len() {
+            self.second_visit(l + 1, work);
         }
         let (head, tail) = work.split_at_mut(l + 1);
         let (w, next) = (&mut head[l], &tail[0]);
@@ -400,6 +380,32 @@ impl Levels {
         }
         for _ in 0..sweeps {
             level.sweep(&mut w.u, &w.b, true);
+        }
+    }
+
+    /// Visits coarse level `l` again after [`Levels::cycle`] left `c₁` in its `u`, and combines
+    /// the two corrections ([`krylov_weights`]). Overwrites the level's `b` and `r`.
+    fn second_visit(&self, l: usize, work: &mut [LevelWork<f64>]) {
+        let level = &self.levels[l];
+        let w = &mut work[l];
+        std::mem::swap(&mut w.u, &mut w.keep);
+        level.apply(&w.keep, &mut w.r);
+        let (rho1, alpha1) = (dot_run(&w.keep, &w.r), dot_run(&w.keep, &w.b));
+        if !(rho1 > 0.0 && rho1.is_finite()) {
+            std::mem::swap(&mut w.u, &mut w.keep);
+            return;
+        }
+        let k = alpha1 / rho1;
+        for (b, ac1) in w.b.iter_mut().zip(&w.r) {
+            *b -= k * ac1;
+        }
+        self.cycle(l, work);
+        let w = &mut work[l];
+        level.apply(&w.u, &mut w.r);
+        let (gamma, beta, alpha2) = (dot_run(&w.keep, &w.r), dot_run(&w.u, &w.r), dot_run(&w.u, &w.b));
+        let (k1, k2) = krylov_weights(rho1, alpha1, gamma, beta, alpha2);
+        for (u, c1) in w.u.iter_mut().zip(&w.keep) {
+            *u = k1 * c1 + k2 * *u;
         }
     }
 }

@@ -15,9 +15,8 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, Layout, LevelWork,
-    MIN_REDUCTION, Real, Shared, banded, bands, dense_coarsest, fine_row, square_index,
+    MIN_REDUCTION, Real, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights, square_index,
 };
-use crate::fill::Cycle;
 
 /// Empty cells around the points' bounding box.
 const PAD: i64 = 2;
@@ -85,11 +84,17 @@ impl<T: Real> Coefs<T> {
         let inv_diag = table.chunks_exact(k).map(|r| T::of(1.0 / r[0].get())).collect();
         let shared_terms: Vec<(T, isize)> = table[..k].iter().copied().zip(cell_off.iter().copied()).collect();
         let slot = |o: (i64, i64)| offsets.iter().position(|&q| q == o).expect("same-row neighbours");
+        // Terms whose coefficient is zero are left out: the corners of every coarse level's
+        // shared row and the diagonal neighbours of the first one's (8 of 24 there).
         let recurrence = [((-1, 0), (-2, 0)), ((1, 0), (2, 0))].map(|(near, far)| {
             let (near, far) = (slot(near), slot(far));
-            let terms = (1..k).filter(|&t| t != near && t != far).map(|t| shared_terms[t]).collect();
+            let terms = (1..k)
+                .filter(|&t| t != near && t != far && shared_terms[t].0 != T::default())
+                .map(|t| shared_terms[t])
+                .collect();
             (near, far, terms)
         });
+        let shared_terms = shared_terms.into_iter().filter(|t| t.0 != T::default()).collect();
         Self { table, inv_diag, shared_terms, recurrence }
     }
 }
@@ -615,8 +620,8 @@ impl Levels {
             .collect()
     }
 
-    /// One symmetric cycle (`kind`) from level `l` with a zero start: `u ≈ A⁻¹·b`.
-    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f32>], kind: Cycle) {
+    /// One K-cycle from level `l` with a zero start: `u ≈ A⁻¹·b`.
+    pub(super) fn cycle(&self, l: usize, work: &mut [LevelWork<f32>]) {
         let level = &self.levels[l];
         let w = &mut work[l];
         level.layout.fill_zero(&mut w.u);
@@ -654,24 +659,9 @@ impl Levels {
         level.residual(&w.u, Some(&w.b), &mut w.r);
         let (head, tail) = work.split_at_mut(l + 1);
         restrict(level, &head[l].r, &self.levels[l + 1], &mut tail[0].b);
-        let (first, second) = match kind {
-            Cycle::V => (Cycle::V, None),
-            Cycle::W => (Cycle::W, Some(Cycle::W)),
-            Cycle::F => (Cycle::F, Some(Cycle::V)),
-        };
-        self.cycle(l + 1, work, first);
-        if let Some(second) = second
-            && l + 2 < self.levels.len()
-        {
-            // A second visit, on what the first left of the coarse residual.
-            let coarse = &self.levels[l + 1];
-            let next = &mut work[l + 1];
-            coarse.layout.copy(&next.u, &mut next.keep);
-            coarse.residual(&next.u, Some(&next.b), &mut next.r);
-            coarse.layout.copy(&next.r, &mut next.b);
-            self.cycle(l + 1, work, second);
-            let next = &mut work[l + 1];
-            coarse.layout.add_scaled(1.0, &next.keep, &mut next.u);
+        self.cycle(l + 1, work);
+        if l + 2 < self.levels.len() {
+            self.second_visit(l + 1, work);
         }
         let (head, tail) = work.split_at_mut(l + 1);
         let w = &mut head[l];
@@ -679,6 +669,42 @@ impl Levels {
         for _ in 0..sweeps {
             level.sweep(&mut w.u, &w.b, true);
         }
+    }
+}
+
+impl Levels {
+    /// Visits coarse level `l` again after [`Levels::cycle`] left `c₁` in its `u`, and combines
+    /// the two corrections ([`krylov_weights`]). Overwrites the level's `b` and `r`.
+    fn second_visit(&self, l: usize, work: &mut [LevelWork<f32>]) {
+        let level = &self.levels[l];
+        let w = &mut work[l];
+        std::mem::swap(&mut w.u, &mut w.keep);
+        level.residual(&w.keep, None, &mut w.r);
+        let (c1, ac1, b) = (&w.keep, &w.r, &w.b);
+        let [rho1, alpha1] = level.layout.sums(|s, e| [dot_run(&c1[s..e], &ac1[s..e]), dot_run(&c1[s..e], &b[s..e])]);
+        if !(rho1 > 0.0 && rho1.is_finite()) {
+            std::mem::swap(&mut w.u, &mut w.keep);
+            return;
+        }
+        #[allow(clippy::cast_possible_truncation)]
+        level.layout.add_scaled(-(alpha1 / rho1) as f32, &w.r, &mut w.b);
+        self.cycle(l, work);
+        let w = &mut work[l];
+        level.residual(&w.u, None, &mut w.r);
+        let (c1, c2, ac2, b) = (&w.keep, &w.u, &w.r, &w.b);
+        let [gamma, beta, alpha2] = level.layout.sums(|s, e| {
+            let ac2 = &ac2[s..e];
+            [dot_run(&c1[s..e], ac2), dot_run(&c2[s..e], ac2), dot_run(&c2[s..e], &b[s..e])]
+        });
+        let (k1, k2) = krylov_weights(rho1, alpha1, gamma, beta, alpha2);
+        #[allow(clippy::cast_possible_truncation)]
+        let (k1, k2) = (k1 as f32, k2 as f32);
+        let c1 = &w.keep;
+        level.layout.for_each_mut(&mut w.u, |_, s, u| {
+            for (u, c1) in u.iter_mut().zip(&c1[s..]) {
+                *u = k1 * *c1 + k2 * *u;
+            }
+        });
     }
 }
 

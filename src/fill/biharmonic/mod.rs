@@ -12,12 +12,13 @@
 //! known pixels fixed: the smoothest surface in the sense of curvature, which continues slopes
 //! across the rim instead of putting a kink there as the harmonic fill does.
 //!
-//! The solver is conjugate gradients preconditioned by one symmetric multigrid W-cycle: coarse
+//! The solver is flexible conjugate gradients preconditioned by one multigrid K-cycle: coarse
 //! points are the fine points with both coordinates even, interpolation is bilinear with missing
 //! parents left out (the Dirichlet condition), coarse operators are Galerkin `Pᵀ·B·P` (5×5
 //! stencils on every coarser level), lexicographic Gauss-Seidel runs forward before and backward
-//! after the correction, and the coarsest level is factored densely. Work and memory follow the
-//! unknowns.
+//! after the correction, each coarse level is visited twice with the two corrections combined by
+//! one step of conjugate gradients (Notay & Vassilevski 2008, "Recursive Krylov-based multigrid
+//! cycles"), and the coarsest level is factored densely. Work and memory follow the unknowns.
 
 use std::ops::Range;
 use std::time::Instant;
@@ -25,7 +26,7 @@ use std::time::Instant;
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
-use super::{ChannelReport, Cycle, FillError, FillParams, Progress, Start, Structure};
+use super::{ChannelReport, FillError, FillParams, Progress, Start, Structure};
 use crate::mask::Mask;
 
 mod compact;
@@ -60,10 +61,23 @@ const COARSEST_MAX: usize = 400;
 const DENSE_MAX: usize = 1200;
 /// A coarse level must have at most this share of the finer level's points.
 const MIN_REDUCTION: f64 = 0.7;
-/// The preconditioner's cycle. With V-cycles the iterations grew about 1.45× per doubling of a
-/// wide hole (17, 26, 38, 53 on squares of 128² to 1024²); W-cycles keep them nearly flat (11,
-/// 12, 14, 16) for about 1.5× the work per iteration; F-cycles fell between (11, 15, 19, 23).
-const CYCLE: Cycle = Cycle::W;
+/// Combines the two visits of a coarse level in a K-cycle: with `c₁` the first visit's result for
+/// the right-hand side `b`, `c₂` the second's for `b − (α₁/ρ₁)·A·c₁`, and `ρ₁ = c₁·A·c₁`,
+/// `α₁ = c₁·b`, `γ = c₁·A·c₂`, `β = c₂·A·c₂`, `α₂ = c₂·(b − (α₁/ρ₁)·A·c₁)`, the correction is
+/// `k₁·c₁ + k₂·c₂`, the minimiser of the energy error over the two (Notay & Vassilevski 2008,
+/// Algorithm 3.1 with two inner iterations). `A` symmetric gives `γ = c₂·A·c₁` from `A·c₂`, so
+/// `A·c₁` need not be kept through the second visit.
+///
+/// Measured on squares of 128² to 1024²: V-cycles needed 17, 26, 38, 53 iterations, W-cycles
+/// 11, 14, 15, 17, F-cycles 11, 15, 19, 23; the K-cycle 9, 9, 9, 9 for about 1.2× a W-cycle's work.
+/// Even an exact coarse solve took 9 to 11, and stronger smoothing (Chebyshev, up to 16 steps)
+/// one fewer: the bilinear coarse space decides, and the K-cycle comes close to its limit.
+fn krylov_weights(rho1: f64, alpha1: f64, gamma: f64, beta: f64, alpha2: f64) -> (f64, f64) {
+    let k1 = alpha1 / rho1;
+    let rho2 = beta - gamma * gamma / rho1;
+    if rho2 > 0.0 && rho2.is_finite() { (k1 - gamma * alpha2 / (rho1 * rho2), alpha2 / rho2) } else { (k1, 0.0) }
+}
+
 /// Gauss-Seidel sweeps before and after the correction on the finest level (the harmonic
 /// fill's `FillParams::pre_smooth`/`post_smooth` do not apply: this smoother must stay symmetric
 /// for conjugate gradients, and 1, 2 or 3 sweeps took the same time).
@@ -326,54 +340,72 @@ impl Layout {
     }
 
     /// As [`Layout::for_each_mut`], adding up what `f` returns in a fixed order (the same
-    /// result on any thread count). The groups are halved recursively with `rayon::join`, so a
-    /// call allocates nothing (it runs inside every cycle).
+    /// result on any thread count).
     fn sum_mut<T: Send>(&self, v: &mut [T], f: impl Fn(usize, usize, &mut [T]) -> f64 + Sync) -> f64 {
+        self.sums_mut(v, |k, s, t| [f(k, s, t)])[0]
+    }
+
+    /// As [`Layout::sum_mut`] for `K` sums at once. The groups are halved recursively with
+    /// `rayon::join`, so a call allocates nothing (it runs inside every cycle).
+    fn sums_mut<T: Send, const K: usize>(
+        &self,
+        v: &mut [T],
+        f: impl Fn(usize, usize, &mut [T]) -> [f64; K] + Sync,
+    ) -> [f64; K] {
         self.sum_groups(&self.groups, v, 0, &f)
     }
 
-    /// [`Layout::sum_mut`] over `groups`, whose slots start at `base` in `v`.
-    fn sum_groups<T: Send>(
+    /// [`Layout::sums_mut`] over `groups`, whose slots start at `base` in `v`.
+    fn sum_groups<T: Send, const K: usize>(
         &self,
         groups: &[Range<usize>],
         v: &mut [T],
         base: usize,
-        f: &(impl Fn(usize, usize, &mut [T]) -> f64 + Sync),
-    ) -> f64 {
+        f: &(impl Fn(usize, usize, &mut [T]) -> [f64; K] + Sync),
+    ) -> [f64; K] {
+        let add = |x: [f64; K], y: [f64; K]| std::array::from_fn(|i| x[i] + y[i]);
         match groups {
-            [] => 0.0,
-            [g] => g
-                .clone()
-                .map(|k| {
-                    let (s, e) = self.spans[k];
-                    f(k, s, &mut v[s - base..e - base])
-                })
-                .sum(),
+            [] => [0.0; K],
+            [g] => g.clone().fold([0.0; K], |acc, k| {
+                let (s, e) = self.spans[k];
+                add(acc, f(k, s, &mut v[s - base..e - base]))
+            }),
             _ => {
                 let (left, right) = groups.split_at(groups.len() / 2);
                 let cut = self.spans[right[0].start].0;
                 let (a, b) = v.split_at_mut(cut - base);
                 let (x, y) = rayon::join(|| self.sum_groups(left, a, base, f), || self.sum_groups(right, b, cut, f));
-                x + y
+                add(x, y)
+            }
+        }
+    }
+
+    /// `K` sums of `f(first slot, end slot)` over the spans, in a fixed order (the same result on
+    /// any thread count); for reading vectors.
+    fn sums<const K: usize>(&self, f: impl Fn(usize, usize) -> [f64; K] + Sync) -> [f64; K] {
+        self.read_groups(&self.groups, &f)
+    }
+
+    fn read_groups<const K: usize>(
+        &self,
+        groups: &[Range<usize>],
+        f: &(impl Fn(usize, usize) -> [f64; K] + Sync),
+    ) -> [f64; K] {
+        let add = |x: [f64; K], y: [f64; K]| std::array::from_fn(|i| x[i] + y[i]);
+        match groups {
+            [] => [0.0; K],
+            [g] => self.spans[g.clone()].iter().fold([0.0; K], |acc, &(s, e)| add(acc, f(s, e))),
+            _ => {
+                let (left, right) = groups.split_at(groups.len() / 2);
+                let (x, y) = rayon::join(|| self.read_groups(left, f), || self.read_groups(right, f));
+                add(x, y)
             }
         }
     }
 
     /// `Σ a·b` over the points, summed in a fixed order (the same result on any thread count).
     fn dot(&self, a: &[f64], b: &[f64]) -> f64 {
-        self.dot_groups(&self.groups, a, b)
-    }
-
-    fn dot_groups(&self, groups: &[Range<usize>], a: &[f64], b: &[f64]) -> f64 {
-        match groups {
-            [] => 0.0,
-            [g] => self.spans[g.clone()].iter().map(|&(s, e)| dot_run(&a[s..e], &b[s..e])).sum(),
-            _ => {
-                let (left, right) = groups.split_at(groups.len() / 2);
-                let (x, y) = rayon::join(|| self.dot_groups(left, a, b), || self.dot_groups(right, a, b));
-                x + y
-            }
-        }
+        self.sums(|s, e| [dot_run(&a[s..e], &b[s..e])])[0]
     }
 
     /// `to = from` over the points, converted.
@@ -399,14 +431,14 @@ impl Layout {
     }
 }
 
-/// `Σ a·b` in four partial sums.
-fn dot_run(a: &[f64], b: &[f64]) -> f64 {
+/// `Σ a·b` in four partial sums, in `f64`.
+fn dot_run<T: Real>(a: &[T], b: &[T]) -> f64 {
     let mut s = [0f64; 4];
     let (ac, bc) = (a.chunks_exact(4), b.chunks_exact(4));
-    let tail: f64 = ac.remainder().iter().zip(bc.remainder()).map(|(x, y)| x * y).sum();
+    let tail: f64 = ac.remainder().iter().zip(bc.remainder()).map(|(x, y)| x.get() * y.get()).sum();
     for (x, y) in ac.zip(bc) {
         for k in 0..4 {
-            s[k] += x[k] * y[k];
+            s[k] += x[k].get() * y[k].get();
         }
     }
     (s[0] + s[1]) + (s[2] + s[3]) + tail
@@ -417,7 +449,7 @@ struct LevelWork<T> {
     u: Vec<T>,
     b: Vec<T>,
     r: Vec<T>,
-    /// The first visit's correction during the second visit of a W-cycle.
+    /// The first visit's correction during the second visit of a K-cycle.
     keep: Vec<T>,
     /// The points in order, for the coarsest level's dense solve (grid storage).
     dense: Vec<f64>,
@@ -620,30 +652,31 @@ impl Hierarchy {
         }
     }
 
-    /// `z ≈ B⁻¹·r` by one cycle; returns `r·z`.
-    fn precondition(&self, work: &mut Work, r: &[f64], z: &mut [f64]) -> f64 {
+    /// `z ≈ B⁻¹·r` by one cycle; returns `r·z` and `q·z`.
+    fn precondition(&self, work: &mut Work, r: &[f64], q: &[f64], z: &mut [f64]) -> (f64, f64) {
         let u = match (&self.storage, work) {
             (Storage::Compact(c), Work::Compact(w)) => {
                 self.layout.copy(r, &mut w[0].b);
-                c.cycle(0, w, CYCLE);
+                c.cycle(0, w);
                 Ok(&w[0].u)
             }
             (Storage::Grid(g), Work::Grid(w)) => {
                 self.layout.copy(r, &mut w[0].b);
-                g.cycle(0, w, CYCLE);
+                g.cycle(0, w);
                 Err(&w[0].u)
             }
             _ => unreachable!("scratch made by this hierarchy"),
         };
-        // Bring the result over and take its product with `r` in the same pass.
-        self.layout.sum_mut(z, |_, s, z| {
-            let r = &r[s..s + z.len()];
+        // Bring the result over and take its products with `r` and `q` in the same pass.
+        let [rz, qz] = self.layout.sums_mut(z, |_, s, z| {
+            let (r, q) = (&r[s..s + z.len()], &q[s..s + z.len()]);
             match u {
                 Ok(u) => z.copy_from_slice(&u[s..s + z.len()]),
                 Err(u) => z.iter_mut().zip(&u[s..]).for_each(|(z, u)| *z = f64::from(*u)),
             }
-            dot_run(r, z)
-        })
+            [dot_run(r, z), dot_run(q, z)]
+        });
+        (rz, qz)
     }
 
     /// The right-hand side of one plane: `−Σ B_pr·f_r` over the known pixels `r` of each row.
@@ -781,6 +814,8 @@ struct Pcg {
     rz: f64,
     work: Work,
     started: bool,
+    /// The last step length.
+    alpha: f64,
 }
 
 impl Pcg {
@@ -793,7 +828,7 @@ impl Pcg {
         hier.layout.add_scaled(-1.0, &q, &mut r);
         let bnorm = hier.layout.dot(&b, &b).sqrt();
         let rr = hier.layout.dot(&r, &r);
-        Self { b, bnorm, x, r, rr, p: vec![0.0; n], q, z: vec![0.0; n], rz: 0.0, work: hier.work(), started: false }
+        Self { b, bnorm, x, r, rr, p: vec![0.0; n], q, z: vec![0.0; n], rz: 0.0, work: hier.work(), started: false, alpha: 0.0 }
     }
 
     fn relative(&self) -> f64 {
@@ -808,13 +843,18 @@ impl Pcg {
         if self.bnorm > 0.0 { rn / self.bnorm } else { rn }
     }
 
-    /// One preconditioned conjugate-gradient step.
+    /// One step of flexible conjugate gradients: the K-cycle is not a fixed linear map, so the
+    /// new direction is made conjugate to the last one explicitly, `β = −(z·A·p)/(p·A·p)`
+    /// (Notay 2000, "Flexible conjugate gradients"); with a fixed symmetric preconditioner this is
+    /// the usual `β = (r·z)/(r₋₁·z₋₁)`.
     fn step(&mut self, hier: &Hierarchy) {
         let layout = &hier.layout;
-        let rz = hier.precondition(&mut self.work, &self.r, &mut self.z);
+        // `q` still holds `A·p` of the last step.
+        let (rz, qz) = hier.precondition(&mut self.work, &self.r, &self.q, &mut self.z);
         let z = &self.z;
         if self.started && self.rz != 0.0 {
-            let beta = rz / self.rz;
+            // `p·A·p = r₋₁·z₋₁ / α`.
+            let beta = -self.alpha * qz / self.rz;
             layout.for_each_mut(&mut self.p, |_, s, p| {
                 for (p, z) in p.iter_mut().zip(&z[s..]) {
                     *p = z + beta * *p;
@@ -831,6 +871,7 @@ impl Pcg {
             return;
         }
         let alpha = rz / pq;
+        self.alpha = alpha;
         layout.add_scaled(alpha, &self.p, &mut self.x);
         let q = &self.q;
         self.rr = layout.sum_mut(&mut self.r, |_, s, r| {

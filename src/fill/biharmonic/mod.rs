@@ -270,6 +270,15 @@ impl<T: Copy> Shared<T> {
     }
 
     /// # Safety
+    /// `c..c + n` is in bounds and nothing else reads or writes it while the slice lives.
+    #[allow(clippy::mut_from_ref)]
+    unsafe fn slice_mut<'a>(self, c: usize, n: usize) -> &'a mut [T] {
+        debug_assert!(c + n <= self.1);
+        // SAFETY: the caller's contract.
+        unsafe { std::slice::from_raw_parts_mut(self.0.add(c), n) }
+    }
+
+    /// # Safety
     /// `c..c + n` is in bounds and nothing writes it while the slice lives.
     unsafe fn slice<'a>(self, c: usize, n: usize) -> &'a [T] {
         debug_assert!(c + n <= self.1);
@@ -432,7 +441,7 @@ impl Layout {
 }
 
 /// `Σ a·b` in four partial sums, in `f64`.
-fn dot_run<T: Real>(a: &[T], b: &[T]) -> f64 {
+fn dot_run<A: Real, B: Real>(a: &[A], b: &[B]) -> f64 {
     let mut s = [0f64; 4];
     let (ac, bc) = (a.chunks_exact(4), b.chunks_exact(4));
     let tail: f64 = ac.remainder().iter().zip(bc.remainder()).map(|(x, y)| x.get() * y.get()).sum();
@@ -652,31 +661,13 @@ impl Hierarchy {
         }
     }
 
-    /// `z ≈ B⁻¹·r` by one cycle; returns `r·z` and `q·z`.
-    fn precondition(&self, work: &mut Work, r: &[f64], q: &[f64], z: &mut [f64]) -> (f64, f64) {
-        let u = match (&self.storage, work) {
-            (Storage::Compact(c), Work::Compact(w)) => {
-                self.layout.copy(r, &mut w[0].b);
-                c.cycle(0, w);
-                Ok(&w[0].u)
-            }
-            (Storage::Grid(g), Work::Grid(w)) => {
-                self.layout.copy(r, &mut w[0].b);
-                g.cycle(0, w);
-                Err(&w[0].u)
-            }
+    /// Runs one cycle on the right-hand side already in `work` (see [`update_residual`]).
+    fn precondition(&self, work: &mut Work) {
+        match (&self.storage, work) {
+            (Storage::Compact(c), Work::Compact(w)) => c.cycle(0, w),
+            (Storage::Grid(g), Work::Grid(w)) => g.cycle(0, w),
             _ => unreachable!("scratch made by this hierarchy"),
-        };
-        // Bring the result over and take its products with `r` and `q` in the same pass.
-        let [rz, qz] = self.layout.sums_mut(z, |_, s, z| {
-            let (r, q) = (&r[s..s + z.len()], &q[s..s + z.len()]);
-            match u {
-                Ok(u) => z.copy_from_slice(&u[s..s + z.len()]),
-                Err(u) => z.iter_mut().zip(&u[s..]).for_each(|(z, u)| *z = f64::from(*u)),
-            }
-            [dot_run(r, z), dot_run(q, z)]
-        });
-        (rz, qz)
+        }
     }
 
     /// The right-hand side of one plane: `−Σ B_pr·f_r` over the known pixels `r` of each row.
@@ -779,6 +770,7 @@ impl Hierarchy {
         // The recurrence's residual drifts from the true one; report the true one, together with
         // the factored components'.
         for (c, s) in states.iter_mut().enumerate() {
+            s.finish(self);
             let own = s.true_relative(self);
             let bn = if s.bnorm > 0.0 { s.bnorm } else { 1.0 };
             let rel = combined((own * bn).powi(2), s.bnorm * s.bnorm, &thin[c]);
@@ -804,17 +796,20 @@ impl Hierarchy {
 struct Pcg {
     b: Vec<f64>,
     bnorm: f64,
+    /// The iterate, one step behind: the last step's `α·p` is added with the next direction
+    /// (one pass fewer); [`Pcg::finish`] adds it at the end.
     x: Vec<f64>,
     r: Vec<f64>,
     /// `r·r`, kept up to date with `r`.
     rr: f64,
     p: Vec<f64>,
     q: Vec<f64>,
-    z: Vec<f64>,
     rz: f64,
+    /// The preconditioner's scratch; its finest right-hand side holds `r` between steps, and its
+    /// finest correction is the preconditioned residual `z` (no vector of its own).
     work: Work,
     started: bool,
-    /// The last step length.
+    /// The last step length, not yet applied to `x`.
     alpha: f64,
 }
 
@@ -825,10 +820,13 @@ impl Pcg {
         hier.apply(&x, &mut q);
         let mut r = vec![0.0; n];
         hier.layout.copy(&b, &mut r);
-        hier.layout.add_scaled(-1.0, &q, &mut r);
         let bnorm = hier.layout.dot(&b, &b).sqrt();
-        let rr = hier.layout.dot(&r, &r);
-        Self { b, bnorm, x, r, rr, p: vec![0.0; n], q, z: vec![0.0; n], rz: 0.0, work: hier.work(), started: false, alpha: 0.0 }
+        let mut work = hier.work();
+        let rr = match &mut work {
+            Work::Compact(w) => update_residual(&hier.layout, 1.0, &q, &mut r, &mut w[0].b),
+            Work::Grid(w) => update_residual(&hier.layout, 1.0, &q, &mut r, &mut w[0].b),
+        };
+        Self { b, bnorm, x, r, rr, p: vec![0.0; n], q, rz: 0.0, work, started: false, alpha: 0.0 }
     }
 
     fn relative(&self) -> f64 {
@@ -836,6 +834,15 @@ impl Pcg {
         if self.bnorm > 0.0 { rn / self.bnorm } else { rn }
     }
 
+    /// Adds the last step to `x`.
+    fn finish(&mut self, hier: &Hierarchy) {
+        if self.alpha != 0.0 {
+            hier.layout.add_scaled(self.alpha, &self.p, &mut self.x);
+            self.alpha = 0.0;
+        }
+    }
+
+    /// The relative residual of `x` (after [`Pcg::finish`]), computed afresh.
     fn true_relative(&mut self, hier: &Hierarchy) -> f64 {
         hier.apply(&self.x, &mut self.q);
         hier.layout.add_scaled(-1.0, &self.b, &mut self.q);
@@ -846,24 +853,30 @@ impl Pcg {
     /// One step of flexible conjugate gradients: the K-cycle is not a fixed linear map, so the
     /// new direction is made conjugate to the last one explicitly, `β = −(z·A·p)/(p·A·p)`
     /// (Notay 2000, "Flexible conjugate gradients"); with a fixed symmetric preconditioner this is
-    /// the usual `β = (r·z)/(r₋₁·z₋₁)`.
+    /// the usual `β = (r·z)/(r₋₁·z₋₁)`. Four passes over the vectors besides the cycle: the two
+    /// products of `z`, the new direction (with the last step added to `x`), `A·p` with `p·A·p`,
+    /// and the new residual (copied to the cycle's right-hand side).
     fn step(&mut self, hier: &Hierarchy) {
         let layout = &hier.layout;
+        hier.precondition(&mut self.work);
         // `q` still holds `A·p` of the last step.
-        let (rz, qz) = hier.precondition(&mut self.work, &self.r, &self.q, &mut self.z);
-        let z = &self.z;
-        if self.started && self.rz != 0.0 {
+        let (r, q) = (&self.r, &self.q);
+        let [rz, qz] = match &self.work {
+            Work::Compact(w) => products(layout, r, q, &w[0].u),
+            Work::Grid(w) => products(layout, r, q, &w[0].u),
+        };
+        let beta = if self.started && self.rz != 0.0 {
             // `p·A·p = r₋₁·z₋₁ / α`.
-            let beta = -self.alpha * qz / self.rz;
-            layout.for_each_mut(&mut self.p, |_, s, p| {
-                for (p, z) in p.iter_mut().zip(&z[s..]) {
-                    *p = z + beta * *p;
-                }
-            });
+            -self.alpha * qz / self.rz
         } else {
-            layout.copy(z, &mut self.p);
-            self.started = true;
+            0.0
+        };
+        self.started = true;
+        match &self.work {
+            Work::Compact(w) => advance(layout, self.alpha, beta, &w[0].u, &mut self.p, &mut self.x),
+            Work::Grid(w) => advance(layout, self.alpha, beta, &w[0].u, &mut self.p, &mut self.x),
         }
+        self.alpha = 0.0;
         self.rz = rz;
         hier.apply(&self.p, &mut self.q);
         let pq = layout.dot(&self.p, &self.q);
@@ -872,13 +885,41 @@ impl Pcg {
         }
         let alpha = rz / pq;
         self.alpha = alpha;
-        layout.add_scaled(alpha, &self.p, &mut self.x);
-        let q = &self.q;
-        self.rr = layout.sum_mut(&mut self.r, |_, s, r| {
-            for (r, q) in r.iter_mut().zip(&q[s..]) {
-                *r -= alpha * q;
-            }
-            dot_run(r, r)
-        });
+        self.rr = match &mut self.work {
+            Work::Compact(w) => update_residual(layout, alpha, &self.q, &mut self.r, &mut w[0].b),
+            Work::Grid(w) => update_residual(layout, alpha, &self.q, &mut self.r, &mut w[0].b),
+        };
     }
+}
+
+/// `r −= α·q`, copied into the preconditioner's right-hand side `to`; returns `r·r`.
+fn update_residual<T: Real>(layout: &Layout, alpha: f64, q: &[f64], r: &mut [f64], to: &mut [T]) -> f64 {
+    let to = Shared(to.as_mut_ptr(), to.len());
+    layout.sum_mut(r, |_, s, r| {
+        // SAFETY: the spans are disjoint and each is visited by one task.
+        let to = unsafe { to.slice_mut(s, r.len()) };
+        for ((r, q), t) in r.iter_mut().zip(&q[s..]).zip(to.iter_mut()) {
+            *r -= alpha * q;
+            *t = T::of(*r);
+        }
+        dot_run(r, r)
+    })
+}
+
+/// `[r·z, q·z]` for the preconditioned residual `z`.
+fn products<T: Real>(layout: &Layout, r: &[f64], q: &[f64], z: &[T]) -> [f64; 2] {
+    layout.sums(|s, e| [dot_run(&r[s..e], &z[s..e]), dot_run(&q[s..e], &z[s..e])])
+}
+
+/// `x += α·p`, then `p = z + β·p`.
+fn advance<T: Real>(layout: &Layout, alpha: f64, beta: f64, z: &[T], p: &mut [f64], x: &mut [f64]) {
+    let x = Shared(x.as_mut_ptr(), x.len());
+    layout.for_each_mut(p, |_, s, p| {
+        // SAFETY: the spans are disjoint and each is visited by one task.
+        let x = unsafe { x.slice_mut(s, p.len()) };
+        for ((p, x), z) in p.iter_mut().zip(x.iter_mut()).zip(&z[s..]) {
+            *x += alpha * *p;
+            *p = z.get() + beta * *p;
+        }
+    });
 }

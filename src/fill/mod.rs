@@ -228,6 +228,15 @@ enum Part {
 }
 
 impl Part {
+    fn memory_bytes(&self) -> usize {
+        match self {
+            Self::Compact(h) => h.memory_bytes(),
+            Self::Grid(g) => g.memory_bytes(),
+            Self::Direct(d) => d.memory_bytes(),
+            Self::Factored(f) => f.memory_bytes(),
+        }
+    }
+
     fn unknowns(&self) -> usize {
         match self {
             Self::Compact(h) => h.unknowns(),
@@ -821,15 +830,7 @@ impl Solver {
         if let Some(b) = &self.biharmonic {
             return b.memory_bytes();
         }
-        self.parts
-            .iter()
-            .map(|p| match p {
-                Part::Compact(h) => h.memory_bytes(),
-                Part::Grid(g) => g.memory_bytes(),
-                Part::Direct(d) => d.memory_bytes(),
-                Part::Factored(f) => f.memory_bytes(),
-            })
-            .sum()
+        self.parts.iter().map(Part::memory_bytes).sum()
     }
 
     /// Seconds spent building the hierarchy.
@@ -878,7 +879,8 @@ impl Solver {
                     report.channels =
                         in_pool(params.threads, || b.solve(planes, &self.mask.unpack(), params, start, progress))?;
                 } else if !self.parts.is_empty() {
-                    report.channels = in_pool(params.threads, || self.solve_parts(planes, params, start, progress))?;
+                    report.channels =
+                        in_pool(params.threads, || solve_parts(&self.parts, planes, params, start, progress))?;
                 }
                 report.solve_seconds = t0.elapsed().as_secs_f64();
                 report
@@ -889,96 +891,95 @@ impl Solver {
         }
         Ok(report)
     }
+}
 
-    /// Solves every part, up to four channels per pass, and writes the planes only when all
-    /// succeeded (so an error or a cancel leaves them unchanged).
-    fn solve_parts(
-        &self,
-        planes: &mut [&mut [f32]],
-        params: &FillParams,
-        start: Start,
-        progress: &mut (dyn FnMut(&Progress) -> bool + Send),
-    ) -> Result<Vec<ChannelReport>, FillError> {
-        let channels = planes.len();
-        let mut pending = Vec::new();
-        let mut r_sq = vec![0f64; channels];
-        let mut b_sq = vec![0f64; channels];
-        let mut reports = vec![ChannelReport::default(); channels];
-        // The history shown is the largest multigrid part's (a direct solve has one entry).
-        let largest = (0..self.parts.len())
-            .max_by_key(|&k| (!matches!(self.parts[k], Part::Direct(_) | Part::Factored(_)), self.parts[k].unknowns()))
-            .unwrap_or(0);
-        // Parts are solved side by side (small holes' passes are too short to keep both cores
-        // busy on their own); each part's result does not depend on which thread ran it.
-        let progress = std::sync::Mutex::new(progress);
-        let report = |p: &Progress| (progress.lock().unwrap_or_else(std::sync::PoisonError::into_inner))(p);
-        let results: Vec<Result<Vec<(usize, GroupResult)>, FillError>> = self
-            .parts
-            .par_iter()
-            .map(|part| {
-                let mut out = Vec::new();
-                for first in (0..channels).step_by(4) {
-                    let group = &planes[first..channels.min(first + 4)];
-                    let progress = &mut |p: &Progress| report(p);
-                    let result = match part {
-                        Part::Compact(h) => match group.len() {
-                            1 => solve::solve_group::<1>(h, group, params, start, progress)?,
-                            2 => solve::solve_group::<2>(h, group, params, start, progress)?,
-                            3 => solve::solve_group::<3>(h, group, params, start, progress)?,
-                            _ => solve::solve_group::<4>(h, group, params, start, progress)?,
-                        },
-                        Part::Grid(g) => match group.len() {
-                            1 => grid::solve_group::<1>(g, group, params, start, progress)?,
-                            2 => grid::solve_group::<2>(g, group, params, start, progress)?,
-                            3 => grid::solve_group::<3>(g, group, params, start, progress)?,
-                            _ => grid::solve_group::<4>(g, group, params, start, progress)?,
-                        },
-                        Part::Direct(d) => match group.len() {
-                            1 => direct::solve_group::<1>(d, group)?,
-                            2 => direct::solve_group::<2>(d, group)?,
-                            3 => direct::solve_group::<3>(d, group)?,
-                            _ => direct::solve_group::<4>(d, group)?,
-                        },
-                        Part::Factored(f) => match group.len() {
-                            1 => sparse::solve_group::<1>(f, group)?,
-                            2 => sparse::solve_group::<2>(f, group)?,
-                            3 => sparse::solve_group::<3>(f, group)?,
-                            _ => sparse::solve_group::<4>(f, group)?,
-                        },
-                    };
-                    out.push((first, result));
-                }
-                Ok(out)
-            })
-            .collect();
-        for (k, results) in results.into_iter().enumerate() {
-            for (first, result) in results? {
-                for (c, rep) in result.reports.iter().enumerate() {
-                    r_sq[first + c] += result.r_sq[c];
-                    b_sq[first + c] += result.b_sq[c];
-                    let out = &mut reports[first + c];
-                    out.cycles = out.cycles.max(rep.cycles);
-                    if k == largest {
-                        out.history.clone_from(&rep.history);
-                    }
-                }
-                pending.push((k, first, result));
+/// Solves every one of the harmonic `parts`, up to four channels per pass, and writes the planes
+/// only when all succeeded (so an error or a cancel leaves them unchanged).
+fn solve_parts(
+    parts: &[Part],
+    planes: &mut [&mut [f32]],
+    params: &FillParams,
+    start: Start,
+    progress: &mut (dyn FnMut(&Progress) -> bool + Send),
+) -> Result<Vec<ChannelReport>, FillError> {
+    let channels = planes.len();
+    let mut pending = Vec::new();
+    let mut r_sq = vec![0f64; channels];
+    let mut b_sq = vec![0f64; channels];
+    let mut reports = vec![ChannelReport::default(); channels];
+    // The history shown is the largest multigrid part's (a direct solve has one entry).
+    let largest = (0..parts.len())
+        .max_by_key(|&k| (!matches!(parts[k], Part::Direct(_) | Part::Factored(_)), parts[k].unknowns()))
+        .unwrap_or(0);
+    // Parts are solved side by side (small holes' passes are too short to keep both cores
+    // busy on their own); each part's result does not depend on which thread ran it.
+    let progress = std::sync::Mutex::new(progress);
+    let report = |p: &Progress| (progress.lock().unwrap_or_else(std::sync::PoisonError::into_inner))(p);
+    let results: Vec<Result<Vec<(usize, GroupResult)>, FillError>> = parts
+        .par_iter()
+        .map(|part| {
+            let mut out = Vec::new();
+            for first in (0..channels).step_by(4) {
+                let group = &planes[first..channels.min(first + 4)];
+                let progress = &mut |p: &Progress| report(p);
+                let result = match part {
+                    Part::Compact(h) => match group.len() {
+                        1 => solve::solve_group::<1>(h, group, params, start, progress)?,
+                        2 => solve::solve_group::<2>(h, group, params, start, progress)?,
+                        3 => solve::solve_group::<3>(h, group, params, start, progress)?,
+                        _ => solve::solve_group::<4>(h, group, params, start, progress)?,
+                    },
+                    Part::Grid(g) => match group.len() {
+                        1 => grid::solve_group::<1>(g, group, params, start, progress)?,
+                        2 => grid::solve_group::<2>(g, group, params, start, progress)?,
+                        3 => grid::solve_group::<3>(g, group, params, start, progress)?,
+                        _ => grid::solve_group::<4>(g, group, params, start, progress)?,
+                    },
+                    Part::Direct(d) => match group.len() {
+                        1 => direct::solve_group::<1>(d, group)?,
+                        2 => direct::solve_group::<2>(d, group)?,
+                        3 => direct::solve_group::<3>(d, group)?,
+                        _ => direct::solve_group::<4>(d, group)?,
+                    },
+                    Part::Factored(f) => match group.len() {
+                        1 => sparse::solve_group::<1>(f, group)?,
+                        2 => sparse::solve_group::<2>(f, group)?,
+                        3 => sparse::solve_group::<3>(f, group)?,
+                        _ => sparse::solve_group::<4>(f, group)?,
+                    },
+                };
+                out.push((first, result));
             }
-        }
-        for (c, out) in reports.iter_mut().enumerate() {
-            let bnorm = if b_sq[c] > 0.0 { b_sq[c].sqrt() } else { 1.0 };
-            out.relative_residual = r_sq[c].sqrt() / bnorm;
-        }
-        for (k, first, result) in pending {
-            match &self.parts[k] {
-                Part::Compact(h) => solve::write_back(h, planes, first, result.scale.len(), &result.values),
-                Part::Grid(g) => grid::write_back(g, planes, first, &result),
-                Part::Direct(d) => direct::write_back(d, planes, first, result.scale.len(), &result.rounded),
-                Part::Factored(f) => sparse::write_back(f, planes, first, result.scale.len(), &result.values),
+            Ok(out)
+        })
+        .collect();
+    for (k, results) in results.into_iter().enumerate() {
+        for (first, result) in results? {
+            for (c, rep) in result.reports.iter().enumerate() {
+                r_sq[first + c] += result.r_sq[c];
+                b_sq[first + c] += result.b_sq[c];
+                let out = &mut reports[first + c];
+                out.cycles = out.cycles.max(rep.cycles);
+                if k == largest {
+                    out.history.clone_from(&rep.history);
+                }
             }
+            pending.push((k, first, result));
         }
-        Ok(reports)
     }
+    for (c, out) in reports.iter_mut().enumerate() {
+        let bnorm = if b_sq[c] > 0.0 { b_sq[c].sqrt() } else { 1.0 };
+        out.relative_residual = r_sq[c].sqrt() / bnorm;
+    }
+    for (k, first, result) in pending {
+        match &parts[k] {
+            Part::Compact(h) => solve::write_back(h, planes, first, result.scale.len(), &result.values),
+            Part::Grid(g) => grid::write_back(g, planes, first, &result),
+            Part::Direct(d) => direct::write_back(d, planes, first, result.scale.len(), &result.rounded),
+            Part::Factored(f) => sparse::write_back(f, planes, first, result.scale.len(), &result.values),
+        }
+    }
+    Ok(reports)
 }
 
 /// Runs `run` on a pool of `threads` workers (0: rayon's global pool, all cores).

@@ -80,85 +80,113 @@ impl Thin {
             let p = (y as usize * width + x as usize) as u32;
             pixels[a..b].binary_search(&p).ok().map(|k| a + k)
         };
-        // Components: join each unknown to the earlier ones its stencil reaches — two to the left,
-        // three in the row above, one two rows up. The pixels increase, so the searches in the
-        // rows above move forward only.
-        let mut parent: Vec<u32> = (0..n as u32).collect();
+        // Components over row runs: a run joins the previous run of its row when one known pixel
+        // or none lies between (the stencil reaches two to the left), the runs of the row above
+        // that overlap it widened by one (three pixels above reach), and those two rows up that
+        // overlap it (one pixel). The runs increase, so the pointers into the rows above move
+        // forward only.
+        let mut runs: Vec<(usize, usize, usize, usize)> = Vec::new(); // y, x from, x to, first unknown
+        for (i, &p) in pixels.iter().enumerate() {
+            let (x, y) = (p as usize % width, p as usize / width);
+            match runs.last_mut() {
+                Some(r) if r.0 == y && r.2 == x => r.2 += 1,
+                _ => runs.push((y, x, x + 1, i)),
+            }
+        }
+        let mut row_start = vec![0usize; height + 1];
+        for r in &runs {
+            row_start[r.0 + 1] += 1;
+        }
+        for y in 0..height {
+            row_start[y + 1] += row_start[y];
+        }
+        let mut parent: Vec<u32> = (0..runs.len() as u32).collect();
         let mut join = |i: usize, j: usize| {
             let (a, b) = (root(&mut parent, i), root(&mut parent, j));
             if a != b {
                 parent[a.max(b)] = a.min(b) as u32;
             }
         };
-        let (mut above, mut two_above) = (0usize, 0usize);
-        for (i, &p) in pixels.iter().enumerate() {
-            let p = p as usize;
-            let (x, y) = (p % width, p / width);
-            // One or two to the left: the previous two unknowns, if in this row that close.
-            let first = i.saturating_sub(2);
-            for (j, &q) in pixels[first..i].iter().enumerate() {
-                if p - q as usize <= 2 && q as usize >= y * width {
-                    join(i, first + j);
+        for y in 0..height {
+            let (mut up, mut up2) =
+                (if y >= 1 { row_start[y - 1] } else { 0 }, if y >= 2 { row_start[y - 2] } else { 0 });
+            for k in row_start[y]..row_start[y + 1] {
+                let (_, a, b, _) = runs[k];
+                if k > row_start[y] && a - runs[k - 1].2 <= 1 {
+                    join(k, k - 1);
                 }
-            }
-            if y >= 1 {
-                // The first unknown at or after (x − 1, y − 1), then up to (x + 1, y − 1).
-                let from = p - width - usize::from(x > 0);
-                let to = (p - width + usize::from(x + 1 < width)).min(y * width - 1);
-                while above < i && (pixels[above] as usize) < from {
-                    above += 1;
+                if y >= 1 {
+                    let end = row_start[y];
+                    while up < end && runs[up].2 < a {
+                        up += 1;
+                    }
+                    let mut j = up;
+                    while j < end && runs[j].1 <= b {
+                        join(k, j);
+                        j += 1;
+                    }
                 }
-                let mut j = above;
-                while j < i && pixels[j] as usize <= to {
-                    join(i, j);
-                    j += 1;
-                }
-            }
-            if y >= 2 {
-                while two_above < i && (pixels[two_above] as usize) < p - 2 * width {
-                    two_above += 1;
-                }
-                if two_above < i && pixels[two_above] as usize == p - 2 * width {
-                    join(i, two_above);
+                if y >= 2 {
+                    let end = row_start[y - 1];
+                    while up2 < end && runs[up2].2 <= a {
+                        up2 += 1;
+                    }
+                    let mut j = up2;
+                    while j < end && runs[j].1 < b {
+                        join(k, j);
+                        j += 1;
+                    }
                 }
             }
         }
-        // Each component's unknowns, in row order; its index of each unknown.
-        let mut members: Vec<Vec<u32>> = Vec::new();
-        let mut slot = vec![NONE; n];
-        let mut local = vec![0u32; n];
-        for (i, l) in local.iter_mut().enumerate() {
-            let r = root(&mut parent, i);
+        // Each component's size and box; components too large or too dense are left to the
+        // multigrid before their unknowns are listed.
+        let mut stats: Vec<(usize, usize, usize, usize, usize)> = Vec::new(); // count, box
+        let mut slot = vec![NONE; runs.len()];
+        for k in 0..runs.len() {
+            let r = root(&mut parent, k);
             if slot[r] == NONE {
-                slot[r] = members.len() as u32;
-                members.push(Vec::new());
+                slot[r] = stats.len() as u32;
+                stats.push((0, usize::MAX, usize::MAX, 0, 0));
             }
-            let c = &mut members[slot[r] as usize];
-            *l = c.len() as u32;
-            c.push(i as u32);
+            let (y, a, b, _) = runs[k];
+            let s = &mut stats[slot[r] as usize];
+            *s = (s.0 + b - a, s.1.min(a), s.2.min(y), s.3.max(b - 1), s.4.max(y));
+            slot[k] = slot[r];
+        }
+        let wanted: Vec<bool> = stats
+            .iter()
+            .map(|&(m, x0, y0, x1, y1)| {
+                m <= MAX_UNKNOWNS && (m <= SMALL || m as f64 <= MAX_BOX_SHARE * ((x1 - x0 + 1) * (y1 - y0 + 1)) as f64)
+            })
+            .collect();
+        if !wanted.contains(&true) {
+            return (Self::default(), vec![false; n]);
+        }
+        // The wanted components' unknowns, in row order; each unknown's index in its component.
+        let mut members: Vec<Vec<u32>> = vec![Vec::new(); stats.len()];
+        let mut local = vec![0u32; n];
+        for (k, &(_, a, b, first)) in runs.iter().enumerate() {
+            let c = slot[k] as usize;
+            if wanted[c] {
+                for (i, l) in local.iter_mut().enumerate().skip(first).take(b - a) {
+                    *l = members[c].len() as u32;
+                    members[c].push(i as u32);
+                }
+            }
         }
         let interior = fine_row(2, 2, 5, 5);
         let (w, h) = (width as i64, height as i64);
         let parts: Vec<Option<Component>> = members
             .par_iter()
             .map(|idx| {
-                let m = idx.len();
-                if m > MAX_UNKNOWNS {
+                if idx.is_empty() {
                     return None;
                 }
+                let m = idx.len();
                 let xy = |i: u32| {
                     ((pixels[i as usize] as usize % width) as i64, (pixels[i as usize] as usize / width) as i64)
                 };
-                if m > SMALL {
-                    let (mut x0, mut y0, mut x1, mut y1) = (i64::MAX, i64::MAX, i64::MIN, i64::MIN);
-                    for &i in idx {
-                        let (x, y) = xy(i);
-                        (x0, y0, x1, y1) = (x0.min(x), y0.min(y), x1.max(x), y1.max(y));
-                    }
-                    if m as f64 > MAX_BOX_SHARE * ((x1 - x0 + 1) * (y1 - y0 + 1)) as f64 {
-                        return None;
-                    }
-                }
                 let nbr: Vec<[u32; 12]> = idx
                     .iter()
                     .map(|&i| {

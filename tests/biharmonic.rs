@@ -212,23 +212,24 @@ fn iterations_barely_grow_with_the_hole() {
         let mask = Mask::from_fn(n, n, |x, y| (4..n - 4).contains(&x) && (4..n - 4).contains(&y));
         let plane: Vec<f32> = (0..n * n).map(|i| ((i % n) as f32 * 0.37).sin() + (i / n) as f32 * 0.01).collect();
         let solver = Solver::for_method(&mask, FillMethod::Biharmonic).expect("mask leaves known pixels");
-        let p = FillParams { method: FillMethod::Biharmonic, tolerance: 1e-6, ..FillParams::default() };
         // A warm start from zeros shows the preconditioner's own rate.
-        let mut zeroed = plane.clone();
-        for (v, &m) in zeroed.iter_mut().zip(mask.bits()) {
-            if m {
-                *v = 0.0;
-            }
-        }
-        let report = solver.solve(&mut [&mut zeroed[..]], &p, Start::Warm, &mut |_| true).expect("fill converges");
-        from_zero.push(report.channels[0].cycles);
-        let mut started = plane.clone();
-        let report =
-            solver.solve(&mut [&mut started[..]], &p, Start::FullMultigrid, &mut |_| true).expect("fill converges");
-        from_harmonic.push(report.channels[0].cycles);
-        // Both reach the same fill.
-        let worst = zeroed.iter().zip(&started).map(|(a, b)| (a - b).abs()).fold(0f32, f32::max);
-        assert!(worst < 1e-3, "the two starts differ by {worst} at {n}²");
+        let zeroed = |plane: &[f32]| -> Vec<f32> {
+            plane.iter().zip(mask.bits()).map(|(&v, &m)| if m { 0.0 } else { v }).collect()
+        };
+        let solve = |plane: &mut [f32], start: Start, tolerance: f64| {
+            let p = FillParams { method: FillMethod::Biharmonic, tolerance, ..FillParams::default() };
+            solver.solve(&mut [plane], &p, start, &mut |_| true).expect("fill converges").channels[0].cycles
+        };
+        from_zero.push(solve(&mut zeroed(&plane), Start::Warm, 1e-6));
+        from_harmonic.push(solve(&mut plane.clone(), Start::FullMultigrid, 1e-6));
+        // Both starts reach the same fill (to a tolerance far below the one counted: at 1e-6 the
+        // two iterates may differ by about 1e-4 of the range, the operator's conditioning).
+        let (mut a, mut b) = (zeroed(&plane), plane.clone());
+        solve(&mut a, Start::Warm, 1e-11);
+        solve(&mut b, Start::FullMultigrid, 1e-11);
+        let range = plane.iter().fold(f32::MIN, |m, &v| m.max(v)) - plane.iter().fold(f32::MAX, |m, &v| m.min(v));
+        let worst = a.iter().zip(&b).map(|(a, b)| (a - b).abs()).fold(0f32, f32::max);
+        assert!(worst <= 1e-5 * range, "the two starts differ by {worst} at {n}² (range {range})");
     }
     // Conjugate gradients preconditioned by a K-cycle keep the count nearly independent of the
     // size (Notay & Vassilevski 2008, §4), so the work stays linear in the unknowns; a V-cycle

@@ -8,7 +8,8 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, LevelWork,
-    MIN_REDUCTION, NONE, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights, square_index,
+    MIN_REDUCTION, NONE, SECOND_VISITS, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights,
+    square_index,
 };
 
 /// One level: points sorted row-major, their neighbours and operator rows, and the transfer to
@@ -364,7 +365,7 @@ impl Levels {
             }
         }
         self.cycle(l + 1, work);
-        if l + 2 < self.levels.len() {
+        if l + 2 < self.levels.len() && l < SECOND_VISITS {
             self.second_visit(l + 1, work);
         }
         let (head, tail) = work.split_at_mut(l + 1);

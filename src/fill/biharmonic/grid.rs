@@ -15,7 +15,8 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, Layout, LevelWork,
-    MIN_REDUCTION, Real, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights, square_index,
+    MIN_REDUCTION, Real, SECOND_VISITS, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights,
+    square_index,
 };
 
 /// Empty cells around the points' bounding box.
@@ -735,7 +736,7 @@ impl Levels {
         let (head, tail) = work.split_at_mut(l + 1);
         restrict(level, &head[l].r, &self.levels[l + 1], &mut tail[0].b);
         self.cycle(l + 1, work);
-        if l + 2 < self.levels.len() {
+        if l + 2 < self.levels.len() && l < SECOND_VISITS {
             self.second_visit(l + 1, work);
         }
         let (head, tail) = work.split_at_mut(l + 1);

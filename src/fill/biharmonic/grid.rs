@@ -472,33 +472,36 @@ fn coarsen(fine: &Level) -> Level {
         .flat_map_iter(|&(s, e, _)| (s..e).map(|c| coarse.at(c)).map(|(x, y)| shared(x, y)))
         .collect();
     let plan = Galerkin::new(fine, &coarse);
-    let own: Vec<(usize, [f64; 25])> = coarse
+    // The points with rows of their own (point index, cell), in order; their rows are computed
+    // straight into the table, row 0 being the shared one.
+    let own: Vec<(usize, usize)> = coarse
         .runs
-        .par_iter()
-        .flat_map_iter(|&(s, e, p0)| {
-            let (coarse, is_shared, plan) = (&coarse, &is_shared, &plan);
-            (s..e).filter(move |&c| !is_shared[p0 + c - s]).map(move |c| (p0 + c - s, plan.row(fine, coarse, c)))
-        })
+        .iter()
+        .flat_map(|&(s, e, p0)| (s..e).map(move |c| (p0 + c - s, c)))
+        .filter(|&(p, _)| !is_shared[p])
         .collect();
-    let mut table = vec![0f64; COARSE.len() * (own.len() + 1)];
+    let k = COARSE.len();
+    let mut table = vec![0f64; k * (own.len() + 1)];
+    let (first, rest) = table.split_at_mut(k);
+    let put = |out: &mut [f64], c: usize| {
+        let square = plan.row(fine, &coarse, c);
+        for (v, &o) in out.iter_mut().zip(&COARSE) {
+            *v = square[square_index(o)];
+        }
+    };
+    rest.par_chunks_mut(k).zip(&own).with_min_len(256).for_each(|(out, &(_, c))| put(out, c));
     match is_shared.iter().position(|&b| b) {
         Some(p) => {
-            let c = coarse.runs.partition_point(|&(_, _, p0)| p0 <= p) - 1;
-            let (s, _, p0) = coarse.runs[c];
-            let square = plan.row(fine, &coarse, s + p - p0);
-            for (t, &o) in COARSE.iter().enumerate() {
-                table[t] = square[square_index(o)];
-            }
+            let run = coarse.runs.partition_point(|&(_, _, p0)| p0 <= p) - 1;
+            let (s, _, p0) = coarse.runs[run];
+            put(first, s + p - p0);
         }
         // No point uses row 0; a unit diagonal keeps its inverse finite.
-        None => table[0] = 1.0,
+        None => first[0] = 1.0,
     }
     let mut row = vec![0u32; coarse.n];
-    for (k, (p, square)) in own.iter().enumerate() {
-        row[*p] = crate::mask::index_u32(k + 1);
-        for (t, &o) in COARSE.iter().enumerate() {
-            table[(k + 1) * COARSE.len() + t] = square[square_index(o)];
-        }
+    for (r, &(p, _)) in own.iter().enumerate() {
+        row[p] = crate::mask::index_u32(r + 1);
     }
     coarse.set_rows(row, table);
     coarse
@@ -510,22 +513,26 @@ fn coarsen(fine: &Level) -> Level {
 struct Galerkin {
     /// Per child: its fine cell offset from the point's, its weight, and its terms.
     children: Vec<(isize, f64, Vec<GalerkinTerm>)>,
+    /// Per fine cell: bit `j` set when the cell is a point and its `j`-th parent (in the order of
+    /// [`GalerkinTerm::parents`]) is a coarse point. A fine point is the neighbour of a child of
+    /// some fifty coarse points; its parents are looked up once.
+    parents: Vec<u8>,
 }
 
 /// One fine neighbour `g` of a child: the child's row slot, `g`'s fine cell offset from the
-/// point's, its weight, and its coarse parents (cell offset from the point's, 5×5 square index).
+/// point's, its weight, and its coarse parents' places on the point's 5×5 square.
 struct GalerkinTerm {
     slot: usize,
     cell: isize,
     weight: f64,
-    parents: [(isize, usize); 4],
-    count: usize,
+    /// Unused places repeat the first (their bits are never set).
+    parents: [usize; 4],
 }
 
 impl Galerkin {
     #[allow(clippy::cast_possible_wrap)]
     fn new(fine: &Level, coarse: &Level) -> Self {
-        let (fs, cs) = (fine.stride as isize, coarse.stride as isize);
+        let fs = fine.stride as isize;
         let mut children = Vec::with_capacity(9);
         for dy in -1..=1i64 {
             for dx in -1..=1i64 {
@@ -536,22 +543,38 @@ impl Galerkin {
                     .map(|(slot, &(ox, oy))| {
                         let (gx, gy) = (dx + ox, dy + oy);
                         let ((px, nx), (py, ny)) = (parents(gx), parents(gy));
-                        let mut parents = [(0isize, 0usize); 4];
+                        let mut parents = [square_index((px[0], py[0])); 4];
                         let mut count = 0;
                         for &qy in &py[..ny] {
                             for &qx in &px[..nx] {
-                                parents[count] = (qy as isize * cs + qx as isize, square_index((qx, qy)));
+                                parents[count] = square_index((qx, qy));
                                 count += 1;
                             }
                         }
                         let cell = gy as isize * fs + gx as isize;
-                        GalerkinTerm { slot, cell, weight: weight(gx) * weight(gy), parents, count }
+                        GalerkinTerm { slot, cell, weight: weight(gx) * weight(gy), parents }
                     })
                     .collect();
                 children.push((dy as isize * fs + dx as isize, weight(dx) * weight(dy), terms));
             }
         }
-        Self { children }
+        let mut bits = vec![0u8; fine.index.len()];
+        fine.layout.for_each_mut(&mut bits, |_, s, out| {
+            for (k, o) in out.iter_mut().enumerate() {
+                let (gx, gy) = fine.at(s + k);
+                let ((px, nx), (py, ny)) = (parents(gx), parents(gy));
+                let mut j = 0;
+                for &qy in &py[..ny] {
+                    for &qx in &px[..nx] {
+                        if coarse.point(qx, qy).is_some() {
+                            *o |= 1 << j;
+                        }
+                        j += 1;
+                    }
+                }
+            }
+        });
+        Self { children, parents: bits }
     }
 
     /// Row of `Pᵀ·A·P` at coarse cell `c` on the 5×5 square: `Σ w_f·a_fg·w_g` over the fine
@@ -564,16 +587,16 @@ impl Galerkin {
         for (off, wf, terms) in &self.children {
             let Some(f) = fine.index[centre.wrapping_add_signed(*off)].checked_sub(1) else { continue };
             let a = fine.row_of(f as usize);
+            // Without branches: which neighbours are points and which parents are coarse points
+            // follows the mask, which (random dropout) the branch predictor cannot.
             for t in terms {
-                if a[t.slot] == 0.0 || fine.index[centre.wrapping_add_signed(t.cell)] == 0 {
-                    continue;
-                }
+                let bits = usize::from(self.parents[centre.wrapping_add_signed(t.cell)]);
                 let v = wf * a[t.slot] * t.weight;
-                for &(q, k) in &t.parents[..t.count] {
-                    if coarse.index[c.wrapping_add_signed(q)] != 0 {
-                        row[k] += v;
-                    }
-                }
+                let [k0, k1, k2, k3] = t.parents;
+                row[k0] += v * f64::from(u8::from(bits & 1 != 0));
+                row[k1] += v * f64::from(u8::from(bits & 2 != 0));
+                row[k2] += v * f64::from(u8::from(bits & 4 != 0));
+                row[k3] += v * f64::from(u8::from(bits & 8 != 0));
             }
         }
         row

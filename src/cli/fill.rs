@@ -150,7 +150,7 @@ pub struct FillArgs {
     #[command(flatten)]
     pub how: MethodOptions,
 
-    /// Multigrid cycle shape (harmonic fill; the biharmonic fill always uses W-cycles).
+    /// Multigrid cycle shape (harmonic fill; the biharmonic fill always uses its own K-cycles).
     #[arg(long, value_enum, default_value = "v")]
     pub cycle: CycleArg,
 

@@ -91,7 +91,8 @@ pub enum Cycle {
 /// Where the iteration starts.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 pub enum Start {
-    /// Full multigrid: solve the coarsest level, interpolate and cycle on the way up.
+    /// Full multigrid: solve the coarsest level, interpolate and cycle on the way up. The
+    /// biharmonic fill starts from the harmonic fill of its unknowns instead.
     #[default]
     FullMultigrid,
     /// Start from the values the planes already hold at the masked pixels (non-finite values

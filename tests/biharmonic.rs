@@ -264,3 +264,29 @@ fn results_do_not_depend_on_the_thread_count() {
         assert!(one.iter().zip(&two).all(|(a, b)| a.to_bits() == b.to_bits()), "{structure:?}: results differ");
     }
 }
+
+#[test]
+fn scattered_unknowns_are_solved_without_coarse_levels() {
+    // Random dropout has no 8×8 square of unknowns: one level, relaxed, then conjugate gradients
+    // preconditioned by sweeps. The fill still meets the tolerance, matches the full hierarchy's
+    // (grid storage asked for explicitly builds the same single level, so the blob stands in for
+    // a deep one) and is the same on one thread and two.
+    let n = 320;
+    let dropout = MaskFamily::ALL.into_iter().find(|f| f.name() == "dropout").expect("dropout family").mask(n, 17);
+    let blob = MaskFamily::ALL.into_iter().find(|f| f.name() == "blob").expect("blob family").mask(n, 17);
+    let truth = synth::smooth_plane(n, n, 9);
+    for (mask, shallow) in [(&dropout, true), (&blob, false)] {
+        let solver = Solver::for_method(mask, FillMethod::Biharmonic).expect("known pixels");
+        let run = |threads| {
+            let mut plane: Vec<f32> = truth.iter().zip(mask.bits()).map(|(&v, &m)| if m { 0.0 } else { v }).collect();
+            let p = FillParams { method: FillMethod::Biharmonic, threads, tolerance: 1e-8, ..FillParams::default() };
+            let report =
+                solver.solve(&mut [&mut plane[..]], &p, Start::FullMultigrid, &mut |_| true).expect("converges");
+            (plane, report)
+        };
+        let ((one, report), (two, _)) = (run(1), run(2));
+        assert_eq!(report.levels == 1, shallow, "levels {}", report.levels);
+        assert!(report.channels[0].relative_residual <= 1e-8, "{report:?}");
+        assert!(one.iter().zip(&two).all(|(a, b)| a.to_bits() == b.to_bits()), "results differ by thread count");
+    }
+}

@@ -8,8 +8,8 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, LevelWork,
-    MIN_REDUCTION, NONE, SECOND_VISITS, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights,
-    square_index,
+    MIN_REDUCTION, NONE, SECOND_VISITS, SHALLOW_SWEEPS, Shared, banded, bands, dense_coarsest, dot_run, fine_row,
+    krylov_weights, square_index,
 };
 
 /// One level: points sorted row-major, their neighbours and operator rows, and the transfer to
@@ -253,7 +253,8 @@ impl Levels {
 
     /// The hierarchy of the unknowns at `pos` (row-major) in a `w × h` image.
     #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap)]
-    pub(super) fn new(pos: Vec<(u32, u32)>, w: usize, h: usize) -> Self {
+    /// `shallow`: the finest level alone, preconditioned by sweeps ([`super::shallow`]).
+    pub(super) fn new(pos: Vec<(u32, u32)>, w: usize, h: usize, shallow: bool) -> Self {
         let mut points = Points::new(pos, h);
         // Level 0: one row per image-edge class (distances to the four edges, capped at 2).
         let clamp = |v: i64| v.min(2) as usize;
@@ -283,6 +284,9 @@ impl Levels {
             seams: Vec::new(),
         }];
         (levels[0].bands, levels[0].seams) = points.bands();
+        if shallow {
+            return Self { levels, coarsest: Coarsest::Relax(SHALLOW_SWEEPS) };
+        }
         let mut lh = h;
         while let Some(fine) = levels.last_mut() {
             if fine.n <= COARSEST_MAX {
@@ -323,9 +327,19 @@ impl Levels {
                     }
                 }
             }),
-            _ => Coarsest::Relax,
+            _ => Coarsest::Relax(COARSEST_SWEEPS),
         };
         Self { levels, coarsest }
+    }
+
+    /// Whether the finest level is the only one.
+    pub(super) fn is_shallow(&self) -> bool {
+        self.levels.len() == 1
+    }
+
+    /// One Gauss-Seidel sweep of the finest level.
+    pub(super) fn sweep_finest(&self, u: &mut [f64], b: &[f64], backward: bool) {
+        self.levels[0].sweep(u, b, backward);
     }
 
     /// One K-cycle from level `l` with a zero start: `u ≈ A⁻¹·b`.
@@ -340,8 +354,8 @@ impl Levels {
                     w.u.copy_from_slice(&w.b);
                     ch.solve_in_place(&mut w.u);
                 }
-                Coarsest::Relax => {
-                    for _ in 0..COARSEST_SWEEPS {
+                Coarsest::Relax(pairs) => {
+                    for _ in 0..*pairs {
                         level.sweep(&mut w.u, &w.b, false);
                         level.sweep(&mut w.u, &w.b, true);
                     }

@@ -15,8 +15,8 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, Layout, LevelWork,
-    MIN_REDUCTION, Real, SECOND_VISITS, Shared, banded, bands, dense_coarsest, dot_run, fine_row, krylov_weights,
-    square_index,
+    MIN_REDUCTION, Real, SECOND_VISITS, SHALLOW_SWEEPS, Shared, banded, bands, dense_coarsest, dot_run, fine_row,
+    krylov_weights, square_index,
 };
 
 /// Empty cells around the points' bounding box.
@@ -121,16 +121,20 @@ impl Level {
     /// A level whose points are the `runs` (`y`, `x` from, `x` to exclusive), row-major, on a grid
     /// that covers `bbox` (inclusive) with [`PAD`] empty cells around.
     #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
-    fn new(runs_xy: &[(i64, i64, i64)], bbox: (i64, i64, i64, i64), offsets: &'static [(i64, i64)]) -> Self {
+    fn new(
+        runs_xy: impl IntoIterator<Item = (i64, i64, i64)>,
+        bbox: (i64, i64, i64, i64),
+        offsets: &'static [(i64, i64)],
+    ) -> Self {
         let (x0, y0) = (bbox.0 - PAD, bbox.1 - PAD);
         let stride = (bbox.2 - bbox.0 + 1 + 2 * PAD) as usize;
         let rows = (bbox.3 - bbox.1 + 1 + 2 * PAD) as usize;
         // Zeroed allocations are mapped lazily: cells never written cost no memory.
         let mut index = vec![0u32; stride * rows];
-        let mut runs = Vec::with_capacity(runs_xy.len());
+        let mut runs = Vec::new();
         let mut n = 0usize;
         let mut points = (i64::MAX, i64::MAX, i64::MIN, i64::MIN);
-        for &(y, a, b) in runs_xy {
+        for (y, a, b) in runs_xy {
             let s = (y - y0) as usize * stride + (a - x0) as usize;
             let len = (b - a) as usize;
             for (k, cell) in index[s..s + len].iter_mut().enumerate() {
@@ -196,7 +200,17 @@ impl Level {
     fn set_rows(&mut self, row: Vec<u32>, table: Vec<f64>) {
         self.c32 = Coefs::new(table.iter().map(|&v| v as f32).collect(), self.offsets, &self.cell_off);
         self.c64 = Coefs::new(table, self.offsets, &self.cell_off);
-        // Split the runs where points change between interior and other.
+        // Split the runs where points change between interior and other (on the finest level
+        // only near the image edge: most masks need no split, and the runs stay as they are).
+        let uniform = |&(s, e, p0): &(usize, usize, usize)| {
+            let first = row[p0] == 0;
+            row[p0..p0 + e - s].iter().all(|&r| (r == 0) == first)
+        };
+        if self.runs.iter().all(uniform) {
+            self.interior = self.runs.iter().map(|&(_, _, p0)| row[p0] == 0).collect();
+            self.row = row;
+            return;
+        }
         let mut runs = Vec::with_capacity(self.runs.len());
         let mut interior = Vec::with_capacity(self.runs.len());
         for &(s, e, p0) in &self.runs {
@@ -400,15 +414,15 @@ fn run_bands(runs: &[(usize, usize, usize)], stride: usize, rows: usize) -> (Vec
 /// The finest level of a `w × h` image's mask given by its row runs.
 #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap)]
 fn finest(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Level {
-    let runs_xy: Vec<(i64, i64, i64)> = runs
-        .iter()
-        .enumerate()
-        .flat_map(|(y, row)| row.iter().map(move |&(a, b)| (y as i64, i64::from(a), i64::from(b))))
-        .collect();
-    let bbox = runs_xy.iter().fold((i64::MAX, i64::MAX, i64::MIN, i64::MIN), |b, &(y, a, e)| {
+    let runs_xy = || {
+        runs.iter()
+            .enumerate()
+            .flat_map(|(y, row)| row.iter().map(move |&(a, b)| (y as i64, i64::from(a), i64::from(b))))
+    };
+    let bbox = runs_xy().fold((i64::MAX, i64::MAX, i64::MIN, i64::MIN), |b, (y, a, e)| {
         (b.0.min(a), b.1.min(y), b.2.max(e - 1), b.3.max(y))
     });
-    let mut level = Level::new(&runs_xy, bbox, &FINE);
+    let mut level = Level::new(runs_xy(), bbox, &FINE);
     let (w, h) = (w as i64, h as i64);
     // One row per image-edge class (distances to the four edges, capped at 2); the interior
     // class is row 0.
@@ -420,7 +434,7 @@ fn finest(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Level {
         FINE.iter().map(|&o| square[square_index(o)]).collect()
     };
     let mut row = Vec::with_capacity(level.n);
-    for &(y, a, b) in &runs_xy {
+    for (y, a, b) in runs_xy() {
         let yk = 9 * clamp(y) + 27 * clamp(h - 1 - y);
         for x in a..b {
             let key = clamp(x) + 3 * clamp(w - 1 - x) + yk;
@@ -452,7 +466,7 @@ fn coarsen(fine: &Level) -> Level {
     // Cover every parent of a fine point, not just the coarse points.
     let fb = fine.bbox;
     let bbox = (fb.0.div_euclid(2), fb.1.div_euclid(2), fb.2.div_euclid(2) + 1, fb.3.div_euclid(2) + 1);
-    let mut coarse = Level::new(&runs_xy, bbox, &COARSE);
+    let mut coarse = Level::new(runs_xy, bbox, &COARSE);
     // Interior fine points in a row to the right of each (itself included), within its run.
     let mut interior_right = vec![0u32; fine.n];
     for &(s, e, p0) in &fine.runs {
@@ -642,8 +656,12 @@ pub(super) struct Levels {
 }
 
 impl Levels {
-    pub(super) fn new(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Self {
+    /// `shallow`: the finest level alone, preconditioned by sweeps ([`super::shallow`]).
+    pub(super) fn new(runs: &[Vec<(u32, u32)>], w: usize, h: usize, shallow: bool) -> Self {
         let mut levels = vec![finest(runs, w, h)];
+        if shallow {
+            return Self { levels, coarsest: Coarsest::Relax(SHALLOW_SWEEPS) };
+        }
         while let Some(fine) = levels.last() {
             if fine.n <= COARSEST_MAX {
                 break;
@@ -667,7 +685,7 @@ impl Levels {
                     }
                 }
             }),
-            _ => Coarsest::Relax,
+            _ => Coarsest::Relax(COARSEST_SWEEPS),
         };
         // Coarse levels run in `f32` only; their `f64` rows served to build the next level.
         for level in levels.iter_mut().skip(1) {
@@ -695,19 +713,28 @@ impl Levels {
             .sum()
     }
 
-    /// The finest level's cell of every point, in point order.
-    pub(super) fn slots(&self) -> Vec<usize> {
-        self.levels[0].runs.iter().flat_map(|&(s, e, _)| s..e).collect()
+    /// The finest level's vector length.
+    pub(super) fn finest_len(&self) -> usize {
+        self.levels[0].index.len()
     }
 
-    /// The finest level's vector length and layout.
-    pub(super) fn finest_layout(&self) -> (usize, Layout) {
-        let l = &self.levels[0];
-        (l.index.len(), Layout::new(l.runs.iter().map(|&(s, e, _)| (s, e)).collect()))
+    /// Where the finest level's vectors hold its points, in point order.
+    pub(super) fn finest_layout(&self) -> &Layout {
+        &self.levels[0].layout
     }
 
     pub(super) fn apply(&self, u: &[f64], out: &mut [f64]) {
         self.levels[0].residual(u, None, out);
+    }
+
+    /// Whether the finest level is the only one.
+    pub(super) fn is_shallow(&self) -> bool {
+        self.levels.len() == 1
+    }
+
+    /// One Gauss-Seidel sweep of the finest level in `f64`.
+    pub(super) fn sweep_finest(&self, u: &mut [f64], b: &[f64], backward: bool) {
+        self.levels[0].sweep(u, b, backward);
     }
 
     pub(super) fn work(&self) -> Vec<LevelWork<f32>> {
@@ -742,8 +769,8 @@ impl Levels {
                         }
                     }
                 }
-                Coarsest::Relax => {
-                    for _ in 0..COARSEST_SWEEPS {
+                Coarsest::Relax(pairs) => {
+                    for _ in 0..*pairs {
                         level.sweep(&mut w.u, &w.b, false);
                         level.sweep(&mut w.u, &w.b, true);
                     }

@@ -58,11 +58,12 @@ fn root(parent: &mut [u32], mut i: usize) -> usize {
 }
 
 impl Thin {
-    /// Splits the unknowns `pixels` (row-major) of a `width × height` image into coupled
-    /// components and factors the thin ones. Returns them and, per unknown, whether it was taken.
+    /// Splits the unknowns `pixels` (row-major; `rows` their runs in each image row) of a
+    /// `width × height` image into coupled components and factors the thin ones. Returns them
+    /// and, per unknown, whether it was taken.
     #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
     #[allow(clippy::cast_precision_loss)] // counts are far below 2^52
-    pub(super) fn plan(width: usize, height: usize, pixels: &[u32]) -> (Self, Vec<bool>) {
+    pub(super) fn plan(width: usize, height: usize, rows: &[Vec<(u32, u32)>], pixels: &[u32]) -> (Self, Vec<bool>) {
         let n = pixels.len();
         // Each row's unknowns, to find a pixel's index.
         let mut row_at = vec![0usize; height + 1];
@@ -85,22 +86,25 @@ impl Thin {
         // that overlap it widened by one (three pixels above reach), and those two rows up that
         // overlap it (one pixel). The runs increase, so the pointers into the rows above move
         // forward only.
-        let mut runs: Vec<(usize, usize, usize, usize)> = Vec::new(); // y, x from, x to, first unknown
-        for (i, &p) in pixels.iter().enumerate() {
-            let (x, y) = (p as usize % width, p as usize / width);
-            match runs.last_mut() {
-                Some(r) if r.0 == y && r.2 == x => r.2 += 1,
-                _ => runs.push((y, x, x + 1, i)),
+        // y, x from, x to, first unknown (`u32`: the image has fewer than 2³² pixels)
+        let mut packed: Vec<[u32; 4]> = Vec::with_capacity(rows.iter().map(Vec::len).sum());
+        let mut first = 0;
+        for (y, row) in rows.iter().enumerate() {
+            for &(a, b) in row {
+                packed.push([y as u32, a, b, first as u32]);
+                first += (b - a) as usize;
             }
         }
+        let runs = |k: usize| packed[k].map(|v| v as usize);
+        debug_assert_eq!(first, n, "the runs are the pixels'");
         let mut row_start = vec![0usize; height + 1];
-        for r in &runs {
-            row_start[r.0 + 1] += 1;
+        for r in &packed {
+            row_start[r[0] as usize + 1] += 1;
         }
         for y in 0..height {
             row_start[y + 1] += row_start[y];
         }
-        let mut parent: Vec<u32> = (0..runs.len() as u32).collect();
+        let mut parent: Vec<u32> = (0..packed.len() as u32).collect();
         let mut join = |i: usize, j: usize| {
             let (a, b) = (root(&mut parent, i), root(&mut parent, j));
             if a != b {
@@ -111,28 +115,28 @@ impl Thin {
             let (mut up, mut up2) =
                 (if y >= 1 { row_start[y - 1] } else { 0 }, if y >= 2 { row_start[y - 2] } else { 0 });
             for k in row_start[y]..row_start[y + 1] {
-                let (_, a, b, _) = runs[k];
-                if k > row_start[y] && a - runs[k - 1].2 <= 1 {
+                let [_, a, b, _] = runs(k);
+                if k > row_start[y] && a - runs(k - 1)[2] <= 1 {
                     join(k, k - 1);
                 }
                 if y >= 1 {
                     let end = row_start[y];
-                    while up < end && runs[up].2 < a {
+                    while up < end && runs(up)[2] < a {
                         up += 1;
                     }
                     let mut j = up;
-                    while j < end && runs[j].1 <= b {
+                    while j < end && runs(j)[1] <= b {
                         join(k, j);
                         j += 1;
                     }
                 }
                 if y >= 2 {
                     let end = row_start[y - 1];
-                    while up2 < end && runs[up2].2 <= a {
+                    while up2 < end && runs(up2)[2] <= a {
                         up2 += 1;
                     }
                     let mut j = up2;
-                    while j < end && runs[j].1 < b {
+                    while j < end && runs(j)[1] < b {
                         join(k, j);
                         j += 1;
                     }
@@ -142,14 +146,14 @@ impl Thin {
         // Each component's size and box; components too large or too dense are left to the
         // multigrid before their unknowns are listed.
         let mut stats: Vec<(usize, usize, usize, usize, usize)> = Vec::new(); // count, box
-        let mut slot = vec![NONE; runs.len()];
-        for k in 0..runs.len() {
+        let mut slot = vec![NONE; packed.len()];
+        for k in 0..packed.len() {
             let r = root(&mut parent, k);
             if slot[r] == NONE {
                 slot[r] = stats.len() as u32;
                 stats.push((0, usize::MAX, usize::MAX, 0, 0));
             }
-            let (y, a, b, _) = runs[k];
+            let [y, a, b, _] = runs(k);
             let s = &mut stats[slot[r] as usize];
             *s = (s.0 + b - a, s.1.min(a), s.2.min(y), s.3.max(b - 1), s.4.max(y));
             slot[k] = slot[r];
@@ -166,7 +170,7 @@ impl Thin {
         // The wanted components' unknowns, in row order; each unknown's index in its component.
         let mut members: Vec<Vec<u32>> = vec![Vec::new(); stats.len()];
         let mut local = vec![0u32; n];
-        for (k, &(_, a, b, first)) in runs.iter().enumerate() {
+        for (k, [_, a, b, first]) in (0..packed.len()).map(|k| (k, runs(k))) {
             let c = slot[k] as usize;
             if wanted[c] {
                 for (i, l) in local.iter_mut().enumerate().skip(first).take(b - a) {
@@ -316,12 +320,25 @@ mod tests {
         (0..w * h).filter(|&p| f(p % w, p / w)).map(|p| p as u32).collect()
     }
 
+    /// `Thin::plan` of `pixels` with their runs.
+    fn plan(w: usize, h: usize, pixels: &[u32]) -> (Thin, Vec<bool>) {
+        let mut rows = vec![Vec::new(); h];
+        for &p in pixels {
+            let (x, y) = (p % w as u32, p as usize / w);
+            match rows[y].last_mut() {
+                Some((_, b)) if *b == x => *b = x + 1,
+                _ => rows[y].push((x, x + 1)),
+            }
+        }
+        Thin::plan(w, h, &rows, pixels)
+    }
+
     #[test]
     fn components_join_across_one_known_pixel_but_not_two() {
         // (5,5) and (7,5) are two apart, within the 13-point stencil's reach; (10,5) is three
         // from (7,5), and (8,7) one across and two down from it: three steps, out of reach.
         let pixels = pixels_of(16, 12, |x, y| matches!((x, y), (5, 5) | (7, 5) | (10, 5) | (8, 7)));
-        let (thin, taken) = Thin::plan(16, 12, &pixels);
+        let (thin, taken) = plan(16, 12, &pixels);
         assert!(taken.iter().all(|&t| t), "isolated pixels are thin");
         let sizes: Vec<usize> = thin.parts.iter().map(|p| p.pixel.len()).collect();
         assert_eq!(sizes, [2, 1, 1]);
@@ -331,7 +348,7 @@ mod tests {
     fn dense_scatter_is_left_to_the_multigrid() {
         let mut rng = crate::synth::Rng::new(3);
         let pixels = pixels_of(160, 160, |_, _| rng.uniform() < 0.5);
-        let (thin, taken) = Thin::plan(160, 160, &pixels);
+        let (thin, taken) = plan(160, 160, &pixels);
         let share = taken.iter().filter(|&&t| t).count() as f64 / pixels.len() as f64;
         assert!(share < 0.1, "{share:.3} of dropout's unknowns factored");
         assert_eq!(thin.unknowns(), taken.iter().filter(|&&t| t).count());

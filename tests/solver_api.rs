@@ -1,7 +1,7 @@
 //! The solver's contract for the programs built on it: deterministic results, warm starts after a
 //! mask edit, cancelling, and an honest error when it cannot converge.
 
-use reweave::fill::{FillError, FillParams, Solver, Start, Structure};
+use reweave::fill::{FillError, FillMethod, FillParams, Solver, Start, Structure};
 use reweave::mask::Mask;
 use reweave::synth::{MaskFamily, smooth_plane};
 
@@ -65,17 +65,22 @@ fn cancelling_leaves_the_planes_unchanged() {
     let n = 128;
     let mask = MaskFamily::Frame.mask(n, 1);
     let original = smooth_plane(n, n, 2);
-    let mut plane = original.clone();
-    let solver = Solver::new(&mask).unwrap();
-    let mut calls = 0;
-    let result = solver.solve(&mut [&mut plane[..]], &FillParams::default(), Start::FullMultigrid, &mut |p| {
-        calls += 1;
-        assert!(p.residual > 0.0 && p.cycle <= p.max_cycles);
-        false
-    });
-    assert_eq!(result.unwrap_err(), FillError::Cancelled);
-    assert_eq!(calls, 1);
-    assert_eq!(plane, original);
+    // The biharmonic fill starts from a harmonic fill written into the planes: a cancel puts
+    // the old values back.
+    for method in [FillMethod::Harmonic, FillMethod::Biharmonic] {
+        let mut plane = original.clone();
+        let solver = Solver::for_method(&mask, method).unwrap();
+        let mut calls = 0;
+        let params = FillParams { method, ..FillParams::default() };
+        let result = solver.solve(&mut [&mut plane[..]], &params, Start::FullMultigrid, &mut |p| {
+            calls += 1;
+            assert!(p.residual > 0.0 && p.cycle <= p.max_cycles);
+            false
+        });
+        assert_eq!(result.unwrap_err(), FillError::Cancelled, "{method:?}");
+        assert_eq!(calls, 1, "{method:?}");
+        assert!(plane.iter().zip(&original).all(|(a, b)| a.to_bits() == b.to_bits()), "{method:?}: planes changed");
+    }
 }
 
 #[test]

@@ -836,22 +836,37 @@ impl Hierarchy {
         Ok(b)
     }
 
-    /// Copies of `planes` with the multigrid's unknowns filled harmonically to
-    /// [`START_TOLERANCE`], or `None` if that fails (the iteration then starts from zero).
-    fn harmonic_start(&self, planes: &[&mut [f32]], params: &FillParams) -> Option<Vec<Vec<f32>>> {
+    /// Fills the multigrid's unknowns of `planes` harmonically to [`START_TOLERANCE`], in place,
+    /// and returns their values from before (per plane, in the unknowns' order) for
+    /// [`Hierarchy::restore`]; `None`, the planes unchanged, if there is nothing to fill or that
+    /// fill fails (the iteration then starts from zero). The right-hand side reads known pixels
+    /// only, so it may be computed before or after.
+    fn harmonic_start(&self, planes: &mut [&mut [f32]], params: &FillParams) -> Option<Vec<Vec<f32>>> {
         if self.start.is_empty() {
             return None;
         }
-        let mut copies: Vec<Vec<f32>> = planes.iter().map(|p| p.to_vec()).collect();
-        let mut views: Vec<&mut [f32]> = copies.iter_mut().map(Vec::as_mut_slice).collect();
+        let saved: Vec<Vec<f32>> =
+            planes.iter().map(|p| self.pixels.iter().map(|&q| p[q as usize]).collect()).collect();
         let params = FillParams {
             method: super::FillMethod::Harmonic,
             tolerance: START_TOLERANCE,
             grain: None,
             ..params.clone()
         };
-        super::solve_parts(&self.start, &mut views, &params, Start::FullMultigrid, &mut |_| true).ok()?;
-        Some(copies)
+        if super::solve_parts(&self.start, planes, &params, Start::FullMultigrid, &mut |_| true).is_err() {
+            self.restore(planes, &saved);
+            return None;
+        }
+        Some(saved)
+    }
+
+    /// Puts back the multigrid's unknowns saved by [`Hierarchy::harmonic_start`].
+    fn restore(&self, planes: &mut [&mut [f32]], saved: &[Vec<f32>]) {
+        for (plane, values) in planes.iter_mut().zip(saved) {
+            for (&q, &v) in self.pixels.iter().zip(values) {
+                plane[q as usize] = v;
+            }
+        }
     }
 
     /// Fills the unknowns of every plane; on error the planes are unchanged.
@@ -884,16 +899,14 @@ impl Hierarchy {
                 .collect());
         }
         let rhs: Vec<Vec<f64>> = planes.iter().map(|p| self.rhs(p, mask.bits())).collect::<Result<_, _>>()?;
-        let harmonic = if start == Start::Warm { None } else { self.harmonic_start(planes, params) };
+        // From here on an error puts back what the harmonic start wrote.
+        let saved = if start == Start::Warm { None } else { self.harmonic_start(planes, params) };
+        let from_planes = saved.is_some() || start == Start::Warm;
         let starts: Vec<Vec<f64>> = (0..planes.len())
             .map(|c| {
                 let mut x = vec![0f64; self.len];
-                let from = match &harmonic {
-                    Some(h) => Some(h[c].as_slice()),
-                    None if start == Start::Warm => Some(&*planes[c]),
-                    None => None,
-                };
-                if let Some(p) = from {
+                if from_planes {
+                    let p = &*planes[c];
                     let layout = self.layout();
                     layout.for_each_mut(&mut x, |k, _, out| {
                         for (o, &q) in out.iter_mut().zip(&self.pixels[layout.first(k)..]) {
@@ -929,6 +942,9 @@ impl Hierarchy {
                 break;
             }
             if !worst.is_finite() || iteration >= params.max_cycles {
+                if let Some(saved) = &saved {
+                    self.restore(planes, saved);
+                }
                 return Err(FillError::NoConvergence { residual: worst, cycles: iteration });
             }
             let report = Progress {
@@ -938,6 +954,9 @@ impl Hierarchy {
                 tolerance: params.tolerance,
             };
             if !progress(&report) {
+                if let Some(saved) = &saved {
+                    self.restore(planes, saved);
+                }
                 return Err(FillError::Cancelled);
             }
             states.par_iter_mut().zip(&done).filter(|(_, d)| !**d).for_each(|(s, _)| s.step(self, params.tolerance));

@@ -668,6 +668,8 @@ impl Hierarchy {
         // an unknown is within the 13-point reach, so it is either an unknown here or known.
         let start = if pixels.is_empty() {
             Vec::new()
+        } else if thin.unknowns() == 0 {
+            super::plan(mask, structure)
         } else {
             let mut bits = vec![false; w * h];
             for &p in &pixels {

@@ -19,8 +19,10 @@
 //! after the correction, each of the first `SECOND_VISITS` coarse levels is visited
 //! twice with the two corrections combined by one step of conjugate gradients (Notay &
 //! Vassilevski 2008, "Recursive Krylov-based multigrid cycles"), and the coarsest level is
-//! factored densely. The iteration starts from the harmonic fill (`START_TOLERANCE`). Work and
-//! memory follow the unknowns.
+//! factored densely. The iteration starts from the harmonic fill (`START_TOLERANCE`). Unknowns
+//! with no 8×8 square among them (random dropout) get no coarse levels: their iterate is relaxed
+//! by Gauss-Seidel while that converges fast, then conjugate gradients go on with sweeps as the
+//! preconditioner (`SHALLOW_SQUARE`, `RELAX_SLOW`). Work and memory follow the unknowns.
 
 use std::ops::Range;
 use std::time::Instant;

@@ -253,7 +253,7 @@ impl Levels {
 
     /// The hierarchy of the unknowns at `pos` (row-major) in a `w × h` image.
     #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap)]
-    /// `shallow`: the finest level alone, preconditioned by sweeps ([`super::shallow`]).
+    /// `shallow`: the finest level alone, preconditioned by sweeps ([`super::SHALLOW_SQUARE`]).
     pub(super) fn new(pos: Vec<(u32, u32)>, w: usize, h: usize, shallow: bool) -> Self {
         let mut points = Points::new(pos, h);
         // Level 0: one row per image-edge class (distances to the four edges, capped at 2).

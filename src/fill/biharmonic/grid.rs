@@ -661,7 +661,7 @@ pub(super) struct Levels {
 }
 
 impl Levels {
-    /// `shallow`: the finest level alone, preconditioned by sweeps ([`super::shallow`]).
+    /// `shallow`: the finest level alone, preconditioned by sweeps ([`super::SHALLOW_SQUARE`]).
     pub(super) fn new(runs: &[Vec<(u32, u32)>], w: usize, h: usize, shallow: bool) -> Self {
         let mut levels = vec![finest(runs, w, h)];
         if shallow {
@@ -726,6 +726,11 @@ impl Levels {
     /// Where the finest level's vectors hold its points, in point order.
     pub(super) fn finest_layout(&self) -> &Layout {
         &self.levels[0].layout
+    }
+
+    /// The first point of the finest level's run (layout span) `k`.
+    pub(super) fn finest_run_first(&self, k: usize) -> usize {
+        self.levels[0].runs[k].2
     }
 
     pub(super) fn apply(&self, u: &[f64], out: &mut [f64]) {

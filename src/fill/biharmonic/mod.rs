@@ -368,18 +368,13 @@ struct Layout {
     spans: Vec<(usize, usize)>,
     /// Consecutive ranges of `spans` of about [`GROUP_POINTS`] points each.
     groups: Vec<std::ops::Range<usize>>,
-    /// Each span's first point: the points are numbered span after span.
-    first_point: Vec<u32>,
 }
 
 impl Layout {
     fn new(spans: Vec<(usize, usize)>) -> Self {
         let mut groups = Vec::new();
-        let mut first_point = Vec::with_capacity(spans.len());
-        let (mut first, mut points, mut total) = (0, 0, 0);
+        let (mut first, mut points) = (0, 0);
         for (k, &(s, e)) in spans.iter().enumerate() {
-            first_point.push(crate::mask::index_u32(total));
-            total += e - s;
             points += e - s;
             if points >= GROUP_POINTS {
                 groups.push(first..k + 1);
@@ -389,12 +384,7 @@ impl Layout {
         if first < spans.len() {
             groups.push(first..spans.len());
         }
-        Self { spans, groups, first_point }
-    }
-
-    /// The first point of span `k`.
-    fn first(&self, k: usize) -> usize {
-        self.first_point[k] as usize
+        Self { spans, groups }
     }
 
     /// Calls `f(span, first slot, end slot)` for every span, groups in parallel; for loops that
@@ -749,6 +739,15 @@ impl Hierarchy {
         }
     }
 
+    /// The first unknown of the finest layout's span `k` (the unknowns are numbered span after
+    /// span).
+    fn first(&self, k: usize) -> usize {
+        match &self.storage {
+            Storage::Grid(g) => g.finest_run_first(k),
+            Storage::Compact(_) => self.layout().spans[k].0,
+        }
+    }
+
     /// Whether the hierarchy has no coarse levels (see [`SHALLOW_SQUARE`]).
     fn is_shallow(&self) -> bool {
         match &self.storage {
@@ -821,7 +820,7 @@ impl Hierarchy {
         let mut b = vec![0f64; self.len];
         let layout = self.layout();
         let bad = layout.sum_mut(&mut b, |k, _, out| {
-            let p0 = layout.first(k);
+            let p0 = self.first(k);
             let mut bad = 0.0;
             for (o, &p) in out.iter_mut().zip(&self.pixels[p0..]) {
                 match point(p) {
@@ -913,7 +912,7 @@ impl Hierarchy {
                     let p = &*planes[c];
                     let layout = self.layout();
                     layout.for_each_mut(&mut x, |k, _, out| {
-                        for (o, &q) in out.iter_mut().zip(&self.pixels[layout.first(k)..]) {
+                        for (o, &q) in out.iter_mut().zip(&self.pixels[self.first(k)..]) {
                             let v = f64::from(p[q as usize]);
                             *o = if v.is_finite() { v } else { 0.0 };
                         }
@@ -983,7 +982,7 @@ impl Hierarchy {
             let layout = self.layout();
             let out = Shared(plane.as_mut_ptr(), plane.len());
             layout.for_each_span(|k, a, e| {
-                for (&p, &v) in self.pixels[layout.first(k)..].iter().zip(&s.x[a..e]) {
+                for (&p, &v) in self.pixels[self.first(k)..].iter().zip(&s.x[a..e]) {
                     // SAFETY: every unknown is one pixel of the plane, written by its span's task.
                     #[allow(clippy::cast_possible_truncation)]
                     unsafe {

@@ -32,6 +32,7 @@
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
+use super::lanes::Rgb;
 use super::{Cycle, FillError, FillParams, GroupResult, Levels, Progress, Start};
 
 /// Stop coarsening once a level has at most this many points; it is then solved directly (a
@@ -791,6 +792,7 @@ fn dense_coarsest(level: &Coarse) -> Option<Coarsest> {
 }
 
 /// Per-image vectors for `C` interleaved channels.
+#[derive(Clone)]
 struct Work<const C: usize> {
     /// Level 0: the iterate over the box (known pixels hold their values).
     u: Vec<f64>,
@@ -800,8 +802,8 @@ struct Work<const C: usize> {
     coarse_x: Vec<f64>,
     /// Per level: three fine residual rows for each task of [`Cycler::descend`].
     scratch: Vec<Vec<f64>>,
-    /// Partial sums of the residual norm, one per task of `ROWS` rows.
-    partial: Vec<[f64; C]>,
+    /// Level 0's squared residual norm per row.
+    row_sq: Vec<[f64; C]>,
     /// One padded coarse row per band of the coarse sweeps.
     row_buf: Vec<f32>,
 }
@@ -817,6 +819,11 @@ struct Cycler<'a, const C: usize> {
     /// The colour of the level-0 cells relaxed last, if nothing changed level 0 since: those
     /// cells are the Gauss-Seidel update of the others, so their residuals are zero.
     relaxed_last: Option<usize>,
+    /// Level 0's squared residual norm, when the last smoothing summed it and nothing changed
+    /// level 0 since.
+    norm: Option<[f64; C]>,
+    /// Vector kernels for three channels, where the processor has them.
+    rgb: Option<Rgb>,
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -877,6 +884,12 @@ impl<const C: usize> Cycler<'_, C> {
                 unsafe {
                     let row = u.add(y * w * C);
                     let wc = w * C;
+                    if C == 3
+                        && let Some(rgb) = self.rgb
+                    {
+                        rgb.relax(row, wc, first, end);
+                        return;
+                    }
                     let mut x = first;
                     while x < end {
                         let p = row.add(x * C);
@@ -894,27 +907,64 @@ impl<const C: usize> Cycler<'_, C> {
     }
 
     /// `sweeps` red-black sweeps of level 0 (`reverse`: black first) as one wavefront, less the
-    /// first half-sweep when `skip_first`.
-    fn sweeps0(&mut self, sweeps: usize, reverse: bool, skip_first: bool) {
+    /// first half-sweep when `skip_first`. With `correct`, the wavefront first adds the
+    /// interpolated correction of level 1 to each row (the work of [`Cycler::ascend`]); with
+    /// `norm` and at least one half-sweep, it ends by summing each row's squared residual, kept
+    /// for [`Cycler::residual_norm0`]. Each pass over level 0 costs a trip through memory once
+    /// the iterate outgrows the cache (a 2048² RGB iterate is 100 MB), and the wavefront makes
+    /// all of them one.
+    fn sweeps0(&mut self, sweeps: usize, reverse: bool, skip_first: bool, correct: bool, norm: bool) {
         let skip = usize::from(skip_first);
-        let phases = (2 * sweeps).saturating_sub(skip);
+        let relax = (2 * sweeps).saturating_sub(skip);
+        let norm = norm && relax > 0;
+        let first = usize::from(correct);
+        let phases = first + relax + usize::from(norm);
+        // The colour of the last half-sweep, whose residuals are zero.
+        let last = (usize::from(reverse) + relax + skip + 1) % 2;
+        let ec = if correct { std::mem::take(&mut self.work.e[0]) } else { Vec::new() };
+        let mut row_sq = std::mem::take(&mut self.work.row_sq);
+        let sq = Shared(row_sq.as_mut_ptr());
         let u = Shared(self.work.u.as_mut_ptr());
         let this = &*self;
+        let wc = this.g.w * C;
         wavefront(this.g.h, this.band.max(2 * phases), phases, |y, phase| {
-            let colour = (usize::from(reverse) + phase + skip) % 2;
-            // SAFETY: `wavefront` runs phase p of a row only between phases p − 1 and p + 1 of
-            // its neighbour rows, never two tasks on neighbouring rows in one phase, and red-black
-            // cells of one colour are never neighbours.
-            unsafe { this.relax_row0(u, y, colour) };
+            // SAFETY (all three): `wavefront` runs phase p of a row only between phases p − 1
+            // and p + 1 of its neighbour rows, never two tasks on neighbouring rows in one phase,
+            // and red-black cells of one colour are never neighbours.
+            if phase < first {
+                let row = unsafe { std::slice::from_raw_parts_mut(u.get().add(y * wc), wc) };
+                this.interpolate_row(0, &ec, y, this.g.w, row, |row, x, v| {
+                    for c in 0..C {
+                        row[x * C + c] += v[c];
+                    }
+                });
+            } else if phase < first + relax {
+                let colour = (usize::from(reverse) + phase - first + skip) % 2;
+                unsafe { this.relax_row0(u, y, colour) };
+            } else {
+                // Rows y − 1..=y + 1 are done with; `sq` has one entry per row.
+                unsafe { *sq.get().add(y) = this.residual_sq_row0(this.rows_around(u, y), y, Some(1 - last)) };
+            }
         });
+        if correct {
+            self.work.e[0] = ec;
+        }
+        self.norm = norm.then(|| sum(&row_sq));
+        self.work.row_sq = row_sq;
+        if relax > 0 {
+            self.relaxed_last = Some(last);
+        } else if correct {
+            self.relaxed_last = None;
+        }
     }
 
-    /// The residual `b − A·u` of level 0 at the unknown `(x, y)`.
+    /// The residual `b − A·u` of level 0 at the unknown `(x, y)`, from `rows`, the iterate's rows
+    /// `y − 1..=y + 1` (from row 0 when `y` is 0; see [`Cycler::rows_around`]).
     #[inline]
-    fn res0(&self, x: usize, y: usize) -> [f64; C] {
+    fn res0(&self, rows: &[f64], x: usize, y: usize) -> [f64; C] {
         let (w, h) = (self.g.w, self.g.h);
-        let u = &self.work.u;
-        let i = y * w + x;
+        let u = rows;
+        let i = y.min(1) * w + x;
         let mut out = [0f64; C];
         if y > 0 && y + 1 < h && x > 0 && x + 1 < w {
             for (c, o) in out.iter_mut().enumerate() {
@@ -942,16 +992,28 @@ impl<const C: usize> Cycler<'_, C> {
         out
     }
 
+    /// The iterate's rows `y − 1..=y + 1` (those that exist) as one slice.
+    ///
+    /// # Safety
+    /// `u` points at the level-0 iterate and no task writes those rows while the slice lives.
+    unsafe fn rows_around<'a>(&self, u: Shared<f64>, y: usize) -> &'a [f64] {
+        let wc = self.g.w * C;
+        let (a, b) = (y.saturating_sub(1), (y + 2).min(self.g.h));
+        // SAFETY: the rows are inside the iterate; the caller's contract covers the writes.
+        unsafe { std::slice::from_raw_parts(u.get().add(a * wc), (b - a) * wc) }
+    }
+
     /// Calls `f(first, step, r)` with the level-0 residuals `r` of the unknowns `first, first +
-    /// step, …` of row `y` (`C` per point), in spans of at most 64 points. Right after a half-sweep
-    /// of one colour the residuals of that colour are zero up to rounding (each cell was just set
-    /// to the mean of its neighbours), and only the other colour's are computed (`step` 2).
+    /// step, …` of row `y` (`C` per point), in spans of at most 64 points; `rows` holds the
+    /// iterate's rows `y − 1..=y + 1` ([`Cycler::rows_around`]). Right after a half-sweep of one
+    /// colour the residuals of that colour are zero up to rounding (each cell was just set to the
+    /// mean of its neighbours), and only the other colour's are computed (`colour` given, `step`
+    /// 2).
     #[inline]
-    fn residual_spans0(&self, y: usize, mut f: impl FnMut(usize, usize, &[f64])) {
+    fn residual_spans0(&self, rows: &[f64], y: usize, colour: Option<usize>, mut f: impl FnMut(usize, usize, &[f64])) {
         let (w, h) = (self.g.w, self.g.h);
-        let u = &self.work.u;
+        let u = rows;
         let inner_row = y > 0 && y + 1 < h;
-        let colour = self.relaxed_last.map(|c| 1 - c);
         let step = if colour.is_some() { 2 } else { 1 };
         let mut buf = [0f64; 64 * 4];
         self.g.members.for_row_spans(y, colour, |first, end| {
@@ -959,9 +1021,9 @@ impl<const C: usize> Cycler<'_, C> {
             let out = &mut buf[..n * C];
             if inner_row && first > 0 && end < w {
                 let wc = w * C;
-                let mid = &u[y * wc + (first - 1) * C..y * wc + (end + 1) * C];
-                let up = &u[(y - 1) * wc + first * C..(y - 1) * wc + end * C];
-                let down = &u[(y + 1) * wc + first * C..(y + 1) * wc + end * C];
+                let mid = &u[wc + (first - 1) * C..wc + (end + 1) * C];
+                let up = &u[first * C..end * C];
+                let down = &u[2 * wc + first * C..2 * wc + end * C];
                 if step == 1 {
                     for (k, o) in out.iter_mut().enumerate() {
                         *o = mid[k] + mid[k + 2 * C] + up[k] + down[k] - 4.0 * mid[k + C];
@@ -976,7 +1038,7 @@ impl<const C: usize> Cycler<'_, C> {
                 }
             } else {
                 for (k, x) in (first..end).step_by(step).enumerate() {
-                    out[k * C..k * C + C].copy_from_slice(&self.res0(x, y));
+                    out[k * C..k * C + C].copy_from_slice(&self.res0(rows, x, y));
                 }
             }
             f(first, step, out);
@@ -986,7 +1048,9 @@ impl<const C: usize> Cycler<'_, C> {
     /// The residual of level 0 along row `y` (zero off the unknowns), into `out` (`w · C` long).
     fn residual_row0(&self, y: usize, out: &mut [f64]) {
         out.fill(0.0);
-        self.residual_spans0(y, |first, step, r| {
+        // SAFETY: nothing writes the iterate while a residual is computed (`&self`).
+        let rows = unsafe { self.rows_around(Shared(self.work.u.as_ptr().cast_mut()), y) };
+        self.residual_spans0(rows, y, self.relaxed_last.map(|c| 1 - c), |first, step, r| {
             if step == 1 {
                 out[first * C..first * C + r.len()].copy_from_slice(r);
             } else {
@@ -998,42 +1062,106 @@ impl<const C: usize> Cycler<'_, C> {
         });
     }
 
-    /// `‖b − A·u‖²` per channel on level 0, summed in a fixed order.
-    fn residual_norm0(&mut self) -> [f64; C] {
-        let mut partial = std::mem::take(&mut self.work.partial);
-        let h = self.g.h;
-        let this = &*self;
-        partial.par_iter_mut().enumerate().for_each(|(t, s)| {
-            *s = [0f64; C];
-            for y in t * ROWS..((t + 1) * ROWS).min(h) {
-                this.residual_spans0(y, |_, _, r| {
-                    for p in r.chunks_exact(C) {
-                        for c in 0..C {
-                            s[c] += p[c] * p[c];
-                        }
-                    }
-                });
+    /// `‖b − A·u‖²` of row `y` per channel on level 0 (`rows` and `colour` as for
+    /// [`Cycler::residual_spans0`]).
+    fn residual_sq_row0(&self, rows: &[f64], y: usize, colour: Option<usize>) -> [f64; C] {
+        let mut s = [0f64; C];
+        self.residual_spans0(rows, y, colour, |_, _, r| {
+            for p in r.chunks_exact(C) {
+                for c in 0..C {
+                    s[c] += p[c] * p[c];
+                }
             }
         });
-        let total = sum(&partial);
-        self.work.partial = partial;
+        s
+    }
+
+    /// `‖b − A·u‖²` per channel on level 0: the rows' sums added in row order, so the result
+    /// does not depend on the threads, nor on whether the last smoothing summed them
+    /// ([`Cycler::sweeps0`]).
+    fn residual_norm0(&mut self) -> [f64; C] {
+        if let Some(norm) = self.norm.take() {
+            return norm;
+        }
+        let mut row_sq = std::mem::take(&mut self.work.row_sq);
+        let colour = self.relaxed_last.map(|c| 1 - c);
+        let this = &*self;
+        let u = Shared(this.work.u.as_ptr().cast_mut());
+        row_sq.par_chunks_mut(ROWS).enumerate().for_each(|(t, sums)| {
+            for (k, s) in sums.iter_mut().enumerate() {
+                let y = t * ROWS + k;
+                // SAFETY: nothing writes the iterate meanwhile (`this` borrows the cycler).
+                *s = this.residual_sq_row0(unsafe { this.rows_around(u, y) }, y, colour);
+            }
+        });
+        let total = sum(&row_sq);
+        self.work.row_sq = row_sq;
         total
     }
 
     /// Restricts the residual of level `l` to the right-hand side of level `l + 1`, zeroing its
-    /// correction.
-    fn descend(&mut self, l: usize) {
+    /// correction. With `sweep` (level 0 only), a half-sweep of that colour is run first, row by
+    /// row just before the residual needs it, so level 0 is passed over once for both (a
+    /// half-sweep of one colour reads only the other, so its rows may go in any order).
+    fn descend(&mut self, l: usize, sweep: Option<usize>) {
+        debug_assert!(l == 0 || sweep.is_none());
         let coarse = &self.g.levels[l];
         let mut rhs = std::mem::take(&mut self.work.rhs[l]);
         let mut scratch = std::mem::take(&mut self.work.scratch[l]);
+        if let Some(colour) = sweep {
+            self.relaxed_last = Some(colour);
+            self.norm = None;
+        }
         {
+            let u = Shared(self.work.u.as_mut_ptr());
             let this = &*self;
             let cw = coarse.pw * C;
             let (fw, fh) = this.fine_dims(l);
             // Coarse rows in tasks; each task keeps the three fine residual rows it needs.
             let per_task = restrict_rows(coarse, this.threads);
+            let tasks = (coarse.h + 2).div_ceil(per_task);
+            // With a sweep, task t sweeps the fine rows `own(t)`; the residual rows of its coarse
+            // rows also read its neighbours' nearest rows, swept first, before any residual.
+            let start = |t: usize| {
+                if t == 0 {
+                    0
+                } else if t >= tasks {
+                    fh
+                } else {
+                    (2 * (t * per_task - 1)).min(fh)
+                }
+            };
+            let own = |t: usize| start(t)..start(t + 1);
+            let edges = |t: usize| {
+                let r = own(t);
+                [r.start, r.end.saturating_sub(2).max(r.start), r.end.saturating_sub(1).max(r.start)]
+            };
+            // SAFETY (both): a row is swept by one task only, and while the sweep of one colour
+            // writes it, nothing reads that colour's cells of the row: its own task computes the
+            // residuals that read it only after, and the other tasks read only the edge rows,
+            // swept before they start.
+            if let Some(colour) = sweep {
+                (0..tasks).into_par_iter().for_each(|t| {
+                    let e = edges(t);
+                    for (k, &y) in e.iter().enumerate() {
+                        if y < own(t).end && !e[..k].contains(&y) {
+                            unsafe { this.relax_row0(u, y, colour) };
+                        }
+                    }
+                });
+            }
             rhs.par_chunks_mut(cw * per_task).zip(scratch.par_chunks_mut(3 * fw * C)).enumerate().for_each(
                 |(t, (chunk, buf))| {
+                    // The next of this task's rows left to sweep, and where they end.
+                    let (mut next, inner_end) = (own(t).start + 1, edges(t)[1]);
+                    let mut swept_to = |y: usize| {
+                        if let Some(colour) = sweep {
+                            while next < inner_end && next <= y {
+                                unsafe { this.relax_row0(u, next, colour) };
+                                next += 1;
+                            }
+                        }
+                    };
                     let (r0, rest) = buf.split_at_mut(fw * C);
                     let (r1, r2) = rest.split_at_mut(fw * C);
                     let mut rows = [r0, r1, r2];
@@ -1060,11 +1188,13 @@ impl<const C: usize> Cycler<'_, C> {
                                 have.swap(0, 2);
                                 continue;
                             }
+                            swept_to(fy + 1);
                             this.residual_row(l, fy, rows[r]);
                             have[r] = fy;
                         }
                         this.restrict_row(l, cy, &rows, &have, out);
                     }
+                    swept_to(fh);
                 },
             );
         }
@@ -1209,6 +1339,7 @@ impl<const C: usize> Cycler<'_, C> {
         let (fw, fh) = self.fine_dims(l);
         if l == 0 {
             self.relaxed_last = None;
+            self.norm = None;
             let mut u = std::mem::take(&mut self.work.u);
             let this = &*self;
             u.par_chunks_mut(fw * C * ROWS).enumerate().for_each(|(t, rows)| {
@@ -1415,7 +1546,7 @@ impl<const C: usize> Cycler<'_, C> {
 
     fn smooth(&mut self, l: usize, sweeps: usize, reverse: bool) {
         if l == 0 {
-            self.sweeps0(sweeps, reverse, false);
+            self.sweeps0(sweeps, reverse, false, false, false);
         } else {
             self.sweeps_coarse(l - 1, sweeps, reverse);
         }
@@ -1448,7 +1579,7 @@ impl<const C: usize> Cycler<'_, C> {
     fn full_multigrid(&mut self) {
         let depth = self.g.levels.len();
         for l in 0..depth {
-            self.descend(l);
+            self.descend(l, None);
         }
         self.coarsest(depth);
         for l in (1..depth).rev() {
@@ -1532,22 +1663,34 @@ impl<const C: usize> Levels for Cycler<'_, C> {
         if l == 0 && self.relaxed_last == Some(0) && self.params.pre_smooth > 0 {
             // The last post-smoothing sweep ended with the red cells, and nothing changed since:
             // a red half-sweep now would recompute the same values, so start with black.
-            self.sweeps0(self.params.pre_smooth, false, true);
+            self.sweeps0(self.params.pre_smooth, false, true, false, false);
         } else {
             self.smooth(l, self.params.pre_smooth, false);
-        }
-        if l == 0 && self.params.pre_smooth > 0 {
-            self.relaxed_last = Some(1);
         }
     }
     fn post_smooth(&mut self, l: usize) {
         self.smooth(l, self.params.post_smooth, true);
+    }
+    fn ascend_and_post_smooth(&mut self, l: usize) {
         if l == 0 {
-            self.relaxed_last = (self.params.post_smooth > 0).then_some(0);
+            // One pass over level 0 for the correction, the sweeps and the next residual norm.
+            self.sweeps0(self.params.post_smooth, true, false, true, true);
+        } else {
+            self.ascend(l);
+            self.post_smooth(l);
         }
     }
     fn descend(&mut self, l: usize) {
-        Cycler::descend(self, l);
+        Cycler::descend(self, l, None);
+    }
+    fn pre_smooth_and_descend(&mut self, l: usize) {
+        if l == 0 && self.relaxed_last == Some(0) && self.params.pre_smooth == 1 {
+            // The one black half-sweep (see `pre_smooth`) runs inside the restriction.
+            Cycler::descend(self, 0, Some(1));
+        } else {
+            self.pre_smooth(l);
+            Cycler::descend(self, l, None);
+        }
     }
     fn ascend(&mut self, l: usize) {
         Cycler::ascend(self, l);
@@ -1584,6 +1727,32 @@ pub(crate) fn solve_group<const C: usize>(
     start: Start,
     progress: &mut (dyn FnMut(&Progress) -> bool + Send),
 ) -> Result<GroupResult, FillError> {
+    let (mut cy, scale, b_sq) = prepare::<C>(g, planes, params, start)?;
+    let bnorm = b_sq.map(|s| if s > 0.0 { s.sqrt() } else { 1.0 });
+    if start == Start::FullMultigrid {
+        cy.full_multigrid();
+    }
+    let (reports, r_sq) = super::iterate(&mut cy, params, start, bnorm, progress)?;
+    // Norms in the planes' own units, so parts with different scales add up correctly.
+    let unscale = |v: [f64; C]| (0..C).map(|c| v[c] / (scale[c] * scale[c])).collect();
+    Ok(GroupResult {
+        values: cy.work.u,
+        rounded: Vec::new(),
+        reports,
+        r_sq: unscale(r_sq),
+        b_sq: unscale(b_sq),
+        scale: scale.to_vec(),
+    })
+}
+
+/// The cycler of one group of planes with its level-0 iterate set up (known pixels scaled, the
+/// unknowns zero or, for a warm start, the planes' values), each channel's scale, and `‖b‖²`.
+fn prepare<'a, const C: usize>(
+    g: &'a Grid,
+    planes: &[&mut [f32]],
+    params: &'a FillParams,
+    start: Start,
+) -> Result<(Cycler<'a, C>, [f64; C], [f64; C]), FillError> {
     let (w, h) = (g.w, g.h);
     // Level 0: known pixels of the box take their values; unknowns start at zero (full
     // multigrid) or at the planes' values (warm start). The right-hand side's norm is the norm
@@ -1658,7 +1827,7 @@ pub(crate) fn solve_group<const C: usize>(
             vec![0f64; tasks * 3 * fw * C]
         })
         .collect();
-    let partial = vec![[0f64; C]; h.div_ceil(ROWS)];
+    let row_sq = vec![[0f64; C]; h];
     let row_buf = vec![
         0f32;
         g.levels
@@ -1668,13 +1837,15 @@ pub(crate) fn solve_group<const C: usize>(
             .max()
             .unwrap_or(0)
     ];
-    let mut cy = Cycler {
+    let cy = Cycler {
         g,
         params,
-        work: Work { u, e, rhs, coarse_x, scratch, partial, row_buf },
+        work: Work { u, e, rhs, coarse_x, scratch, row_sq, row_buf },
         band,
         threads,
         relaxed_last: None,
+        norm: None,
+        rgb: Rgb::detect(),
     };
 
     // ‖b‖: the known neighbours of every unknown, summed. Members whose four neighbours are all
@@ -1717,22 +1888,7 @@ pub(crate) fn solve_group<const C: usize>(
             .collect();
         sum(&parts)
     };
-    let bnorm = b_sq.map(|s| if s > 0.0 { s.sqrt() } else { 1.0 });
-
-    if start == Start::FullMultigrid {
-        cy.full_multigrid();
-    }
-    let (reports, r_sq) = super::iterate(&mut cy, params, start, bnorm, progress)?;
-    // Norms in the planes' own units, so parts with different scales add up correctly.
-    let unscale = |v: [f64; C]| (0..C).map(|c| v[c] / (scale[c] * scale[c])).collect();
-    Ok(GroupResult {
-        values: cy.work.u,
-        rounded: Vec::new(),
-        reports,
-        r_sq: unscale(r_sq),
-        b_sq: unscale(b_sq),
-        scale: scale.to_vec(),
-    })
+    Ok((cy, scale, b_sq))
 }
 
 /// Writes a group's values (the level-0 iterate over the box) into the planes.
@@ -1897,5 +2053,51 @@ mod tests {
         // Coarse points at least 3 fine pixels inside the hole's edge are interior.
         assert!(interior > 90 * 90, "{interior} interior points");
         assert!(level.table.len() > 2, "boundary points need their own stencils");
+    }
+
+    /// The passes that do several steps over level 0 at once (the black half-sweep inside the
+    /// restriction; the correction, the sweeps and the residual norm in one wavefront) give the
+    /// same iterate, right-hand sides and norm bit for bit as the steps one after another, on
+    /// several bands and with the edge rows of the restriction's tasks inside holes.
+    #[test]
+    fn fused_passes_over_level_zero_equal_the_steps_one_by_one() {
+        let mut rng = crate::synth::Rng::new(5);
+        let masks = [
+            Mask::from_fn(150, 131, |x, y| (1..149).contains(&x) && (1..129).contains(&y)),
+            Mask::from_fn(140, 120, |x, y| (x, y) == (1, 1) || (x as f64 - 70.0).hypot(y as f64 - 60.0) < 50.0),
+            Mask::from_fn(120, 97, |x, y| (x, y) == (1, 1) || x % 17 == 3 || rng.uniform() < 0.55),
+        ];
+        let params = FillParams::default();
+        let pool = rayon::ThreadPoolBuilder::new().num_threads(2).build().expect("pool");
+        for mask in &masks {
+            let g = grid_of(mask);
+            let (w, h) = (mask.width(), mask.height());
+            let mut planes: Vec<Vec<f32>> = (0..3)
+                .map(|c| (0..w * h).map(|p| ((p % w) as f32 * 0.37 + (p / w) as f32 * 0.11 + c as f32).sin()).collect())
+                .collect();
+            let views: Vec<&mut [f32]> = planes.iter_mut().map(|p| p.as_mut_slice()).collect();
+            pool.install(|| {
+                let (mut fused, ..) = prepare::<3>(&g, &views, &params, Start::FullMultigrid).expect("prepare");
+                // Small bands, so the wavefront has seams.
+                fused.band = 8;
+                fused.full_multigrid();
+                let mut apart = Cycler { work: fused.work.clone(), norm: None, ..fused };
+                for _ in 0..2 {
+                    Levels::cycle(&mut fused, 0, Cycle::V);
+                    apart.pre_smooth(0);
+                    Cycler::descend(&mut apart, 0, None);
+                    Levels::cycle(&mut apart, 1, Cycle::V);
+                    apart.ascend(0);
+                    apart.post_smooth(0);
+                    assert!(fused.norm.is_some(), "the post-smoothing summed the norm");
+                    assert!(fused.work.u.iter().zip(&apart.work.u).all(|(a, b)| a.to_bits() == b.to_bits()));
+                    assert!(fused.work.rhs.iter().zip(&apart.work.rhs).all(|(a, b)| a == b));
+                    assert_eq!(fused.relaxed_last, apart.relaxed_last);
+                    let (n_fused, n_apart) = (fused.residual_norm0(), apart.residual_norm0());
+                    assert_eq!(n_fused.map(f64::to_bits), n_apart.map(f64::to_bits));
+                    assert!(n_fused.iter().all(|&n| n > 0.0));
+                }
+            });
+        }
     }
 }

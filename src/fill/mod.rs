@@ -31,6 +31,7 @@ mod grid;
 pub mod guided;
 mod hierarchy;
 mod kernels;
+mod lanes;
 mod solve;
 mod sparse;
 
@@ -398,6 +399,16 @@ pub(crate) trait Levels {
     /// Adds the interpolated correction of level `l + 1` to level `l`.
     fn ascend(&mut self, l: usize);
     fn coarsest(&mut self, l: usize);
+    /// [`Levels::pre_smooth`] then [`Levels::descend`] (a storage may do both in one pass).
+    fn pre_smooth_and_descend(&mut self, l: usize) {
+        self.pre_smooth(l);
+        self.descend(l);
+    }
+    /// [`Levels::ascend`] then [`Levels::post_smooth`] (a storage may do both in one pass).
+    fn ascend_and_post_smooth(&mut self, l: usize) {
+        self.ascend(l);
+        self.post_smooth(l);
+    }
 
     /// One cycle from level `l`: pre-smoothing, the coarse-grid correction (one visit to the
     /// next level for V, two for W, an F- then a V-cycle for F) and post-smoothing.
@@ -406,8 +417,7 @@ pub(crate) trait Levels {
             self.coarsest(l);
             return;
         }
-        self.pre_smooth(l);
-        self.descend(l);
+        self.pre_smooth_and_descend(l);
         match kind {
             Cycle::V => self.cycle(l + 1, Cycle::V),
             Cycle::W => {
@@ -419,8 +429,7 @@ pub(crate) trait Levels {
                 self.cycle(l + 1, Cycle::V);
             }
         }
-        self.ascend(l);
-        self.post_smooth(l);
+        self.ascend_and_post_smooth(l);
     }
 }
 

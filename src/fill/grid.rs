@@ -932,12 +932,7 @@ impl<const C: usize> Cycler<'_, C> {
             // and p + 1 of its neighbour rows, never two tasks on neighbouring rows in one phase,
             // and red-black cells of one colour are never neighbours.
             if phase < first {
-                let row = unsafe { std::slice::from_raw_parts_mut(u.get().add(y * wc), wc) };
-                this.interpolate_row(0, &ec, y, this.g.w, row, |row, x, v| {
-                    for c in 0..C {
-                        row[x * C + c] += v[c];
-                    }
-                });
+                this.correct_row0(&ec, y, unsafe { std::slice::from_raw_parts_mut(u.get().add(y * wc), wc) });
             } else if phase < first + relax {
                 let colour = (usize::from(reverse) + phase - first + skip) % 2;
                 unsafe { this.relax_row0(u, y, colour) };
@@ -1028,6 +1023,10 @@ impl<const C: usize> Cycler<'_, C> {
                     for (k, o) in out.iter_mut().enumerate() {
                         *o = mid[k] + mid[k + 2 * C] + up[k] + down[k] - 4.0 * mid[k + C];
                     }
+                } else if C == 3
+                    && let Some(rgb) = self.rgb
+                {
+                    rgb.residual_every_other(mid, up, down, out);
                 } else {
                     for (j, o) in out.chunks_exact_mut(C).enumerate() {
                         let k = 2 * j * C;
@@ -1265,41 +1264,69 @@ impl<const C: usize> Cycler<'_, C> {
     fn restrict_row(&self, l: usize, cy: usize, rows: &[&mut [f64]; 3], have: &[usize; 3], out: &mut [f32]) {
         let coarse = &self.g.levels[l];
         let (fw, _) = self.fine_dims(l);
-        for cx in 0..coarse.w {
-            let pi = coarse.at(cx, cy);
-            let id = coarse.id[pi];
-            if id == NONE {
-                continue;
+        split_row(coarse.runs.row(cy), coarse.w, |first, end, run| {
+            if run
+                && C == 3
+                && let Some(rgb) = self.rgb
+            {
+                // A run of interior points: fine cells 2·first − 1 ..= 2·end − 1 of each row.
+                let fine = |r: usize| &rows[r][(2 * first - 1) * C..2 * end * C];
+                rgb.full_weighting(fine(0), fine(1), fine(2), &mut out[(first + 1) * C..(end + 1) * C]);
+                return;
             }
-            let mut acc = [0f64; C];
-            if id == INTERIOR {
-                // Full weighting; an interior point has all nine fine neighbours.
-                let x = 2 * cx * C;
-                let (a, b, d) = (&rows[0][x - C..x + 2 * C], &rows[1][x - C..x + 2 * C], &rows[2][x - C..x + 2 * C]);
-                for c in 0..C {
-                    acc[c] = 0.25 * (a[c] + a[2 * C + c] + d[c] + d[2 * C + c])
-                        + 0.5 * (a[C + c] + d[C + c] + b[c] + b[2 * C + c])
-                        + b[C + c];
+            for cx in first..end {
+                self.restrict_point(cx, coarse, cy, fw, rows, have, out);
+            }
+        });
+    }
+
+    /// The restriction's value at coarse point `(cx, cy)` of `coarse` (see
+    /// [`Cycler::restrict_row`]).
+    #[inline]
+    #[allow(clippy::too_many_arguments)]
+    fn restrict_point(
+        &self,
+        cx: usize,
+        coarse: &Coarse,
+        cy: usize,
+        fw: usize,
+        rows: &[&mut [f64]; 3],
+        have: &[usize; 3],
+        out: &mut [f32],
+    ) {
+        let pi = coarse.at(cx, cy);
+        let id = coarse.id[pi];
+        if id == NONE {
+            return;
+        }
+        let mut acc = [0f64; C];
+        if id == INTERIOR {
+            // Full weighting; an interior point has all nine fine neighbours.
+            let x = 2 * cx * C;
+            let (a, b, d) = (&rows[0][x - C..x + 2 * C], &rows[1][x - C..x + 2 * C], &rows[2][x - C..x + 2 * C]);
+            for c in 0..C {
+                acc[c] = 0.25 * (a[c] + a[2 * C + c] + d[c] + d[2 * C + c])
+                    + 0.5 * (a[C + c] + d[C + c] + b[c] + b[2 * C + c])
+                    + b[C + c];
+            }
+        } else {
+            let col = &coarse.pcol[coarse.stencil_index_in_row(pi, cy + 1)];
+            for r in 0..3 {
+                if have[r] == usize::MAX {
+                    continue;
                 }
-            } else {
-                let col = &coarse.pcol[coarse.stencil_index_in_row(pi, cy + 1)];
-                for r in 0..3 {
-                    if have[r] == usize::MAX {
-                        continue;
-                    }
-                    for fx in (2 * cx).saturating_sub(1)..(2 * cx + 2).min(fw) {
-                        let wgt = f64::from(col[r * 3 + fx + 1 - 2 * cx]);
-                        if wgt != 0.0 {
-                            for c in 0..C {
-                                acc[c] += wgt * rows[r][fx * C + c];
-                            }
+                for fx in (2 * cx).saturating_sub(1)..(2 * cx + 2).min(fw) {
+                    let wgt = f64::from(col[r * 3 + fx + 1 - 2 * cx]);
+                    if wgt != 0.0 {
+                        for c in 0..C {
+                            acc[c] += wgt * rows[r][fx * C + c];
                         }
                     }
                 }
             }
-            for c in 0..C {
-                out[(cx + 1) * C + c] = acc[c] as f32;
-            }
+        }
+        for c in 0..C {
+            out[(cx + 1) * C + c] = acc[c] as f32;
         }
     }
 
@@ -1344,12 +1371,7 @@ impl<const C: usize> Cycler<'_, C> {
             let this = &*self;
             u.par_chunks_mut(fw * C * ROWS).enumerate().for_each(|(t, rows)| {
                 for (k, row) in rows.chunks_mut(fw * C).enumerate() {
-                    let y = t * ROWS + k;
-                    this.interpolate_row(0, &ec, y, fw, row, |row, x, v| {
-                        for c in 0..C {
-                            row[x * C + c] += v[c];
-                        }
-                    });
+                    this.correct_row0(&ec, t * ROWS + k, row);
                 }
             });
             self.work.u = u;
@@ -1362,12 +1384,13 @@ impl<const C: usize> Cycler<'_, C> {
             ef[pw * C..(fh + 1) * pw * C].par_chunks_mut(pw * C * per_task).enumerate().for_each(|(t, rows)| {
                 for (k, row) in rows.chunks_mut(pw * C).enumerate() {
                     let y = t * per_task + k;
-                    this.interpolate_row(l, &ec, y, fw, &mut row[C..], |row, x, v| {
+                    let add = |row: &mut [f32], x: usize, v: [f64; C]| {
                         for c in 0..C {
                             let p = &mut row[x * C + c];
                             *p = (f64::from(*p) + v[c]) as f32;
                         }
-                    });
+                    };
+                    this.interpolate_row(l, &ec, y, fw, &mut row[C..], add, |_, _, _| false);
                 }
             });
             self.work.e[l - 1] = ef;
@@ -1375,10 +1398,36 @@ impl<const C: usize> Cycler<'_, C> {
         self.work.e[l] = ec;
     }
 
+    /// Adds the interpolated correction `ec` of level 1 to row `y` of level 0 (`row`).
+    fn correct_row0(&self, ec: &[f32], y: usize, row: &mut [f64]) {
+        let add = |row: &mut [f64], x: usize, v: [f64; C]| {
+            for c in 0..C {
+                row[x * C + c] += v[c];
+            }
+        };
+        let pw = self.g.levels[0].pw;
+        let run = |row: &mut [f64], a: usize, b: usize| {
+            if C == 3
+                && let Some(rgb) = self.rgb
+            {
+                let parents = |i: usize| &ec[i * C..(i + b - a) * C];
+                let i = self.g.levels[0].at(a, y / 2);
+                let below = (y % 2 == 1).then(|| parents(i + pw));
+                rgb.interpolate_run(parents(i), below, &mut row[2 * a * C..(2 * b - 1) * C]);
+                return true;
+            }
+            false
+        };
+        self.interpolate_row(0, ec, y, self.g.w, row, add, run);
+    }
+
     /// Adds the interpolated correction `ec` of `levels[l]` to row `y` of the finer level (`fw`
     /// points, starting at `row[0]`) through `add(row, x, value)`: bilinear along runs whose
     /// parents are all interior points, [`Cycler::interpolate`] at the other points of the row.
+    /// `run(row, a, b)` may add the correction along the run of parents `a..b` itself (fine
+    /// points `2a..=2b − 2`) and return true.
     #[inline]
+    #[allow(clippy::too_many_arguments)]
     fn interpolate_row<T>(
         &self,
         l: usize,
@@ -1387,6 +1436,7 @@ impl<const C: usize> Cycler<'_, C> {
         fw: usize,
         row: &mut [T],
         add: impl Fn(&mut [T], usize, [f64; C]),
+        run: impl Fn(&mut [T], usize, usize) -> bool,
     ) {
         let coarse = &self.g.levels[l];
         let (cy, odd_row) = (y / 2, y % 2 == 1);
@@ -1419,6 +1469,10 @@ impl<const C: usize> Cycler<'_, C> {
             // Fine points 2a ..= 2b − 2 have only interior parents.
             let (lo, hi) = (2 * a as usize, 2 * b as usize - 1);
             gap(row, next, lo);
+            next = hi;
+            if run(row, a as usize, b as usize) {
+                continue;
+            }
             let mut left = column(coarse.at(a as usize, cy));
             for cx in a as usize..b as usize {
                 add(row, 2 * cx, left);
@@ -1428,7 +1482,6 @@ impl<const C: usize> Cycler<'_, C> {
                     left = right;
                 }
             }
-            next = hi;
         }
         gap(row, next, fw);
     }
@@ -1506,6 +1559,26 @@ impl<const C: usize> Cycler<'_, C> {
             let first_of = |a: usize| a + (a + 2 - start) % 2;
             split_row(runs, lv.w, |a, b, run| {
                 if run {
+                    if C == 3
+                        && let Some(rgb) = self.rgb
+                    {
+                        let x = first_of(a);
+                        if x < b {
+                            // SAFETY: as below; the run's points and their row neighbours are
+                            // inside the padded level, its terms inside `buf`.
+                            unsafe {
+                                rgb.relax_same_row(
+                                    e.add(lv.at(x, y) * C),
+                                    buf[x * C..].as_ptr(),
+                                    b - x,
+                                    s[3],
+                                    s[5],
+                                    inv_interior,
+                                );
+                            }
+                        }
+                        return;
+                    }
                     for x in (first_of(a)..b).step_by(2) {
                         let i = lv.at(x, y) * C;
                         for c in 0..C {
@@ -2098,6 +2171,45 @@ mod tests {
                     assert!(n_fused.iter().all(|&n| n > 0.0));
                 }
             });
+        }
+    }
+
+    /// With three channels the cycle runs on vector kernels where the processor has them
+    /// ([`Rgb`]): full multigrid and two cycles give the same iterate, right-hand sides and
+    /// residual norm bit for bit as the scalar kernels.
+    #[test]
+    fn three_channel_vector_kernels_equal_the_scalar_ones_bit_for_bit() {
+        if Rgb::detect().is_none() {
+            eprintln!("no vector kernels on this processor; nothing to compare");
+            return;
+        }
+        let mut rng = crate::synth::Rng::new(9);
+        let masks = [
+            Mask::from_fn(150, 131, |x, y| (1..149).contains(&x) && (1..129).contains(&y)),
+            Mask::from_fn(140, 120, |x, y| (x, y) == (1, 1) || (x as f64 - 70.0).hypot(y as f64 - 60.0) < 50.0),
+            Mask::from_fn(120, 97, |x, y| (x, y) == (1, 1) || y % 13 == 2 || rng.uniform() < 0.55),
+        ];
+        let params = FillParams::default();
+        for mask in &masks {
+            let g = grid_of(mask);
+            let (w, h) = (mask.width(), mask.height());
+            let mut planes: Vec<Vec<f32>> = (0..3)
+                .map(|c| (0..w * h).map(|p| ((p % w) as f32 * 0.29 - (p / w) as f32 * 0.13 * c as f32).cos()).collect())
+                .collect();
+            let views: Vec<&mut [f32]> = planes.iter_mut().map(|p| p.as_mut_slice()).collect();
+            let (mut vector, ..) = prepare::<3>(&g, &views, &params, Start::FullMultigrid).expect("prepare");
+            let (mut scalar, ..) = prepare::<3>(&g, &views, &params, Start::FullMultigrid).expect("prepare");
+            scalar.rgb = None;
+            for state in [&mut vector, &mut scalar] {
+                state.full_multigrid();
+                Levels::cycle(state, 0, Cycle::V);
+                Levels::cycle(state, 0, Cycle::V);
+            }
+            assert!(vector.work.u.iter().zip(&scalar.work.u).all(|(a, b)| a.to_bits() == b.to_bits()));
+            assert!(vector.work.rhs.iter().zip(&scalar.work.rhs).all(|(a, b)| a == b));
+            assert!(vector.work.e.iter().zip(&scalar.work.e).all(|(a, b)| a == b));
+            let (nv, ns) = (vector.residual_norm0(), scalar.residual_norm0());
+            assert_eq!(nv.map(f64::to_bits), ns.map(f64::to_bits));
         }
     }
 }

@@ -401,8 +401,11 @@ impl Graph {
     }
 }
 
-/// Unknowns by degree, for the minimum-degree ordering: a doubly linked list per degree, taken
-/// from the front and joined at the back (ties go to the unknown waiting longest).
+/// Unknowns by degree, for the minimum-degree ordering: a doubly linked list per degree, joined
+/// and taken at the back. Ties go to the unknown that joined last — after an elimination, one of
+/// its neighbours — so the ordering walks along a stroke while its lists are in cache (scratches
+/// at 4096, side by side: setup 0.165 → 0.149 s at best, 0.22 → 0.18 s median; taking the
+/// unknown waiting longest swept across every stroke in turn).
 struct Buckets {
     head: Vec<u32>,
     tail: Vec<u32>,
@@ -459,7 +462,7 @@ impl Buckets {
         while self.min < self.head.len() && self.head[self.min] == NONE {
             self.min += 1;
         }
-        let v = *self.head.get(self.min)? as usize;
+        let v = *self.tail.get(self.min)? as usize;
         self.remove(v);
         Some(v)
     }
@@ -684,7 +687,7 @@ mod tests {
     }
 
     #[test]
-    fn the_degree_buckets_give_the_unknowns_by_least_degree_then_arrival() {
+    fn the_degree_buckets_give_the_unknowns_by_least_degree_then_latest_arrival() {
         let mut b = Buckets::new(6);
         for (v, d) in [(0, 3), (1, 1), (2, 3), (3, 0), (4, 1), (5, 2)] {
             b.insert(v, d);
@@ -692,6 +695,6 @@ mod tests {
         b.remove(4);
         b.insert(4, 3);
         let order: Vec<usize> = std::iter::from_fn(|| b.pop_min()).collect();
-        assert_eq!(order, [3, 1, 5, 0, 2, 4]);
+        assert_eq!(order, [3, 1, 5, 4, 2, 0]);
     }
 }

@@ -163,8 +163,7 @@ impl SparseCholesky {
         pattern_at.push(0usize);
         let mut work = 0usize;
         let mut front = [0u32; MAX_FRONT];
-        // `mark[t] == stamp` while t is known to be in the list being joined.
-        let mut mark = vec![u32::MAX; m];
+        // A neighbour's mark is `u` while it is known to be in the list of `u` being joined.
         while let Some(v) = buckets.pop_min() {
             order.push(v as u32);
             let f = graph.neighbours(v).len();
@@ -180,12 +179,13 @@ impl SparseCholesky {
             for &u in front {
                 let u = u as usize;
                 graph.remove(u, v as u32);
-                mark[u] = u as u32;
-                for &t in graph.neighbours(u) {
-                    mark[t as usize] = u as u32;
+                graph.set_mark(u, u as u32);
+                for k in 0..graph.neighbours(u).len() {
+                    let t = graph.neighbours(u)[k];
+                    graph.set_mark(t as usize, u as u32);
                 }
                 for &t in front {
-                    if mark[t as usize] != u as u32 {
+                    if graph.mark(t as usize) != u as u32 {
                         graph.push(u, t);
                     }
                 }
@@ -339,30 +339,36 @@ pub(crate) fn thick_share(nbr: &[[u32; 4]]) -> f64 {
     thick as f64 / m.max(1) as f64
 }
 
-/// The neighbour lists of an elimination graph in one arena: list `v` is
-/// `arena[at[v]..at[v] + len[v]]` with room for `cap[v]`; a full list moves to the arena's end
-/// with twice the room. One allocation instead of one per unknown.
+/// Neighbours kept in an unknown's own record; longer lists (at crossings) spill to a vector.
+const INLINE: usize = 13;
+
+/// One unknown of the elimination graph: its neighbour list and the ordering's mark, in one cache
+/// line. The ordering touches each neighbour of an eliminated unknown, and the neighbours of
+/// those; with the list, its length and the mark in separate arrays, each touch was several
+/// cache misses once the hole's graph outgrew the processor's second-level cache.
+#[derive(Clone, Copy)]
+#[repr(C, align(64))]
+struct Node {
+    len: u32,
+    /// Index into [`Graph::spilled`] when the list is there, else [`NONE`].
+    spill: u32,
+    /// See [`SparseCholesky::new`].
+    mark: u32,
+    inline: [u32; INLINE],
+}
+
+/// The neighbour lists of an elimination graph.
 struct Graph {
-    at: Vec<u32>,
-    len: Vec<u32>,
-    cap: Vec<u32>,
-    arena: Vec<u32>,
+    nodes: Vec<Node>,
+    spilled: Vec<Vec<u32>>,
 }
 
 impl Graph {
-    /// The graph whose unknown `v` has the neighbours `adj[at[v]..at[v + 1]]`, with room for twice
-    /// as many (at least 8).
+    /// The graph whose unknown `v` has the neighbours `adj[at[v]..at[v + 1]]`.
     fn new(at: &[u32], adj: &[u32]) -> Self {
         let m = at.len() - 1;
-        let room = |v: usize| (2 * (at[v + 1] - at[v])).max(8);
-        let mut start = Vec::with_capacity(m);
-        let mut total = 0u32;
-        for v in 0..m {
-            start.push(total);
-            total += room(v);
-        }
         let mut g =
-            Self { at: start, len: vec![0; m], cap: (0..m).map(room).collect(), arena: vec![0; total as usize] };
+            Self { nodes: vec![Node { len: 0, spill: NONE, mark: NONE, inline: [0; INLINE] }; m], spilled: Vec::new() };
         for v in 0..m {
             for &j in &adj[at[v] as usize..at[v + 1] as usize] {
                 g.push(v, j);
@@ -372,31 +378,49 @@ impl Graph {
     }
 
     fn neighbours(&self, v: usize) -> &[u32] {
-        let at = self.at[v] as usize;
-        &self.arena[at..at + self.len[v] as usize]
+        let node = &self.nodes[v];
+        if node.spill == NONE { &node.inline[..node.len as usize] } else { &self.spilled[node.spill as usize] }
+    }
+
+    fn mark(&self, v: usize) -> u32 {
+        self.nodes[v].mark
+    }
+
+    fn set_mark(&mut self, v: usize, mark: u32) {
+        self.nodes[v].mark = mark;
     }
 
     fn push(&mut self, v: usize, t: u32) {
-        if self.len[v] == self.cap[v] {
-            let (at, len) = (self.at[v] as usize, self.len[v] as usize);
-            let to = self.arena.len();
-            self.arena.extend_from_within(at..at + len);
-            self.arena.resize(to + 2 * len, 0);
-            self.at[v] = u32::try_from(to).expect("graph fits in u32 indices");
-            self.cap[v] *= 2;
+        let node = &mut self.nodes[v];
+        if node.spill != NONE {
+            self.spilled[node.spill as usize].push(t);
+        } else if (node.len as usize) < INLINE {
+            node.inline[node.len as usize] = t;
+            node.len += 1;
+        } else {
+            let mut list = node.inline.to_vec();
+            list.push(t);
+            node.spill = u32::try_from(self.spilled.len()).expect("spilled lists fit in u32");
+            self.spilled.push(list);
         }
-        let end = (self.at[v] + self.len[v]) as usize;
-        self.arena[end] = t;
-        self.len[v] += 1;
     }
 
     /// Removes `t` from `v`'s list (order is not kept).
     fn remove(&mut self, v: usize, t: u32) {
-        let at = self.at[v] as usize;
-        let len = self.len[v] as usize;
-        if let Some(k) = self.arena[at..at + len].iter().position(|&x| x == t) {
-            self.arena[at + k] = self.arena[at + len - 1];
-            self.len[v] -= 1;
+        let node = &mut self.nodes[v];
+        let list: &mut [u32] = if node.spill == NONE {
+            &mut node.inline[..node.len as usize]
+        } else {
+            &mut self.spilled[node.spill as usize]
+        };
+        if let Some(k) = list.iter().position(|&x| x == t) {
+            let last = list.len() - 1;
+            list.swap(k, last);
+            if node.spill == NONE {
+                node.len -= 1;
+            } else {
+                self.spilled[node.spill as usize].pop();
+            }
         }
     }
 }
@@ -684,6 +708,26 @@ mod tests {
         assert_eq!(thick_share(&block(40, 3)), 0.0, "a 3-pixel strip is thin");
         assert_eq!(thick_share(&block(9, 9)), 1.0, "9 > THICK both ways");
         assert_eq!(thick_share(&block(8, 30)), 0.0, "8 wide is not more than THICK");
+    }
+
+    #[test]
+    fn neighbour_lists_keep_their_members_past_the_inline_room() {
+        // Unknown 0 starts with neighbours 1 and 2; 1 starts with 0.
+        let mut g = Graph::new(&[0, 2, 3, 3], &[1, 2, 0]);
+        for t in 3..3 + 2 * INLINE as u32 {
+            g.push(0, t);
+        }
+        g.remove(0, 2);
+        g.remove(0, 7);
+        g.remove(0, 99);
+        g.remove(1, 0);
+        let mut list = g.neighbours(0).to_vec();
+        list.sort_unstable();
+        let expected: Vec<u32> = (1..3 + 2 * INLINE as u32).filter(|&t| t != 2 && t != 7).collect();
+        assert_eq!(list, expected);
+        assert!(g.neighbours(1).is_empty() && g.neighbours(2).is_empty());
+        g.set_mark(2, 5);
+        assert_eq!((g.mark(2), g.mark(1)), (5, NONE));
     }
 
     #[test]

@@ -2,8 +2,9 @@
 //!
 //! The grid storage keeps a pixel's channels side by side (`u[i * C + c]`), so a colour image's
 //! stencil update is three scalar updates with the same neighbours. Where the processor has AVX,
-//! [`Rgb`] loads the three samples of one pixel into one 256-bit register (the fourth lane is
-//! never read or written) and applies the update to all three at once. Every operation rounds each
+//! [`Rgb`] loads the three samples of one pixel into one register (256-bit for `f64`, 128-bit for
+//! `f32`; the fourth lane is never read from memory nor written to it) and applies the update to
+//! all three at once. Every operation rounds each
 //! lane exactly as the scalar code rounds that channel, in the same order, so the results are the
 //! same bit for bit with and without it (a unit test checks this).
 

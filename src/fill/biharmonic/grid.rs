@@ -232,17 +232,36 @@ impl Level {
 
     /// `out = b − A·u` (or `A·u` without `b`) at the points.
     fn residual<T: LevelReal>(&self, u: &[T], b: Option<&[T]>, out: &mut [T]) {
+        self.residual_sums(u, b, out, |_, _| [0.0; 0]);
+    }
+
+    /// As [`Level::residual`], and `N` sums of `sums(first slot, span of out)` over the layout's
+    /// spans (a fixed order, as [`Layout::sums`]), each taken while its span of `out` is in
+    /// cache: a dot product with the result costs no pass of its own.
+    fn residual_sums<T: LevelReal, const N: usize>(
+        &self,
+        u: &[T],
+        b: Option<&[T]>,
+        out: &mut [T],
+        sums: impl Fn(usize, &[T]) -> [f64; N] + Sync,
+    ) -> [f64; N] {
         match self.k() {
-            13 => self.residual_k::<T, 13>(u, b, out),
-            _ => self.residual_k::<T, 25>(u, b, out),
+            13 => self.residual_k::<T, 13, N>(u, b, out, sums),
+            _ => self.residual_k::<T, 25, N>(u, b, out, sums),
         }
     }
 
-    fn residual_k<T: LevelReal, const K: usize>(&self, u: &[T], b: Option<&[T]>, out: &mut [T]) {
+    fn residual_k<T: LevelReal, const K: usize, const N: usize>(
+        &self,
+        u: &[T],
+        b: Option<&[T]>,
+        out: &mut [T],
+        sums: impl Fn(usize, &[T]) -> [f64; N] + Sync,
+    ) -> [f64; N] {
         let off: &[isize; K] = self.cell_off.as_slice().try_into().expect("stencil size");
         let coefs = T::coefs(self);
         let all = &coefs.shared_terms;
-        self.layout.for_each_mut(out, |span, s, out| {
+        self.layout.sums_mut(out, |span, s, out| {
             let p0 = self.runs[span].2;
             if self.interior[span] && out.len() > SHORT_RUN {
                 // The shared row, vectorised over the run.
@@ -265,7 +284,8 @@ impl Level {
                     *o = b.map_or(au, |b| b[c] - au);
                 }
             }
-        });
+            sums(s, out)
+        })
     }
 
     /// One lexicographic Gauss-Seidel sweep, forward or backward: the bands in parallel, then
@@ -737,6 +757,11 @@ impl Levels {
         self.levels[0].residual(u, None, out);
     }
 
+    /// `out = B·u` on the finest level, and `u·out`.
+    pub(super) fn apply_dot(&self, u: &[f64], out: &mut [f64]) -> f64 {
+        self.levels[0].residual_sums(u, None, out, |s, o| [dot_run(&u[s..s + o.len()], o)])[0]
+    }
+
     /// Whether the finest level is the only one.
     pub(super) fn is_shallow(&self) -> bool {
         self.levels.len() == 1
@@ -815,9 +840,11 @@ impl Levels {
         let level = &self.levels[l];
         let w = &mut work[l];
         std::mem::swap(&mut w.u, &mut w.keep);
-        level.residual(&w.keep, None, &mut w.r);
-        let (c1, ac1, b) = (&w.keep, &w.r, &w.b);
-        let [rho1, alpha1] = level.layout.sums(|s, e| [dot_run(&c1[s..e], &ac1[s..e]), dot_run(&c1[s..e], &b[s..e])]);
+        let (c1, b) = (&w.keep, &w.b);
+        let [rho1, alpha1] = level.residual_sums(c1, None, &mut w.r, |s, ac1| {
+            let e = s + ac1.len();
+            [dot_run(&c1[s..e], ac1), dot_run(&c1[s..e], &b[s..e])]
+        });
         if !(rho1 > 0.0 && rho1.is_finite()) {
             std::mem::swap(&mut w.u, &mut w.keep);
             return;
@@ -826,10 +853,9 @@ impl Levels {
         level.layout.add_scaled(-(alpha1 / rho1) as f32, &w.r, &mut w.b);
         self.cycle(l, work);
         let w = &mut work[l];
-        level.residual(&w.u, None, &mut w.r);
-        let (c1, c2, ac2, b) = (&w.keep, &w.u, &w.r, &w.b);
-        let [gamma, beta, alpha2] = level.layout.sums(|s, e| {
-            let ac2 = &ac2[s..e];
+        let (c1, c2, b) = (&w.keep, &w.u, &w.b);
+        let [gamma, beta, alpha2] = level.residual_sums(c2, None, &mut w.r, |s, ac2| {
+            let e = s + ac2.len();
             [dot_run(&c1[s..e], ac2), dot_run(&c2[s..e], ac2), dot_run(&c2[s..e], &b[s..e])]
         });
         let (k1, k2) = krylov_weights(rho1, alpha1, gamma, beta, alpha2);

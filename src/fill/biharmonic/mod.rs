@@ -774,6 +774,17 @@ impl Hierarchy {
         }
     }
 
+    /// `out = B·u` on the finest level, and `u·out` (in the grid storage's pass over `out`).
+    fn apply_dot(&self, u: &[f64], out: &mut [f64]) -> f64 {
+        match &self.storage {
+            Storage::Compact(c) => {
+                c.levels[0].apply(u, out);
+                self.layout().dot(u, out)
+            }
+            Storage::Grid(g) => g.apply_dot(u, out),
+        }
+    }
+
     /// Scratch for one channel's preconditioner.
     fn work(&self) -> Work {
         match &self.storage {
@@ -1151,8 +1162,7 @@ impl Cg {
         }
         self.alpha = 0.0;
         self.rz = rz;
-        hier.apply(&self.p, q);
-        let pq = layout.dot(&self.p, q);
+        let pq = hier.apply_dot(&self.p, q);
         if pq <= 0.0 || !pq.is_finite() {
             return None;
         }

@@ -1964,17 +1964,29 @@ fn prepare<'a, const C: usize>(
     Ok((cy, scale, b_sq))
 }
 
-/// Writes a group's values (the level-0 iterate over the box) into the planes.
+/// Writes a group's values (the level-0 iterate over the box) into the planes: one pass over the
+/// iterate, each row's channels together (a pass per channel read a 2048² RGB iterate, 100 MB,
+/// three times).
 pub(crate) fn write_back(g: &Grid, planes: &mut [&mut [f32]], first: usize, result: &GroupResult) {
     let count = result.scale.len();
-    for (c, plane) in planes[first..first + count].iter_mut().enumerate() {
-        let scale = result.scale[c];
-        plane[g.y0 * g.img_w..(g.y0 + g.h) * g.img_w].par_chunks_mut(g.img_w).enumerate().for_each(|(y, row)| {
-            g.members.for_row(y, None, |x| {
-                row[g.x0 + x] = (result.values[(y * g.w + x) * count + c] / scale) as f32;
-            });
+    assert!(g.x0 + g.w <= g.img_w, "the box lies in the image");
+    let planes: Vec<Shared<f32>> = planes[first..first + count]
+        .iter_mut()
+        .map(|p| {
+            assert!(p.len() >= (g.y0 + g.h) * g.img_w, "the box lies in the image");
+            Shared(p.as_mut_ptr())
+        })
+        .collect();
+    result.values.par_chunks(g.w * count).take(g.h).enumerate().for_each(|(y, values)| {
+        let at = (g.y0 + y) * g.img_w + g.x0;
+        g.members.for_row(y, None, |x| {
+            for (c, plane) in planes.iter().enumerate() {
+                // SAFETY: the sample is in the plane (asserted; x < g.w and the box lies in the
+                // image), and row y of every plane is written by this task only.
+                unsafe { *plane.get().add(at + x) = (values[x * count + c] / result.scale[c]) as f32 };
+            }
         });
-    }
+    });
 }
 
 #[cfg(test)]

@@ -2140,18 +2140,24 @@ mod tests {
         assert!(level.table.len() > 2, "boundary points need their own stencils");
     }
 
+    /// A frame, a disk and seeded dropout crossed by dead columns and rows, for the level-0
+    /// kernels' tests (each mask has an unknown at (1, 1), see [`grid_of`]).
+    fn level0_masks(seed: u64) -> [Mask; 3] {
+        let mut rng = crate::synth::Rng::new(seed);
+        [
+            Mask::from_fn(150, 131, |x, y| (1..149).contains(&x) && (1..129).contains(&y)),
+            Mask::from_fn(140, 120, |x, y| (x, y) == (1, 1) || (x as f64 - 70.0).hypot(y as f64 - 60.0) < 50.0),
+            Mask::from_fn(120, 97, |x, y| (x, y) == (1, 1) || x % 17 == 3 || y % 13 == 2 || rng.uniform() < 0.55),
+        ]
+    }
+
     /// The passes that do several steps over level 0 at once (the black half-sweep inside the
     /// restriction; the correction, the sweeps and the residual norm in one wavefront) give the
     /// same iterate, right-hand sides and norm bit for bit as the steps one after another, on
     /// several bands and with the edge rows of the restriction's tasks inside holes.
     #[test]
     fn fused_passes_over_level_zero_equal_the_steps_one_by_one() {
-        let mut rng = crate::synth::Rng::new(5);
-        let masks = [
-            Mask::from_fn(150, 131, |x, y| (1..149).contains(&x) && (1..129).contains(&y)),
-            Mask::from_fn(140, 120, |x, y| (x, y) == (1, 1) || (x as f64 - 70.0).hypot(y as f64 - 60.0) < 50.0),
-            Mask::from_fn(120, 97, |x, y| (x, y) == (1, 1) || x % 17 == 3 || rng.uniform() < 0.55),
-        ];
+        let masks = level0_masks(5);
         let params = FillParams::default();
         let pool = rayon::ThreadPoolBuilder::new().num_threads(2).build().expect("pool");
         for mask in &masks {
@@ -2195,12 +2201,7 @@ mod tests {
             eprintln!("no vector kernels on this processor; nothing to compare");
             return;
         }
-        let mut rng = crate::synth::Rng::new(9);
-        let masks = [
-            Mask::from_fn(150, 131, |x, y| (1..149).contains(&x) && (1..129).contains(&y)),
-            Mask::from_fn(140, 120, |x, y| (x, y) == (1, 1) || (x as f64 - 70.0).hypot(y as f64 - 60.0) < 50.0),
-            Mask::from_fn(120, 97, |x, y| (x, y) == (1, 1) || y % 13 == 2 || rng.uniform() < 0.55),
-        ];
+        let masks = level0_masks(9);
         let params = FillParams::default();
         for mask in &masks {
             let g = grid_of(mask);

@@ -501,9 +501,7 @@ fn dense_enough(unknowns: usize, (_, _, w, h): (usize, usize, usize, usize)) -> 
 
 /// Splits `mask` into parts: holes solved directly where that is cheap (small or thin holes),
 /// grids where the unknowns are dense in their box, index lists for the rest.
-fn plan(mask: &Mask, structure: Structure) -> Vec<Part> {
-    let (width, height) = (mask.width(), mask.height());
-    let mut runs = crate::mask::row_runs(mask);
+fn plan(mut runs: Vec<Vec<(u32, u32)>>, (width, height): (usize, usize), structure: Structure) -> Vec<Part> {
     let extent = |runs: &[Vec<(u32, u32)>]| {
         let mut count = 0usize;
         let mut bbox = (usize::MAX, usize::MAX, 0, 0);
@@ -665,13 +663,27 @@ struct PackedMask {
 }
 
 impl PackedMask {
-    fn new(mask: &Mask) -> Self {
-        let bits = mask
-            .bits()
-            .par_chunks(64)
-            .map(|c| c.iter().enumerate().fold(0u64, |w, (i, &b)| w | u64::from(b) << i))
-            .collect();
-        Self { width: mask.width(), height: mask.height(), bits }
+    /// The mask whose rows hold the unknowns `runs` (see [`crate::mask::row_runs`]): each run's
+    /// bits are set a word at a time, so the cost follows the runs, not the pixels.
+    fn from_runs(width: usize, height: usize, runs: &[Vec<(u32, u32)>]) -> Self {
+        let mut bits = vec![0u64; (width * height).div_ceil(64)];
+        // Bands of 64 rows (a whole number of words) are packed side by side.
+        let band = 64;
+        bits.par_chunks_mut(band * width / 64).enumerate().for_each(|(k, words)| {
+            let base = k * band * width;
+            for (y, row) in runs.iter().enumerate().skip(k * band).take(band) {
+                for &(a, b) in row {
+                    let (mut p, end) = (y * width + a as usize - base, y * width + b as usize - base);
+                    while p < end {
+                        let (word, bit) = (p / 64, p % 64);
+                        let n = (end - p).min(64 - bit);
+                        words[word] |= (u64::MAX >> (64 - n)) << bit;
+                        p += n;
+                    }
+                }
+            }
+        });
+        Self { width, height, bits }
     }
 
     fn unpack(&self) -> Mask {
@@ -745,12 +757,14 @@ impl Solver {
         if u32::try_from(width * height).is_err() {
             return Err(FillError::TooLarge { width, height });
         }
-        let unknowns = mask.bits().par_iter().filter(|&&b| b).count();
+        let runs = crate::mask::row_runs(mask);
+        let unknowns: usize = runs.iter().flatten().map(|&(a, b)| (b - a) as usize).sum();
         if unknowns > 0 && unknowns == width * height {
             return Err(FillError::NoKnownPixels);
         }
+        let packed = PackedMask::from_runs(width, height, &runs);
         let (parts, biharmonic) = match method {
-            FillMethod::Harmonic => (plan(mask, structure), None),
+            FillMethod::Harmonic => (plan(runs, (width, height), structure), None),
             FillMethod::Biharmonic => (Vec::new(), Some(biharmonic::Hierarchy::with_structure(mask, structure)?)),
             FillMethod::Guided => (Vec::new(), None),
         };
@@ -758,7 +772,7 @@ impl Solver {
             method,
             parts,
             biharmonic,
-            mask: PackedMask::new(mask),
+            mask: packed,
             unknowns,
             width,
             height,
@@ -1129,10 +1143,14 @@ mod tests {
 
     #[test]
     fn a_packed_mask_unpacks_to_the_same_pixels() {
-        // Sizes that end mid-word and span several words per row.
-        for (w, h) in [(1, 1), (7, 3), (64, 2), (65, 5), (130, 9)] {
+        // Sizes that end mid-word, span several words per row, and several bands of rows.
+        for (w, h) in [(1, 1), (7, 3), (64, 2), (65, 5), (130, 9), (3, 200), (65, 130)] {
             let mask = Mask::from_fn(w, h, |x, y| (x * 7 + y * 13) % 5 < 2);
-            assert_eq!(PackedMask::new(&mask).unpack().bits(), mask.bits(), "{w}×{h}");
+            assert_eq!(
+                PackedMask::from_runs(w, h, &crate::mask::row_runs(&mask)).unpack().bits(),
+                mask.bits(),
+                "{w}×{h}"
+            );
         }
     }
 }

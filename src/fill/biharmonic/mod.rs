@@ -658,17 +658,7 @@ impl Hierarchy {
         };
         // The harmonic fill's holes of these unknowns are holes of the whole mask: a 4-neighbour of
         // an unknown is within the 13-point reach, so it is either an unknown here or known.
-        let start = if pixels.is_empty() {
-            Vec::new()
-        } else if thin.unknowns() == 0 {
-            super::plan(mask, structure)
-        } else {
-            let mut bits = vec![false; w * h];
-            for &p in &pixels {
-                bits[p as usize] = true;
-            }
-            super::plan(&Mask::from_bits(w, h, bits), structure)
-        };
+        let start = if pixels.is_empty() { Vec::new() } else { super::plan(runs, (w, h), structure) };
         Ok(Self {
             width: w,
             height: h,

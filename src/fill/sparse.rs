@@ -5,17 +5,21 @@
 //! line. Ordered by minimum degree (eliminate next the unknown with the fewest uneliminated
 //! neighbours; Tinney & Walker 1967, George & Liu 1981, ch. 5) the factor of such a hole has only
 //! a few entries per unknown: along a strip the elimination front stays as wide as the strip, and
-//! a crossing adds a small clique. The ordering is an explicit elimination graph, whose
-//! neighbour sets at each elimination are the columns of the factor, so the symbolic factorisation
-//! comes with it; [`factor`] gives up (the hole goes to multigrid) as soon as the factor would cost
-//! more than [`MAX_WORK_PER_UNKNOWN`] multiply-adds per unknown.
+//! a crossing adds a small clique. The ordering is an explicit elimination graph that carries the
+//! values of the matrix left to eliminate, so each elimination makes a column of the factor as it
+//! is ordered; [`factor`] gives up (the hole goes to multigrid) as soon as the factor would cost
+//! more than [`MAX_WORK_PER_UNKNOWN`] multiply-adds per unknown. A large hole is split by rows
+//! into bands eliminated side by side, their separating rows last.
 //!
 //! Solving an image is then one forward and one backward substitution per hole, all channels
 //! together: the cheapest fill for a mask applied to many images and for re-fills in the window.
 
+use std::ops::Range;
+
 use rayon::prelude::*;
 
 use super::{FillError, GroupResult, Sums};
+use crate::mask::index_u32;
 
 /// Largest multiply-add count of a factorisation, per unknown, before the hole is left to
 /// multigrid (a multigrid solve costs about 100–200 per unknown).
@@ -50,6 +54,20 @@ pub(crate) struct SparseCholesky {
     inv_diag: Vec<f64>,
 }
 
+/// Columns of a Cholesky factor, made by eliminating some unknowns of a [`Graph`]: unknown
+/// `order[k]` (the matrix's index) has `1 / L_kk = inv_diag[k]` and below the diagonal the rows
+/// `row[col[k]..col[k + 1]]` (the matrix's indices) with the values `val[..]`.
+#[derive(Default)]
+struct Columns {
+    order: Vec<u32>,
+    inv_diag: Vec<f64>,
+    col: Vec<u32>,
+    row: Vec<u32>,
+    val: Vec<f64>,
+    /// Multiply-adds spent.
+    work: usize,
+}
+
 /// One hole's factor `A = L·Lᵀ` in elimination order.
 #[derive(Debug)]
 pub(crate) struct Factor {
@@ -75,8 +93,33 @@ pub(crate) struct Factored {
 pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Factor> {
     debug_assert!(pixels.windows(2).all(|w| w[0] < w[1]), "pixels increase");
     let m = pixels.len();
-    // The hole's graph: 4-neighbours that are unknowns. The pixels increase, so the searches for
-    // the neighbours above and below move forward only.
+    let nbr0 = hole_neighbours(width, height, pixels);
+    let share = thick_share(&nbr0);
+    if share > MAX_THICK_SHARE {
+        return None;
+    }
+    let diag = hole_diagonal(width, height, pixels);
+    let limit = MAX_WORK_PER_UNKNOWN * m;
+    let chol = if m >= BANDED_MIN {
+        factor_in_bands(pixels, &nbr0, &diag, width, limit, BANDS)?
+    } else {
+        let mut at = Vec::with_capacity(m + 1);
+        at.push(0u32);
+        let mut adj = Vec::with_capacity(4 * m);
+        for n in &nbr0 {
+            adj.extend(n.iter().copied().filter(|&j| j != NONE));
+            at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
+        }
+        SparseCholesky::new::<INLINE>(&at, &adj, &vec![-1f64; adj.len()], &diag, limit)?
+    };
+    Some(Factor { pixel: chol.in_order(pixels), nbr: chol.renumber(&nbr0), chol })
+}
+
+/// The 4-neighbours (left, right, up, down) of a hole's unknowns `pixels` (increasing pixel
+/// indices) as indices into `pixels`, [`NONE`] where the neighbour is known or outside the image.
+fn hole_neighbours(width: usize, height: usize, pixels: &[u32]) -> Vec<[u32; 4]> {
+    let m = pixels.len();
+    // The pixels increase, so the searches for the neighbours above and below move forward only.
     let mut nbr0 = Vec::with_capacity(m);
     let (mut up_at, mut down_at) = (0usize, 0usize);
     for i in 0..m {
@@ -108,28 +151,136 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Fact
         }
         nbr0.push(n);
     }
-    let share = thick_share(&nbr0);
-    if share > MAX_THICK_SHARE {
-        return None;
-    }
-    // The matrix: the degree on the diagonal, −1 towards each hole neighbour.
-    let mut at = Vec::with_capacity(m + 1);
-    at.push(0u32);
-    let mut adj = Vec::with_capacity(4 * m);
-    for n in &nbr0 {
-        adj.extend(n.iter().copied().filter(|&j| j != NONE));
-        at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
-    }
-    let off = vec![-1f64; adj.len()];
-    let diag: Vec<f64> = pixels
+    nbr0
+}
+
+/// The 5-point matrix's diagonal for a hole's unknowns: each one's count of in-image neighbours.
+fn hole_diagonal(width: usize, height: usize, pixels: &[u32]) -> Vec<f64> {
+    pixels
         .iter()
         .map(|&p| {
             let (x, y) = (p as usize % width, p as usize / width);
             f64::from(u8::from(x > 0) + u8::from(x + 1 < width) + u8::from(y > 0) + u8::from(y + 1 < height))
         })
+        .collect()
+}
+
+/// Holes with at least this many unknowns are factored in bands side by side.
+const BANDED_MIN: usize = 1 << 15;
+/// Bands of a hole factored in bands: one per core here (four gave the same time on two cores;
+/// the separators' fronts grow with their count).
+const BANDS: usize = 2;
+
+/// [`SparseCholesky::new`] for the 5-point matrix of a hole whose unknowns (in row order, at
+/// `pixels`) have the neighbours `nbr` and the diagonal `diag`, with its work split by rows: the
+/// unknowns of a few rows that separate the hole into bands are eliminated last; each band is
+/// eliminated on its own, side by side with the others, and leaves its updates to the separating
+/// rows; these, with the bands' updates summed in band order, are eliminated last (one level of
+/// nested dissection; George, "Nested dissection of a regular finite element mesh", 1973). A row
+/// separates: no 4-neighbour of a pixel above it is below it. The result does not depend on the
+/// number of threads.
+fn factor_in_bands(
+    pixels: &[u32],
+    nbr: &[[u32; 4]],
+    diag: &[f64],
+    width: usize,
+    limit: usize,
+    bands: usize,
+) -> Option<SparseCholesky> {
+    let m = pixels.len();
+    let row = |p: u32| p as usize / width;
+    // The separating rows: the row of every `bands`-th share of the unknowns, as ranges of them.
+    let mut seps: Vec<Range<usize>> = Vec::new();
+    for k in 1..bands {
+        let y = row(pixels[k * m / bands]);
+        let a = pixels.partition_point(|&p| row(p) < y);
+        if seps.last().is_none_or(|s| s.end <= a) {
+            seps.push(a..pixels.partition_point(|&p| row(p) <= y));
+        }
+    }
+    let sep_unknowns: Vec<u32> = seps.iter().flat_map(|s| s.clone().map(index_u32)).collect();
+    let mut sep_of = vec![NONE; m];
+    for (k, &i) in sep_unknowns.iter().enumerate() {
+        sep_of[i as usize] = index_u32(k);
+    }
+    // Band b lies between separators b − 1 and b.
+    let band = |b: usize| {
+        let start = if b == 0 { 0 } else { seps[b - 1].end };
+        let end = seps.get(b).map_or(m, |s| s.start);
+        let above = if b == 0 { 0..0 } else { seps[b - 1].clone() };
+        let below = seps.get(b).cloned().unwrap_or(0..0);
+        (start..end, above, below)
+    };
+    type Left = Vec<(u32, f64, Vec<(u32, f64)>)>;
+    let bands: Vec<Option<(Columns, Left)>> = (0..=seps.len())
+        .into_par_iter()
+        .map(|b| {
+            let (inner, above, below) = band(b);
+            // The band's unknowns first, then its separators' (never linked: they stay).
+            let global: Vec<u32> = inner.clone().chain(above.clone()).chain(below.clone()).map(index_u32).collect();
+            let n = inner.len();
+            let local = |j: u32| {
+                let j = j as usize;
+                index_u32(if inner.contains(&j) {
+                    j - inner.start
+                } else if above.contains(&j) {
+                    n + j - above.start
+                } else {
+                    debug_assert!(below.contains(&j), "a band's neighbours are in it or its separators");
+                    n + above.len() + j - below.start
+                })
+            };
+            let mut g = Graph::<INLINE>::new(global.len());
+            for i in inner.clone() {
+                let v = i - inner.start;
+                g.set_row(v, diag[i], nbr[i].iter().filter(|&&j| j != NONE).map(|&j| (local(j), -1.0)));
+                g.link(v);
+            }
+            for (k, &s) in global[n..].iter().enumerate() {
+                let toward_band = nbr[s as usize].iter().filter(|&&j| j != NONE && inner.contains(&(j as usize)));
+                g.set_row(n + k, 0.0, toward_band.map(|&j| (local(j), -1.0)));
+            }
+            let columns = g.eliminate(Some(&global), limit)?;
+            // What the band left on its separators' rows.
+            let left = (n..global.len())
+                .map(|v| {
+                    let (list, values) = g.list(v);
+                    let entries = list.iter().map(|&t| global[t as usize]).zip(values.iter().copied()).collect();
+                    (global[v], g.nodes[v].diag, entries)
+                })
+                .collect();
+            Some((columns, left))
+        })
         .collect();
-    let chol = SparseCholesky::new(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
-    Some(Factor { pixel: chol.in_order(pixels), nbr: chol.renumber(&nbr0), chol })
+    let mut g = Graph::<INLINE>::new(sep_unknowns.len());
+    for (k, &s) in sep_unknowns.iter().enumerate() {
+        let s = s as usize;
+        g.set_row(
+            k,
+            diag[s],
+            nbr[s].iter().filter(|&&j| j != NONE && sep_of[j as usize] != NONE).map(|&j| (sep_of[j as usize], -1.0)),
+        );
+    }
+    let mut parts = Vec::with_capacity(bands.len() + 1);
+    for b in bands {
+        let (columns, left) = b?;
+        for (s, d, entries) in left {
+            let k = sep_of[s as usize] as usize;
+            g.nodes[k].diag += d;
+            for (t, x) in entries {
+                g.add(k, sep_of[t as usize], x);
+            }
+        }
+        parts.push(columns);
+    }
+    for k in 0..sep_unknowns.len() {
+        g.link(k);
+    }
+    parts.push(g.eliminate(Some(&sep_unknowns), limit)?);
+    if parts.iter().map(|p| p.work).sum::<usize>() > limit {
+        return None;
+    }
+    Some(SparseCholesky::from_columns(parts, m))
 }
 
 /// The elimination position of each unknown, from the unknowns in elimination order.
@@ -147,116 +298,46 @@ impl SparseCholesky {
     /// whose row `i` holds `diag[i]` on the diagonal and `off[t]` in column `adj[t]` for `t` in
     /// `at[i]..at[i + 1]` (the diagonal not among them). `None` when an elimination's neighbour
     /// set passes [`MAX_FRONT`], the multiply-adds pass `limit`, or a pivot is not positive.
-    pub(crate) fn new(at: &[u32], adj: &[u32], off: &[f64], diag: &[f64], limit: usize) -> Option<Self> {
+    pub(crate) fn new<const K: usize>(
+        at: &[u32],
+        adj: &[u32],
+        off: &[f64],
+        diag: &[f64],
+        limit: usize,
+    ) -> Option<Self> {
         let m = diag.len();
-        // The elimination graph, each unknown's neighbours in one arena (see `Graph`).
-        let mut graph = Graph::new(at, adj);
-        // Minimum degree on the explicit elimination graph, with a bucket of unknowns per degree.
-        let mut buckets = Buckets::new(m);
+        let mut graph = Graph::<K>::new(m);
         for v in 0..m {
-            buckets.insert(v, graph.neighbours(v).len());
+            let (a, b) = (at[v] as usize, at[v + 1] as usize);
+            graph.set_row(v, diag[v], adj[a..b].iter().copied().zip(off[a..b].iter().copied()));
+            graph.link(v);
         }
-        let mut order = Vec::with_capacity(m);
-        // The neighbour set of each elimination (original indices): the factor's column pattern.
-        let mut pattern_at = Vec::with_capacity(m + 1);
-        let mut patterns: Vec<u32> = Vec::new();
-        pattern_at.push(0usize);
-        let mut work = 0usize;
-        let mut front = [0u32; MAX_FRONT];
-        // A neighbour's mark is `u` while it is known to be in the list of `u` being joined.
-        while let Some(v) = buckets.pop_min() {
-            order.push(v as u32);
-            let f = graph.neighbours(v).len();
-            if f > MAX_FRONT {
-                return None;
-            }
-            front[..f].copy_from_slice(graph.neighbours(v));
-            let front = &front[..f];
-            work += f * (f + 3) / 2;
-            if work > limit {
-                return None;
-            }
-            for &u in front {
-                let u = u as usize;
-                graph.remove(u, v as u32);
-                graph.set_mark(u, u as u32);
-                for k in 0..graph.neighbours(u).len() {
-                    let t = graph.neighbours(u)[k];
-                    graph.set_mark(t as usize, u as u32);
-                }
-                for &t in front {
-                    if graph.mark(t as usize) != u as u32 {
-                        graph.push(u, t);
-                    }
-                }
-                buckets.remove(u);
-                buckets.insert(u, graph.neighbours(u).len());
-            }
-            patterns.extend_from_slice(front);
-            pattern_at.push(patterns.len());
+        let columns = graph.eliminate(None, limit)?;
+        Some(Self::from_columns(vec![columns], m))
+    }
+
+    /// The factor whose columns are `parts` one after the other, every unknown of the `m`
+    /// eliminated once.
+    fn from_columns(parts: Vec<Columns>, m: usize) -> Self {
+        let entries = parts.iter().map(|p| p.row.len()).sum();
+        let (mut order, mut inv_diag) = (Vec::with_capacity(m), Vec::with_capacity(m));
+        let (mut col, mut row, mut val) =
+            (Vec::with_capacity(m + 1), Vec::with_capacity(entries), Vec::with_capacity(entries));
+        col.push(0u32);
+        for p in parts {
+            let base = index_u32(row.len());
+            col.extend(p.col[1..].iter().map(|&c| base + c));
+            order.extend_from_slice(&p.order);
+            inv_diag.extend_from_slice(&p.inv_diag);
+            row.extend_from_slice(&p.row);
+            val.extend_from_slice(&p.val);
         }
-        drop(graph);
         debug_assert_eq!(order.len(), m);
         let pos = positions(&order);
-
-        // The structure of L in elimination order.
-        let mut col = Vec::with_capacity(m + 1);
-        col.push(0u32);
-        let mut row = Vec::with_capacity(patterns.len());
-        for k in 0..m {
-            let start = row.len();
-            row.extend(patterns[pattern_at[k]..pattern_at[k + 1]].iter().map(|&u| pos[u as usize]));
-            row[start..].sort_unstable();
-            col.push(u32::try_from(row.len()).expect("factor entries fit in u32"));
+        for r in &mut row {
+            *r = pos[*r as usize];
         }
-        drop(patterns);
-
-        // Numeric factorisation, right-looking: when column k is final, its outer product is
-        // taken from the later columns (every pair of its rows is an entry of L by construction).
-        let mut val = vec![0f64; row.len()];
-        let mut d = vec![0f64; m];
-        for (k, &v) in order.iter().enumerate() {
-            let v = v as usize;
-            d[k] = diag[v];
-            let (a, b) = (col[k] as usize, col[k + 1] as usize);
-            for t in at[v] as usize..at[v + 1] as usize {
-                let j = pos[adj[t] as usize];
-                if j as usize > k {
-                    let at = a + row[a..b].binary_search(&j).expect("a neighbour is in its column");
-                    val[at] = off[t];
-                }
-            }
-        }
-        let mut inv_diag = vec![0f64; m];
-        for k in 0..m {
-            let dk = d[k];
-            if dk <= 0.0 || !dk.is_finite() {
-                return None;
-            }
-            let l = dk.sqrt();
-            inv_diag[k] = 1.0 / l;
-            let (a, b) = (col[k] as usize, col[k + 1] as usize);
-            for v in &mut val[a..b] {
-                *v /= l;
-            }
-            for s in a..b {
-                let (i, li) = (row[s] as usize, val[s]);
-                d[i] -= li * li;
-                // Rows after `s` are greater than i: they update column i.
-                let (ca, cb) = (col[i] as usize, col[i + 1] as usize);
-                let mut at = ca;
-                for t in s + 1..b {
-                    let r = row[t];
-                    // Both lists increase, so the search moves forward only.
-                    while row[at] < r {
-                        at += 1;
-                    }
-                    debug_assert!(at < cb && row[at] == r);
-                    val[at] -= val[t] * li;
-                }
-            }
-        }
-        Some(Self { order, col, row, val, inv_diag })
+        Self { order, col, row, val, inv_diag }
     }
 
     /// `of` (one item per unknown of the matrix) in elimination order.
@@ -339,155 +420,288 @@ pub(crate) fn thick_share(nbr: &[[u32; 4]]) -> f64 {
     thick as f64 / m.max(1) as f64
 }
 
-/// Neighbours kept in an unknown's own record; longer lists (at crossings) spill to a vector.
-const INLINE: usize = 13;
+/// Neighbours kept in an unknown's own record of a 5-point graph (a record of 128 bytes); longer
+/// lists (at crossings) spill to vectors.
+const INLINE: usize = 8;
+/// [`INLINE`] for the 13-point stencil's graphs (12 neighbours to begin with).
+pub(crate) const INLINE_WIDE: usize = 24;
+/// Fronts up to this long find a neighbour's entries by scanning its list; longer ones (a few
+/// crossings) through a table of places.
+const SCAN: usize = 16;
 
-/// One unknown of the elimination graph: its neighbour list and the ordering's mark, in one cache
-/// line. The ordering touches each neighbour of an eliminated unknown, and the neighbours of
-/// those; with the list, its length and the mark in separate arrays, each touch was several
-/// cache misses once the hole's graph outgrew the processor's second-level cache.
+/// One unknown of the elimination graph: its neighbour list with the values of the matrix left to
+/// eliminate, its diagonal, and its links in the degree buckets (two cache lines for `K` =
+/// [`INLINE`]). The ordering touches each neighbour of an eliminated unknown and little else, so
+/// one record per unknown is about all it reads.
 #[derive(Clone, Copy)]
 #[repr(C, align(64))]
-struct Node {
+struct Node<const K: usize> {
     len: u32,
     /// Index into [`Graph::spilled`] when the list is there, else [`NONE`].
     spill: u32,
-    /// See [`SparseCholesky::new`].
-    mark: u32,
-    inline: [u32; INLINE],
+    /// The neighbours in its degree bucket's list (see [`Graph::pop_min`]).
+    prev: u32,
+    next: u32,
+    /// Whether the unknown is in a degree list (an unknown never linked stays in the graph).
+    linked: bool,
+    diag: f64,
+    nbr: [u32; K],
+    val: [f64; K],
 }
 
-/// The neighbour lists of an elimination graph.
-struct Graph {
-    nodes: Vec<Node>,
-    spilled: Vec<Vec<u32>>,
+/// The elimination graph: each unknown's neighbours and the matrix's values towards them, and
+/// the unknowns by degree for the minimum-degree ordering — a doubly linked list per degree,
+/// joined and taken at the back. Ties go to the unknown that joined last — after an elimination,
+/// one of its neighbours — so the ordering walks along a stroke while its lists are in cache
+/// (scratches at 4096, side by side: setup 0.165 → 0.149 s at best, 0.22 → 0.18 s median; taking
+/// the unknown waiting longest swept across every stroke in turn).
+struct Graph<const K: usize> {
+    nodes: Vec<Node<K>>,
+    spilled: Vec<(Vec<u32>, Vec<f64>)>,
+    /// The first and last unknown of each degree's list.
+    head: Vec<u32>,
+    tail: Vec<u32>,
+    /// No list below this degree holds an unknown.
+    min: usize,
 }
 
-impl Graph {
-    /// The graph whose unknown `v` has the neighbours `adj[at[v]..at[v + 1]]`.
-    fn new(at: &[u32], adj: &[u32]) -> Self {
-        let m = at.len() - 1;
-        let mut g =
-            Self { nodes: vec![Node { len: 0, spill: NONE, mark: NONE, inline: [0; INLINE] }; m], spilled: Vec::new() };
-        for v in 0..m {
-            for &j in &adj[at[v] as usize..at[v + 1] as usize] {
-                g.push(v, j);
+impl<const K: usize> Graph<K> {
+    /// A graph of `m` unknowns without neighbours, none in a degree list.
+    fn new(m: usize) -> Self {
+        let empty =
+            Node { len: 0, spill: NONE, prev: NONE, next: NONE, linked: false, diag: 0.0, nbr: [0; K], val: [0.0; K] };
+        Self { nodes: vec![empty; m], spilled: Vec::new(), head: vec![NONE; m + 1], tail: vec![NONE; m + 1], min: 0 }
+    }
+
+    /// Gives `v` (without neighbours yet) the diagonal `diag` and the values `entries` towards
+    /// its neighbours.
+    fn set_row(&mut self, v: usize, diag: f64, entries: impl Iterator<Item = (u32, f64)>) {
+        self.nodes[v].diag = diag;
+        for (t, x) in entries {
+            self.push(v, t, x);
+        }
+    }
+
+    /// Adds `x` to `v`'s value towards `t`, joining them if they were not.
+    fn add(&mut self, v: usize, t: u32, x: f64) {
+        let (list, values) = self.list_mut(v);
+        match list.iter().position(|&s| s == t) {
+            Some(k) => values[k] += x,
+            None => self.push(v, t, x),
+        }
+    }
+
+    /// Asks for `v`'s record ahead of its use, so that the misses of a front's records overlap.
+    #[inline]
+    fn prefetch(&self, v: usize) {
+        #[cfg(target_arch = "x86_64")]
+        {
+            use std::arch::x86_64::{_MM_HINT_T0, _mm_prefetch};
+            let p: *const Node<K> = &self.nodes[v];
+            // SAFETY: prefetching never faults; only its first two cache lines are asked for.
+            unsafe {
+                _mm_prefetch::<_MM_HINT_T0>(p.cast::<i8>());
+                _mm_prefetch::<_MM_HINT_T0>(p.cast::<i8>().wrapping_add(64));
             }
         }
-        g
     }
 
-    fn neighbours(&self, v: usize) -> &[u32] {
+    fn len(&self, v: usize) -> usize {
         let node = &self.nodes[v];
-        if node.spill == NONE { &node.inline[..node.len as usize] } else { &self.spilled[node.spill as usize] }
+        if node.spill == NONE { node.len as usize } else { self.spilled[node.spill as usize].0.len() }
     }
 
-    fn mark(&self, v: usize) -> u32 {
-        self.nodes[v].mark
+    fn list(&self, v: usize) -> (&[u32], &[f64]) {
+        let node = &self.nodes[v];
+        if node.spill == NONE {
+            let n = node.len as usize;
+            (&node.nbr[..n], &node.val[..n])
+        } else {
+            let (nbr, val) = &self.spilled[node.spill as usize];
+            (nbr, val)
+        }
     }
 
-    fn set_mark(&mut self, v: usize, mark: u32) {
-        self.nodes[v].mark = mark;
+    fn list_mut(&mut self, v: usize) -> (&mut [u32], &mut [f64]) {
+        let node = &mut self.nodes[v];
+        if node.spill == NONE {
+            let n = node.len as usize;
+            (&mut node.nbr[..n], &mut node.val[..n])
+        } else {
+            let (nbr, val) = &mut self.spilled[node.spill as usize];
+            (nbr, val)
+        }
     }
 
-    fn push(&mut self, v: usize, t: u32) {
+    fn push(&mut self, v: usize, t: u32, x: f64) {
         let node = &mut self.nodes[v];
         if node.spill != NONE {
-            self.spilled[node.spill as usize].push(t);
-        } else if (node.len as usize) < INLINE {
-            node.inline[node.len as usize] = t;
+            let (nbr, val) = &mut self.spilled[node.spill as usize];
+            nbr.push(t);
+            val.push(x);
+        } else if (node.len as usize) < K {
+            node.nbr[node.len as usize] = t;
+            node.val[node.len as usize] = x;
             node.len += 1;
         } else {
-            let mut list = node.inline.to_vec();
-            list.push(t);
+            let (mut nbr, mut val) = (node.nbr.to_vec(), node.val.to_vec());
+            nbr.push(t);
+            val.push(x);
             node.spill = u32::try_from(self.spilled.len()).expect("spilled lists fit in u32");
-            self.spilled.push(list);
+            self.spilled.push((nbr, val));
         }
     }
 
     /// Removes `t` from `v`'s list (order is not kept).
     fn remove(&mut self, v: usize, t: u32) {
         let node = &mut self.nodes[v];
-        let list: &mut [u32] = if node.spill == NONE {
-            &mut node.inline[..node.len as usize]
-        } else {
-            &mut self.spilled[node.spill as usize]
-        };
-        if let Some(k) = list.iter().position(|&x| x == t) {
-            let last = list.len() - 1;
-            list.swap(k, last);
-            if node.spill == NONE {
+        if node.spill == NONE {
+            let n = node.len as usize;
+            if let Some(k) = node.nbr[..n].iter().position(|&x| x == t) {
+                node.nbr[k] = node.nbr[n - 1];
+                node.val[k] = node.val[n - 1];
                 node.len -= 1;
-            } else {
-                self.spilled[node.spill as usize].pop();
+            }
+        } else {
+            let (nbr, val) = &mut self.spilled[node.spill as usize];
+            if let Some(k) = nbr.iter().position(|&x| x == t) {
+                nbr.swap_remove(k);
+                val.swap_remove(k);
             }
         }
     }
-}
 
-/// Unknowns by degree, for the minimum-degree ordering: a doubly linked list per degree, joined
-/// and taken at the back. Ties go to the unknown that joined last — after an elimination, one of
-/// its neighbours — so the ordering walks along a stroke while its lists are in cache (scratches
-/// at 4096, side by side: setup 0.165 → 0.149 s at best, 0.22 → 0.18 s median; taking the
-/// unknown waiting longest swept across every stroke in turn).
-struct Buckets {
-    head: Vec<u32>,
-    tail: Vec<u32>,
-    next: Vec<u32>,
-    prev: Vec<u32>,
-    degree: Vec<u32>,
-    /// No bucket below this one holds an unknown.
-    min: usize,
-}
-
-impl Buckets {
-    fn new(m: usize) -> Self {
-        Self {
-            head: vec![NONE; m + 1],
-            tail: vec![NONE; m + 1],
-            next: vec![NONE; m],
-            prev: vec![NONE; m],
-            degree: vec![0; m],
-            min: 0,
-        }
-    }
-
-    fn insert(&mut self, v: usize, d: usize) {
-        let d = d.min(self.head.len() - 1);
-        self.degree[v] = d as u32;
+    /// Joins `v` to the back of its degree's list.
+    fn link(&mut self, v: usize) {
+        let d = self.len(v).min(self.head.len() - 1);
         let t = self.tail[d];
-        self.prev[v] = t;
-        self.next[v] = NONE;
+        let node = &mut self.nodes[v];
+        (node.prev, node.next, node.linked) = (t, NONE, true);
         if t == NONE {
-            self.head[d] = v as u32;
+            self.head[d] = index_u32(v);
         } else {
-            self.next[t as usize] = v as u32;
+            self.nodes[t as usize].next = index_u32(v);
         }
-        self.tail[d] = v as u32;
+        self.tail[d] = index_u32(v);
         self.min = self.min.min(d);
     }
 
-    fn remove(&mut self, v: usize) {
-        let d = self.degree[v] as usize;
-        let (p, n) = (self.prev[v], self.next[v]);
+    /// Takes `v` out of its degree's list (its list must not have changed since [`Graph::link`]);
+    /// whether it was in one.
+    fn unlink(&mut self, v: usize) -> bool {
+        if !self.nodes[v].linked {
+            return false;
+        }
+        let d = self.len(v).min(self.head.len() - 1);
+        let node = &mut self.nodes[v];
+        let (p, n) = (node.prev, node.next);
+        node.linked = false;
         if p == NONE {
             self.head[d] = n;
         } else {
-            self.next[p as usize] = n;
+            self.nodes[p as usize].next = n;
         }
         if n == NONE {
             self.tail[d] = p;
         } else {
-            self.prev[n as usize] = p;
+            self.nodes[n as usize].prev = p;
         }
+        true
     }
 
+    /// Eliminates every linked unknown, least degree first (the others stay, with the updates the
+    /// eliminations made to their rows). `global` gives the matrix's index of each of the graph's
+    /// unknowns (`None`: the same). `None` when an elimination's neighbour set passes
+    /// [`MAX_FRONT`], the multiply-adds pass `limit`, or a pivot is not positive.
+    ///
+    /// The graph carries the values of the matrix left to eliminate (right-looking Cholesky):
+    /// eliminating `v` makes its column of the factor from its list and takes the column's outer
+    /// product from its neighbours' lists while they are in cache. Ordering and factoring in one
+    /// pass saves a separate numeric factorisation's visits to every column, which in
+    /// elimination order jump about the unknowns (scratches at 4096: 34 of 108 ms).
+    fn eliminate(&mut self, global: Option<&[u32]>, limit: usize) -> Option<Columns> {
+        let m = self.nodes.len();
+        let name = |v: u32| global.map_or(v, |g| g[v as usize]);
+        let mut out = Columns::default();
+        out.col.push(0u32);
+        let (mut front, mut l) = ([0u32; MAX_FRONT], [0f64; MAX_FRONT]);
+        // Where each member of the list being joined sits in it (fronts longer than SCAN only;
+        // an entry is current when the list holds its unknown at that place).
+        let mut place: Vec<u32> = Vec::new();
+        while let Some(v) = self.pop_min() {
+            let (list, values) = self.list(v);
+            let f = list.len();
+            if f > MAX_FRONT {
+                return None;
+            }
+            out.work += f * (f + 3) / 2;
+            if out.work > limit {
+                return None;
+            }
+            let d = self.nodes[v].diag;
+            if d <= 0.0 || !d.is_finite() {
+                return None;
+            }
+            let inv = 1.0 / d.sqrt();
+            front[..f].copy_from_slice(list);
+            for &u in &front[..f] {
+                self.prefetch(u as usize);
+            }
+            for (lt, &a) in l[..f].iter_mut().zip(values) {
+                *lt = a * inv;
+            }
+            let (front, l) = (&front[..f], &l[..f]);
+            out.order.push(name(index_u32(v)));
+            out.inv_diag.push(inv);
+            out.row.extend(front.iter().map(|&t| name(t)));
+            out.val.extend_from_slice(l);
+            out.col.push(index_u32(out.row.len()));
+            if f > SCAN && place.len() < m {
+                place.resize(m, 0);
+            }
+            // The Schur complement: a_ut −= l_u·l_t for every pair of the front, a fill entry
+            // where u and t were not joined.
+            for (i, (&u, &lu)) in front.iter().zip(l).enumerate() {
+                let u = u as usize;
+                let linked = self.unlink(u);
+                self.nodes[u].diag -= lu * lu;
+                self.remove(u, index_u32(v));
+                if f > SCAN {
+                    for (k, &t) in self.list(u).0.iter().enumerate() {
+                        place[t as usize] = index_u32(k);
+                    }
+                }
+                for (j, (&t, &lt)) in front.iter().zip(l).enumerate() {
+                    if j == i {
+                        continue;
+                    }
+                    let (list, values) = self.list_mut(u);
+                    let k = if f > SCAN {
+                        let k = place[t as usize] as usize;
+                        (k < list.len() && list[k] == t).then_some(k)
+                    } else {
+                        list.iter().position(|&x| x == t)
+                    };
+                    match k {
+                        Some(k) => values[k] -= lt * lu,
+                        None => self.push(u, t, -(lt * lu)),
+                    }
+                }
+                if linked {
+                    self.link(u);
+                }
+            }
+        }
+        Some(out)
+    }
+
+    /// Takes the unknown of least degree that joined last.
     fn pop_min(&mut self) -> Option<usize> {
         while self.min < self.head.len() && self.head[self.min] == NONE {
             self.min += 1;
         }
         let v = *self.tail.get(self.min)? as usize;
-        self.remove(v);
+        self.unlink(v);
         Some(v)
     }
 }
@@ -634,10 +848,10 @@ mod tests {
         b
     }
 
-    #[test]
-    fn a_crossing_network_at_the_image_edge_matches_a_dense_factorisation() {
-        // Two crossing diagonal strokes 2 px wide, a dead row and a dead column that run into the
-        // image edges and cross them: one hole, thin everywhere, wide in every row.
+    /// Two crossing diagonal strokes 2 px wide, a dead row and a dead column that run into the
+    /// image edges and cross them: one hole, thin everywhere, wide in every row. Returns the
+    /// image's size, the hole's pixels, whether a pixel is in the hole, and an image.
+    fn crossing_network() -> (usize, usize, Vec<u32>, impl Fn(usize, usize) -> bool, Vec<f32>) {
         let (w, h) = (40, 31);
         let inside = |x: usize, y: usize| {
             let (xi, yi) = (x as isize, y as isize);
@@ -645,6 +859,12 @@ mod tests {
         };
         let pixels: Vec<u32> = (0..w * h).filter(|&p| inside(p % w, p / w)).map(|p| p as u32).collect();
         let plane: Vec<f32> = (0..w * h).map(|p| ((p * 37) % 101) as f32 + 0.25 * (p % w) as f32).collect();
+        (w, h, pixels, inside, plane)
+    }
+
+    #[test]
+    fn a_crossing_network_at_the_image_edge_matches_a_dense_factorisation() {
+        let (w, h, pixels, inside, plane) = crossing_network();
         let expected = dense_fill(w, h, &pixels, &plane);
         let f = factor(w, h, &pixels).expect("a thin hole is factored");
         let holes = Factored::new(w, h, vec![f]);
@@ -674,6 +894,29 @@ mod tests {
                 }
                 assert!(result.reports[c].relative_residual < 1e-12, "{:?}", result.reports[c]);
             }
+        }
+    }
+
+    #[test]
+    fn a_hole_factored_in_bands_matches_a_dense_factorisation() {
+        let (w, h, pixels, _, plane) = crossing_network();
+        let expected = dense_fill(w, h, &pixels, &plane);
+        let (nbr, diag) = (hole_neighbours(w, h, &pixels), hole_diagonal(w, h, &pixels));
+        // One separating row; several; and more bands than rows, so that separating rows touch
+        // (coupled to each other directly) and some bands are empty.
+        for bands in [2, 3, 7, 60] {
+            let chol = factor_in_bands(&pixels, &nbr, &diag, w, usize::MAX, bands).expect("a thin hole is factored");
+            let f = Factor { pixel: chol.in_order(&pixels), nbr: chol.renumber(&nbr), chol };
+            let holes = Factored::new(w, h, vec![f]);
+            let mut planes = [plane.clone()];
+            let refs: Vec<&mut [f32]> = planes.iter_mut().map(|p| &mut p[..]).collect();
+            let result = solve_group::<1>(&holes, &refs).expect("solves");
+            for (k, &p) in holes.holes[0].pixel.iter().enumerate() {
+                let want = expected[pixels.binary_search(&p).expect("a hole pixel")];
+                let got = result.values[k];
+                assert!((got - want).abs() <= 1e-10 * want.abs().max(1.0), "{bands} bands, pixel {p}: {got} vs {want}");
+            }
+            assert!(result.reports[0].relative_residual < 1e-12, "{bands} bands: {:?}", result.reports[0]);
         }
     }
 
@@ -711,34 +954,49 @@ mod tests {
     }
 
     #[test]
-    fn neighbour_lists_keep_their_members_past_the_inline_room() {
+    fn neighbour_lists_keep_their_members_and_values_past_the_inline_room() {
         // Unknown 0 starts with neighbours 1 and 2; 1 starts with 0.
-        let mut g = Graph::new(&[0, 2, 3, 3], &[1, 2, 0]);
+        let mut g = Graph::<INLINE>::new(3);
+        g.set_row(0, 4.0, [(1, -1.0), (2, -2.0)].into_iter());
+        g.set_row(1, 5.0, [(0, -3.0)].into_iter());
+        g.set_row(2, 6.0, std::iter::empty());
         for t in 3..3 + 2 * INLINE as u32 {
-            g.push(0, t);
+            g.push(0, t, f64::from(t) / 8.0);
         }
         g.remove(0, 2);
         g.remove(0, 7);
         g.remove(0, 99);
         g.remove(1, 0);
-        let mut list = g.neighbours(0).to_vec();
-        list.sort_unstable();
-        let expected: Vec<u32> = (1..3 + 2 * INLINE as u32).filter(|&t| t != 2 && t != 7).collect();
-        assert_eq!(list, expected);
-        assert!(g.neighbours(1).is_empty() && g.neighbours(2).is_empty());
-        g.set_mark(2, 5);
-        assert_eq!((g.mark(2), g.mark(1)), (5, NONE));
+        let (list, values) = g.list(0);
+        let mut pairs: Vec<(u32, f64)> = list.iter().copied().zip(values.iter().copied()).collect();
+        pairs.sort_by_key(|p| p.0);
+        let expected: Vec<(u32, f64)> = std::iter::once((1, -1.0))
+            .chain((3..3 + 2 * INLINE as u32).filter(|&t| t != 7).map(|t| (t, f64::from(t) / 8.0)))
+            .collect();
+        assert_eq!(pairs, expected);
+        assert_eq!(g.len(0), expected.len());
+        assert!(g.list(1).0.is_empty() && g.list(2).0.is_empty());
+        assert_eq!([g.nodes[0].diag, g.nodes[1].diag, g.nodes[2].diag], [4.0, 5.0, 6.0]);
+        g.list_mut(0).1[0] = 0.5;
+        assert_eq!(g.list(0).1[0], 0.5);
     }
 
     #[test]
-    fn the_degree_buckets_give_the_unknowns_by_least_degree_then_latest_arrival() {
-        let mut b = Buckets::new(6);
-        for (v, d) in [(0, 3), (1, 1), (2, 3), (3, 0), (4, 1), (5, 2)] {
-            b.insert(v, d);
+    fn the_degree_lists_give_the_unknowns_by_least_degree_then_latest_arrival() {
+        // Degrees 3, 1, 3, 0, 1, 2 (the lists need not be symmetric here).
+        let at = [0usize, 3, 4, 7, 7, 8, 10];
+        let adj = [1u32, 2, 3, 0, 0, 1, 3, 0, 0, 1];
+        let mut g = Graph::<INLINE>::new(6);
+        for v in 0..6 {
+            g.set_row(v, 4.0, adj[at[v]..at[v + 1]].iter().map(|&t| (t, -1.0)));
+            g.link(v);
         }
-        b.remove(4);
-        b.insert(4, 3);
-        let order: Vec<usize> = std::iter::from_fn(|| b.pop_min()).collect();
+        // Unknown 4 goes from degree 1 to 3, behind 0 and 2.
+        g.unlink(4);
+        g.push(4, 2, -1.0);
+        g.push(4, 5, -1.0);
+        g.link(4);
+        let order: Vec<usize> = std::iter::from_fn(|| g.pop_min()).collect();
         assert_eq!(order, [3, 1, 5, 4, 2, 0]);
     }
 }

@@ -12,7 +12,7 @@ use rayon::prelude::*;
 
 use super::{FINE, fine_row, rhs_at, row_square, square_index};
 use crate::fill::FillError;
-use crate::fill::sparse::{MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, thick_share};
+use crate::fill::sparse::{INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, thick_share};
 /// Largest multiply-add count of a factorisation, per unknown, before the component is left to
 /// multigrid (one conjugate-gradient solve with its multigrid preconditioner costs over 1000).
 const MAX_WORK_PER_UNKNOWN: usize = 400;
@@ -223,7 +223,7 @@ impl Thin {
                     }
                     at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
                 }
-                let chol = SparseCholesky::new(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
+                let chol = SparseCholesky::new::<INLINE_WIDE>(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
                 let pixel = chol.in_order(idx).iter().map(|&i| pixels[i as usize]).collect();
                 Some(Component { pixel, nbr: chol.renumber(&nbr), chol })
             })

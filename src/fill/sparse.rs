@@ -45,13 +45,17 @@ pub(crate) const NONE: u32 = u32::MAX;
 pub(crate) struct SparseCholesky {
     /// The matrix's index of the unknown eliminated `k`-th.
     order: Vec<u32>,
-    /// Column `k` of `L` below the diagonal: rows `row[col[k]..col[k + 1]]` (increasing, all
-    /// greater than `k`), values `val[..]` at the same places.
+    /// Column `k` of `L` below the diagonal: rows `row[col[k]..col[k + 1]]` (all greater than
+    /// `k`, in no particular order), values `val[..]` at the same places.
     col: Vec<u32>,
     row: Vec<u32>,
     val: Vec<f64>,
     /// `1 / L_kk`.
     inv_diag: Vec<f64>,
+    /// The columns in parts: `parts[p]..parts[p + 1]`, from 0 to the number of unknowns. When
+    /// there are several, every part but the last (the separators) has entries only in its own
+    /// rows and the last part's.
+    parts: Vec<u32>,
 }
 
 /// Columns of a Cholesky factor, made by eliminating some unknowns of a [`Graph`]: unknown
@@ -119,45 +123,50 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Fact
 /// indices) as indices into `pixels`, [`NONE`] where the neighbour is known or outside the image.
 fn hole_neighbours(width: usize, height: usize, pixels: &[u32]) -> Vec<[u32; 4]> {
     let m = pixels.len();
-    // The pixels increase, so the searches for the neighbours above and below move forward only.
-    let mut nbr0 = Vec::with_capacity(m);
-    let (mut up_at, mut down_at) = (0usize, 0usize);
-    for i in 0..m {
-        let p = pixels[i] as usize;
-        let (x, y) = (p % width, p / width);
-        let mut n = [NONE; 4];
-        if x > 0 && i > 0 && pixels[i - 1] as usize == p - 1 {
-            n[0] = (i - 1) as u32;
-        }
-        if x + 1 < width && i + 1 < m && pixels[i + 1] as usize == p + 1 {
-            n[1] = (i + 1) as u32;
-        }
-        if y > 0 {
-            while up_at < i && (pixels[up_at] as usize) < p - width {
-                up_at += 1;
+    let mut nbr = vec![[NONE; 4]; m];
+    // In chunks side by side; the pixels increase, so within a chunk the searches for the
+    // neighbours above and below move forward only.
+    nbr.par_chunks_mut(1 << 14).enumerate().for_each(|(c, out)| {
+        let first = c << 14;
+        let p0 = pixels[first] as usize;
+        let mut up_at = pixels.partition_point(|&q| (q as usize) + width < p0);
+        let mut down_at = first + 1;
+        for (i, n) in (first..).zip(out) {
+            let p = pixels[i] as usize;
+            let (x, y) = (p % width, p / width);
+            if x > 0 && i > 0 && pixels[i - 1] as usize == p - 1 {
+                n[0] = index_u32(i - 1);
             }
-            if pixels[up_at] as usize == p - width {
-                n[2] = up_at as u32;
+            if x + 1 < width && i + 1 < m && pixels[i + 1] as usize == p + 1 {
+                n[1] = index_u32(i + 1);
+            }
+            if y > 0 {
+                while up_at < i && (pixels[up_at] as usize) < p - width {
+                    up_at += 1;
+                }
+                if pixels[up_at] as usize == p - width {
+                    n[2] = index_u32(up_at);
+                }
+            }
+            if y + 1 < height {
+                down_at = down_at.max(i + 1);
+                while down_at < m && (pixels[down_at] as usize) < p + width {
+                    down_at += 1;
+                }
+                if down_at < m && pixels[down_at] as usize == p + width {
+                    n[3] = index_u32(down_at);
+                }
             }
         }
-        if y + 1 < height {
-            down_at = down_at.max(i + 1);
-            while down_at < m && (pixels[down_at] as usize) < p + width {
-                down_at += 1;
-            }
-            if down_at < m && pixels[down_at] as usize == p + width {
-                n[3] = down_at as u32;
-            }
-        }
-        nbr0.push(n);
-    }
-    nbr0
+    });
+    nbr
 }
 
 /// The 5-point matrix's diagonal for a hole's unknowns: each one's count of in-image neighbours.
 fn hole_diagonal(width: usize, height: usize, pixels: &[u32]) -> Vec<f64> {
     pixels
-        .iter()
+        .par_iter()
+        .with_min_len(1 << 14)
         .map(|&p| {
             let (x, y) = (p as usize % width, p as usize / width);
             f64::from(u8::from(x > 0) + u8::from(x + 1 < width) + u8::from(y > 0) + u8::from(y + 1 < height))
@@ -233,12 +242,12 @@ fn factor_in_bands(
             let mut g = Graph::<INLINE>::new(global.len());
             for i in inner.clone() {
                 let v = i - inner.start;
-                g.set_row(v, diag[i], nbr[i].iter().filter(|&&j| j != NONE).map(|&j| (local(j), -1.0)));
+                g.add_row(diag[i], nbr[i].iter().filter(|&&j| j != NONE).map(|&j| (local(j), -1.0)));
                 g.link(v);
             }
-            for (k, &s) in global[n..].iter().enumerate() {
+            for &s in &global[n..] {
                 let toward_band = nbr[s as usize].iter().filter(|&&j| j != NONE && inner.contains(&(j as usize)));
-                g.set_row(n + k, 0.0, toward_band.map(|&j| (local(j), -1.0)));
+                g.add_row(0.0, toward_band.map(|&j| (local(j), -1.0)));
             }
             let columns = g.eliminate(Some(&global), limit)?;
             // What the band left on its separators' rows.
@@ -253,10 +262,9 @@ fn factor_in_bands(
         })
         .collect();
     let mut g = Graph::<INLINE>::new(sep_unknowns.len());
-    for (k, &s) in sep_unknowns.iter().enumerate() {
+    for &s in &sep_unknowns {
         let s = s as usize;
-        g.set_row(
-            k,
+        g.add_row(
             diag[s],
             nbr[s].iter().filter(|&&j| j != NONE && sep_of[j as usize] != NONE).map(|&j| (sep_of[j as usize], -1.0)),
         );
@@ -309,7 +317,7 @@ impl SparseCholesky {
         let mut graph = Graph::<K>::new(m);
         for v in 0..m {
             let (a, b) = (at[v] as usize, at[v + 1] as usize);
-            graph.set_row(v, diag[v], adj[a..b].iter().copied().zip(off[a..b].iter().copied()));
+            graph.add_row(diag[v], adj[a..b].iter().copied().zip(off[a..b].iter().copied()));
             graph.link(v);
         }
         let columns = graph.eliminate(None, limit)?;
@@ -324,7 +332,9 @@ impl SparseCholesky {
         let (mut col, mut row, mut val) =
             (Vec::with_capacity(m + 1), Vec::with_capacity(entries), Vec::with_capacity(entries));
         col.push(0u32);
+        let mut bounds = vec![0u32];
         for p in parts {
+            bounds.push(bounds[bounds.len() - 1] + index_u32(p.order.len()));
             let base = index_u32(row.len());
             col.extend(p.col[1..].iter().map(|&c| base + c));
             order.extend_from_slice(&p.order);
@@ -334,22 +344,21 @@ impl SparseCholesky {
         }
         debug_assert_eq!(order.len(), m);
         let pos = positions(&order);
-        for r in &mut row {
-            *r = pos[*r as usize];
-        }
-        Self { order, col, row, val, inv_diag }
+        row.par_iter_mut().with_min_len(1 << 14).for_each(|r| *r = pos[*r as usize]);
+        Self { order, col, row, val, inv_diag, parts: bounds }
     }
 
     /// `of` (one item per unknown of the matrix) in elimination order.
-    pub(crate) fn in_order<T: Copy>(&self, of: &[T]) -> Vec<T> {
-        self.order.iter().map(|&v| of[v as usize]).collect()
+    pub(crate) fn in_order<T: Copy + Send + Sync>(&self, of: &[T]) -> Vec<T> {
+        self.order.par_iter().with_min_len(1 << 14).map(|&v| of[v as usize]).collect()
     }
 
     /// Neighbour lists (the matrix's indices, [`NONE`] for none) in elimination order, and as
     /// elimination positions.
     pub(crate) fn renumber<const K: usize>(&self, nbr: &[[u32; K]]) -> Vec<[u32; K]> {
         let pos = positions(&self.order);
-        self.order.iter().map(|&v| nbr[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] })).collect()
+        let renumber = |&v: &u32| nbr[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] });
+        self.order.par_iter().with_min_len(1 << 14).map(renumber).collect()
     }
 
     /// Bytes held.
@@ -362,32 +371,84 @@ impl SparseCholesky {
     pub(crate) fn solve_in_place<const C: usize>(&self, x: &mut [f64]) {
         let m = self.order.len();
         debug_assert_eq!(x.len(), m * C);
-        // L·y = b (by columns), then Lᵀ·x = y (by rows of Lᵀ, which are L's columns).
-        for k in 0..m {
+        // L·y = b (by columns), then Lᵀ·x = y (by rows of Lᵀ, which are L's columns). With bands,
+        // each band's columns touch only its own rows and the separators': the bands go side by
+        // side, their updates to the separators kept apart and added in band order.
+        let last = self.parts[self.parts.len() - 2] as usize;
+        if self.parts.len() <= 2 {
+            self.forward::<C>(0..m, x, 0, &mut []);
+            self.backward::<C>(0..m, x, 0, &[]);
+            return;
+        }
+        let (bands, seps) = x.split_at_mut(last * C);
+        let lengths = self.parts.windows(2).take(self.parts.len() - 2).map(|w| (w[1] - w[0]) as usize * C);
+        let mut slices = super::split_lengths(bands, lengths);
+        let updates: Vec<Vec<f64>> = slices
+            .par_iter_mut()
+            .zip(self.parts.par_windows(2))
+            .map(|(x, w)| {
+                let mut update = vec![0f64; seps.len()];
+                self.forward::<C>(w[0] as usize..w[1] as usize, x, w[0] as usize, &mut update);
+                update
+            })
+            .collect();
+        for update in updates {
+            for (s, u) in seps.iter_mut().zip(update) {
+                *s += u;
+            }
+        }
+        self.forward::<C>(last..m, seps, last, &mut []);
+        self.backward::<C>(last..m, seps, last, &[]);
+        let seps = &*seps;
+        slices
+            .par_iter_mut()
+            .zip(self.parts.par_windows(2))
+            .for_each(|(x, w)| self.backward::<C>(w[0] as usize..w[1] as usize, x, w[0] as usize, seps));
+    }
+
+    /// The forward substitution of the columns `cols`, whose values are `x` (from column
+    /// `first`); updates to rows past `x` go to `rest` (the rows after the last part's start).
+    fn forward<const C: usize>(&self, cols: Range<usize>, x: &mut [f64], first: usize, rest: &mut [f64]) {
+        let split = first + x.len() / C;
+        let last = self.parts[self.parts.len() - 2] as usize;
+        for k in cols {
             let d = self.inv_diag[k];
+            let at = (k - first) * C;
             let mut yk = [0f64; C];
             for c in 0..C {
-                yk[c] = x[k * C + c] * d;
-                x[k * C + c] = yk[c];
+                yk[c] = x[at + c] * d;
+                x[at + c] = yk[c];
             }
             let (a, e) = (self.col[k] as usize, self.col[k + 1] as usize);
             for (&i, &l) in self.row[a..e].iter().zip(&self.val[a..e]) {
+                let i = i as usize;
+                let (y, at) = if i < split { (&mut *x, (i - first) * C) } else { (&mut *rest, (i - last) * C) };
                 for c in 0..C {
-                    x[i as usize * C + c] -= l * yk[c];
+                    y[at + c] -= l * yk[c];
                 }
             }
         }
-        for k in (0..m).rev() {
+    }
+
+    /// The backward substitution of the columns `cols`, whose values are `x` (from column
+    /// `first`), reading rows past `x` from `rest` (the rows after the last part's start).
+    fn backward<const C: usize>(&self, cols: Range<usize>, x: &mut [f64], first: usize, rest: &[f64]) {
+        let split = first + x.len() / C;
+        let last = self.parts[self.parts.len() - 2] as usize;
+        for k in cols.rev() {
             let (a, e) = (self.col[k] as usize, self.col[k + 1] as usize);
+            let at = (k - first) * C;
             let mut s = [0f64; C];
-            s.copy_from_slice(&x[k * C..(k + 1) * C]);
+            s.copy_from_slice(&x[at..at + C]);
             for (&i, &l) in self.row[a..e].iter().zip(&self.val[a..e]) {
+                let i = i as usize;
+                let (y, at) = if i < split { (&*x, (i - first) * C) } else { (rest, (i - last) * C) };
                 for c in 0..C {
-                    s[c] -= l * x[i as usize * C + c];
+                    s[c] -= l * y[at + c];
                 }
             }
             for c in 0..C {
-                x[k * C + c] = s[c] * self.inv_diag[k];
+                x[at + c] = s[c] * self.inv_diag[k];
             }
         }
     }
@@ -402,9 +463,8 @@ pub(crate) fn thick_share(nbr: &[[u32; 4]]) -> f64 {
     // Run lengths along each direction: the count so far from the run's start, then each
     // unknown takes its run's total from the run's end. Left and up neighbours come earlier in
     // row order, right and down ones later.
-    let mut along = [vec![0u32; m], vec![0u32; m]];
-    for (dir, (back, fwd)) in [(0usize, 1usize), (2, 3)].into_iter().enumerate() {
-        let len = &mut along[dir];
+    let runs = |back: usize, fwd: usize| {
+        let mut len = vec![0u32; m];
         for i in 0..m {
             let b = nbr[i][back];
             len[i] = if b == NONE { 1 } else { len[b as usize] + 1 };
@@ -415,7 +475,10 @@ pub(crate) fn thick_share(nbr: &[[u32; 4]]) -> f64 {
                 len[i] = len[f as usize];
             }
         }
-    }
+        len
+    };
+    let along = rayon::join(|| runs(0, 1), || runs(2, 3));
+    let along = [along.0, along.1];
     let thick = (0..m).filter(|&i| along[0][i].min(along[1][i]) > THICK).count();
     thick as f64 / m.max(1) as f64
 }
@@ -466,17 +529,34 @@ struct Graph<const K: usize> {
 }
 
 impl<const K: usize> Graph<K> {
-    /// A graph of `m` unknowns without neighbours, none in a degree list.
+    /// A graph without unknowns, with room for `m` (each record is written once, as it is
+    /// added: the records of a large hole are tens of megabytes, new memory each time).
     fn new(m: usize) -> Self {
-        let empty =
-            Node { len: 0, spill: NONE, prev: NONE, next: NONE, linked: false, diag: 0.0, nbr: [0; K], val: [0.0; K] };
-        Self { nodes: vec![empty; m], spilled: Vec::new(), head: vec![NONE; m + 1], tail: vec![NONE; m + 1], min: 0 }
+        // Degrees past MAX_FRONT share the last list: such an unknown ends the ordering when taken.
+        let lists = MAX_FRONT + 2;
+        Self {
+            nodes: Vec::with_capacity(m),
+            spilled: Vec::new(),
+            head: vec![NONE; lists],
+            tail: vec![NONE; lists],
+            min: 0,
+        }
     }
 
-    /// Gives `v` (without neighbours yet) the diagonal `diag` and the values `entries` towards
-    /// its neighbours.
-    fn set_row(&mut self, v: usize, diag: f64, entries: impl Iterator<Item = (u32, f64)>) {
-        self.nodes[v].diag = diag;
+    /// Adds an unknown, not in a degree list, with the diagonal `diag` and the values `entries`
+    /// towards its neighbours (which may be added later).
+    fn add_row(&mut self, diag: f64, entries: impl Iterator<Item = (u32, f64)>) {
+        let v = self.nodes.len();
+        self.nodes.push(Node {
+            len: 0,
+            spill: NONE,
+            prev: NONE,
+            next: NONE,
+            linked: false,
+            diag,
+            nbr: [0; K],
+            val: [0.0; K],
+        });
         for (t, x) in entries {
             self.push(v, t, x);
         }
@@ -957,9 +1037,9 @@ mod tests {
     fn neighbour_lists_keep_their_members_and_values_past_the_inline_room() {
         // Unknown 0 starts with neighbours 1 and 2; 1 starts with 0.
         let mut g = Graph::<INLINE>::new(3);
-        g.set_row(0, 4.0, [(1, -1.0), (2, -2.0)].into_iter());
-        g.set_row(1, 5.0, [(0, -3.0)].into_iter());
-        g.set_row(2, 6.0, std::iter::empty());
+        g.add_row(4.0, [(1, -1.0), (2, -2.0)].into_iter());
+        g.add_row(5.0, [(0, -3.0)].into_iter());
+        g.add_row(6.0, std::iter::empty());
         for t in 3..3 + 2 * INLINE as u32 {
             g.push(0, t, f64::from(t) / 8.0);
         }
@@ -988,7 +1068,7 @@ mod tests {
         let adj = [1u32, 2, 3, 0, 0, 1, 3, 0, 0, 1];
         let mut g = Graph::<INLINE>::new(6);
         for v in 0..6 {
-            g.set_row(v, 4.0, adj[at[v]..at[v + 1]].iter().map(|&t| (t, -1.0)));
+            g.add_row(4.0, adj[at[v]..at[v + 1]].iter().map(|&t| (t, -1.0)));
             g.link(v);
         }
         // Unknown 4 goes from degree 1 to 3, behind 0 and 2.

@@ -174,6 +174,9 @@ fn hole_diagonal(width: usize, height: usize, pixels: &[u32]) -> Vec<f64> {
         .collect()
 }
 
+/// Unknowns per chunk of a hole's right-hand side and residual (fixed, so that their sums do not
+/// depend on the number of threads).
+const SOLVE_CHUNK: usize = 1 << 14;
 /// Holes with at least this many unknowns are factored in bands side by side.
 const BANDED_MIN: usize = 1 << 15;
 /// Bands of a hole factored in bands: one per core here (four gave the same time on two cores;
@@ -326,24 +329,38 @@ impl SparseCholesky {
 
     /// The factor whose columns are `parts` one after the other, every unknown of the `m`
     /// eliminated once.
-    fn from_columns(parts: Vec<Columns>, m: usize) -> Self {
-        let entries = parts.iter().map(|p| p.row.len()).sum();
-        let (mut order, mut inv_diag) = (Vec::with_capacity(m), Vec::with_capacity(m));
-        let (mut col, mut row, mut val) =
-            (Vec::with_capacity(m + 1), Vec::with_capacity(entries), Vec::with_capacity(entries));
-        col.push(0u32);
+    fn from_columns(mut parts: Vec<Columns>, m: usize) -> Self {
         let mut bounds = vec![0u32];
-        for p in parts {
+        for p in &parts {
             bounds.push(bounds[bounds.len() - 1] + index_u32(p.order.len()));
-            let base = index_u32(row.len());
-            col.extend(p.col[1..].iter().map(|&c| base + c));
-            order.extend_from_slice(&p.order);
-            inv_diag.extend_from_slice(&p.inv_diag);
-            row.extend_from_slice(&p.row);
-            val.extend_from_slice(&p.val);
         }
+        let (order, inv_diag, col, row, val) = if parts.len() == 1 {
+            let p = parts.pop().expect("one part");
+            (p.order, p.inv_diag, p.col, p.row, p.val)
+        } else {
+            let entries = parts.iter().map(|p| p.row.len()).sum();
+            let (mut order, mut inv_diag, mut col) =
+                (Vec::with_capacity(m), Vec::with_capacity(m), Vec::with_capacity(m + 1));
+            col.push(0u32);
+            let mut base = 0u32;
+            for p in &parts {
+                col.extend(p.col[1..].iter().map(|&c| base + c));
+                base += index_u32(p.row.len());
+                order.extend_from_slice(&p.order);
+                inv_diag.extend_from_slice(&p.inv_diag);
+            }
+            let (mut row, mut val) = (vec![0u32; entries], vec![0f64; entries]);
+            let rows = super::split_lengths(&mut row, parts.iter().map(|p| p.row.len()));
+            let vals = super::split_lengths(&mut val, parts.iter().map(|p| p.row.len()));
+            rows.into_par_iter().zip(vals).zip(&parts).for_each(|((r, v), p)| {
+                r.copy_from_slice(&p.row);
+                v.copy_from_slice(&p.val);
+            });
+            (order, inv_diag, col, row, val)
+        };
         debug_assert_eq!(order.len(), m);
         let pos = positions(&order);
+        let mut row = row;
         row.par_iter_mut().with_min_len(1 << 14).for_each(|r| *r = pos[*r as usize]);
         Self { order, col, row, val, inv_diag, parts: bounds }
     }
@@ -832,46 +849,73 @@ fn solve_hole<const C: usize>(
     x: &mut [f64],
 ) -> Result<Sums<C>, FillError> {
     let m = hole.unknowns();
-    // The right-hand side: the known in-image neighbours of each unknown, summed.
+    // The right-hand side: the known in-image neighbours of each unknown, summed. In chunks of a
+    // fixed size side by side; their sums are added in order, so they do not depend on threads.
     let mut b = vec![0f64; m * C];
-    let mut b_sq = [0f64; C];
-    for k in 0..m {
-        let p = hole.pixel[k] as usize;
-        let (px, py) = (p % width, p / width);
-        let sides = [
-            (px > 0, p.wrapping_sub(1)),
-            (px + 1 < width, p + 1),
-            (py > 0, p.wrapping_sub(width)),
-            (py + 1 < height, p + width),
-        ];
-        let mut sum = [0f64; C];
-        for ((inside, q), &j) in sides.into_iter().zip(&hole.nbr[k]) {
-            if !inside || j != NONE {
-                continue;
-            }
-            for (c, sc) in sum.iter_mut().enumerate() {
-                let v = planes[c][q];
-                if !v.is_finite() {
-                    return Err(FillError::NonFiniteRim { x: q % width, y: q / width });
+    let chunks: Vec<Result<[f64; C], FillError>> = b
+        .par_chunks_mut(SOLVE_CHUNK * C)
+        .enumerate()
+        .map(|(q, b)| {
+            let mut b_sq = [0f64; C];
+            for (k, bk) in (q * SOLVE_CHUNK..).zip(b.chunks_exact_mut(C)) {
+                let p = hole.pixel[k] as usize;
+                let (px, py) = (p % width, p / width);
+                let sides = [
+                    (px > 0, p.wrapping_sub(1)),
+                    (px + 1 < width, p + 1),
+                    (py > 0, p.wrapping_sub(width)),
+                    (py + 1 < height, p + width),
+                ];
+                for ((inside, q), &j) in sides.into_iter().zip(&hole.nbr[k]) {
+                    if !inside || j != NONE {
+                        continue;
+                    }
+                    for (c, sc) in bk.iter_mut().enumerate() {
+                        let v = planes[c][q];
+                        if !v.is_finite() {
+                            return Err(FillError::NonFiniteRim { x: q % width, y: q / width });
+                        }
+                        *sc += f64::from(v);
+                    }
                 }
-                *sc += f64::from(v);
+                for c in 0..C {
+                    b_sq[c] += bk[c] * bk[c];
+                }
             }
-        }
-        b[k * C..(k + 1) * C].copy_from_slice(&sum);
+            Ok(b_sq)
+        })
+        .collect();
+    let mut b_sq = [0f64; C];
+    for chunk in chunks {
+        let chunk = chunk?;
         for c in 0..C {
-            b_sq[c] += sum[c] * sum[c];
+            b_sq[c] += chunk[c];
         }
     }
     x.copy_from_slice(&b);
     hole.chol.solve_in_place::<C>(x);
     // The residual b − A·x for the report.
+    let x = &*x;
+    let chunks: Vec<[f64; C]> = (0..m.div_ceil(SOLVE_CHUNK))
+        .into_par_iter()
+        .map(|q| {
+            let mut r_sq = [0f64; C];
+            for k in q * SOLVE_CHUNK..((q + 1) * SOLVE_CHUNK).min(m) {
+                let p = hole.pixel[k] as usize;
+                let (px, py) = (p % width, p / width);
+                let degree = f64::from(
+                    u8::from(px > 0) + u8::from(px + 1 < width) + u8::from(py > 0) + u8::from(py + 1 < height),
+                );
+                super::add_residual_sq(&mut r_sq, &b, x, k, degree, hole.nbr[k]);
+            }
+            r_sq
+        })
+        .collect();
     let mut r_sq = [0f64; C];
-    for k in 0..m {
-        let p = hole.pixel[k] as usize;
-        let (px, py) = (p % width, p / width);
-        let degree =
-            f64::from(u8::from(px > 0) + u8::from(px + 1 < width) + u8::from(py > 0) + u8::from(py + 1 < height));
-        super::add_residual_sq(&mut r_sq, &b, x, k, degree, hole.nbr[k]);
+    for chunk in chunks {
+        for c in 0..C {
+            r_sq[c] += chunk[c];
+        }
     }
     Ok((r_sq, b_sq))
 }

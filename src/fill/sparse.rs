@@ -45,23 +45,19 @@ pub(crate) const NONE: u32 = u32::MAX;
 pub(crate) struct SparseCholesky {
     /// The matrix's index of the unknown eliminated `k`-th.
     order: Vec<u32>,
-    /// Column `k` of `L` below the diagonal: rows `row[col[k]..col[k + 1]]` (all greater than
-    /// `k`, in no particular order), values `val[..]` at the same places.
-    col: Vec<u32>,
-    row: Vec<u32>,
-    val: Vec<f64>,
-    /// `1 / L_kk`.
-    inv_diag: Vec<f64>,
-    /// The columns in parts: `parts[p]..parts[p + 1]`, from 0 to the number of unknowns. When
-    /// there are several, every part but the last (the separators) has entries only in its own
-    /// rows and the last part's.
-    parts: Vec<u32>,
+    /// The factor's columns in parts, one after the other, their rows as elimination positions.
+    /// When there are several, every part but the last (the separators) has entries only in its
+    /// own rows and the last part's.
+    parts: Vec<Columns>,
+    /// Part `p` holds the columns `bounds[p]..bounds[p + 1]`.
+    bounds: Vec<u32>,
 }
 
 /// Columns of a Cholesky factor, made by eliminating some unknowns of a [`Graph`]: unknown
 /// `order[k]` (the matrix's index) has `1 / L_kk = inv_diag[k]` and below the diagonal the rows
-/// `row[col[k]..col[k + 1]]` (the matrix's indices) with the values `val[..]`.
-#[derive(Default)]
+/// `row[col[k]..col[k + 1]]` (the matrix's indices, elimination positions once the whole order is
+/// known; in no particular order) with the values `val[..]`.
+#[derive(Debug, Default)]
 struct Columns {
     order: Vec<u32>,
     inv_diag: Vec<f64>,
@@ -331,38 +327,17 @@ impl SparseCholesky {
     /// eliminated once.
     fn from_columns(mut parts: Vec<Columns>, m: usize) -> Self {
         let mut bounds = vec![0u32];
+        let mut order = Vec::with_capacity(m);
         for p in &parts {
             bounds.push(bounds[bounds.len() - 1] + index_u32(p.order.len()));
+            order.extend_from_slice(&p.order);
         }
-        let (order, inv_diag, col, row, val) = if parts.len() == 1 {
-            let p = parts.pop().expect("one part");
-            (p.order, p.inv_diag, p.col, p.row, p.val)
-        } else {
-            let entries = parts.iter().map(|p| p.row.len()).sum();
-            let (mut order, mut inv_diag, mut col) =
-                (Vec::with_capacity(m), Vec::with_capacity(m), Vec::with_capacity(m + 1));
-            col.push(0u32);
-            let mut base = 0u32;
-            for p in &parts {
-                col.extend(p.col[1..].iter().map(|&c| base + c));
-                base += index_u32(p.row.len());
-                order.extend_from_slice(&p.order);
-                inv_diag.extend_from_slice(&p.inv_diag);
-            }
-            let (mut row, mut val) = (vec![0u32; entries], vec![0f64; entries]);
-            let rows = super::split_lengths(&mut row, parts.iter().map(|p| p.row.len()));
-            let vals = super::split_lengths(&mut val, parts.iter().map(|p| p.row.len()));
-            rows.into_par_iter().zip(vals).zip(&parts).for_each(|((r, v), p)| {
-                r.copy_from_slice(&p.row);
-                v.copy_from_slice(&p.val);
-            });
-            (order, inv_diag, col, row, val)
-        };
         debug_assert_eq!(order.len(), m);
         let pos = positions(&order);
-        let mut row = row;
-        row.par_iter_mut().with_min_len(1 << 14).for_each(|r| *r = pos[*r as usize]);
-        Self { order, col, row, val, inv_diag, parts: bounds }
+        for p in &mut parts {
+            p.row.par_iter_mut().with_min_len(1 << 14).for_each(|r| *r = pos[*r as usize]);
+        }
+        Self { order, parts, bounds }
     }
 
     /// `of` (one item per unknown of the matrix) in elimination order.
@@ -380,32 +355,30 @@ impl SparseCholesky {
 
     /// Bytes held.
     pub(crate) fn memory_bytes(&self) -> usize {
-        self.order.len() * (4 + 4 + 8) + self.row.len() * 12
+        self.order.len() * (4 + 4 + 8) + self.parts.iter().map(|p| p.row.len() * 12).sum::<usize>()
     }
 
     /// Solves `A·x = b` for `C` right-hand sides at once: `x` holds `b` in elimination order (`C`
     /// values per unknown) and receives the solution in the same order.
     pub(crate) fn solve_in_place<const C: usize>(&self, x: &mut [f64]) {
-        let m = self.order.len();
-        debug_assert_eq!(x.len(), m * C);
+        debug_assert_eq!(x.len(), self.order.len() * C);
         // L·y = b (by columns), then Lᵀ·x = y (by rows of Lᵀ, which are L's columns). With bands,
         // each band's columns touch only its own rows and the separators': the bands go side by
         // side, their updates to the separators kept apart and added in band order.
-        let last = self.parts[self.parts.len() - 2] as usize;
-        if self.parts.len() <= 2 {
-            self.forward::<C>(0..m, x, 0, &mut []);
-            self.backward::<C>(0..m, x, 0, &[]);
+        let last = self.parts.len() - 1;
+        if last == 0 {
+            self.forward::<C>(0, x, &mut []);
+            self.backward::<C>(0, x, &[]);
             return;
         }
-        let (bands, seps) = x.split_at_mut(last * C);
-        let lengths = self.parts.windows(2).take(self.parts.len() - 2).map(|w| (w[1] - w[0]) as usize * C);
-        let mut slices = super::split_lengths(bands, lengths);
+        let (bands, seps) = x.split_at_mut(self.bounds[last] as usize * C);
+        let mut slices = super::split_lengths(bands, self.parts[..last].iter().map(|p| p.order.len() * C));
         let updates: Vec<Vec<f64>> = slices
             .par_iter_mut()
-            .zip(self.parts.par_windows(2))
-            .map(|(x, w)| {
+            .enumerate()
+            .map(|(p, x)| {
                 let mut update = vec![0f64; seps.len()];
-                self.forward::<C>(w[0] as usize..w[1] as usize, x, w[0] as usize, &mut update);
+                self.forward::<C>(p, x, &mut update);
                 update
             })
             .collect();
@@ -414,30 +387,27 @@ impl SparseCholesky {
                 *s += u;
             }
         }
-        self.forward::<C>(last..m, seps, last, &mut []);
-        self.backward::<C>(last..m, seps, last, &[]);
+        self.forward::<C>(last, seps, &mut []);
+        self.backward::<C>(last, seps, &[]);
         let seps = &*seps;
-        slices
-            .par_iter_mut()
-            .zip(self.parts.par_windows(2))
-            .for_each(|(x, w)| self.backward::<C>(w[0] as usize..w[1] as usize, x, w[0] as usize, seps));
+        slices.par_iter_mut().enumerate().for_each(|(p, x)| self.backward::<C>(p, x, seps));
     }
 
-    /// The forward substitution of the columns `cols`, whose values are `x` (from column
-    /// `first`); updates to rows past `x` go to `rest` (the rows after the last part's start).
-    fn forward<const C: usize>(&self, cols: Range<usize>, x: &mut [f64], first: usize, rest: &mut [f64]) {
-        let split = first + x.len() / C;
-        let last = self.parts[self.parts.len() - 2] as usize;
-        for k in cols {
-            let d = self.inv_diag[k];
-            let at = (k - first) * C;
+    /// The forward substitution of part `p`'s columns, whose values are `x`; updates to rows past
+    /// them go to `rest` (the last part's rows).
+    fn forward<const C: usize>(&self, p: usize, x: &mut [f64], rest: &mut [f64]) {
+        let part = &self.parts[p];
+        let (first, split) = (self.bounds[p] as usize, self.bounds[p + 1] as usize);
+        let last = self.bounds[self.parts.len() - 1] as usize;
+        for (k, &d) in part.inv_diag.iter().enumerate() {
+            let at = k * C;
             let mut yk = [0f64; C];
             for c in 0..C {
                 yk[c] = x[at + c] * d;
                 x[at + c] = yk[c];
             }
-            let (a, e) = (self.col[k] as usize, self.col[k + 1] as usize);
-            for (&i, &l) in self.row[a..e].iter().zip(&self.val[a..e]) {
+            let (a, e) = (part.col[k] as usize, part.col[k + 1] as usize);
+            for (&i, &l) in part.row[a..e].iter().zip(&part.val[a..e]) {
                 let i = i as usize;
                 let (y, at) = if i < split { (&mut *x, (i - first) * C) } else { (&mut *rest, (i - last) * C) };
                 for c in 0..C {
@@ -447,17 +417,18 @@ impl SparseCholesky {
         }
     }
 
-    /// The backward substitution of the columns `cols`, whose values are `x` (from column
-    /// `first`), reading rows past `x` from `rest` (the rows after the last part's start).
-    fn backward<const C: usize>(&self, cols: Range<usize>, x: &mut [f64], first: usize, rest: &[f64]) {
-        let split = first + x.len() / C;
-        let last = self.parts[self.parts.len() - 2] as usize;
-        for k in cols.rev() {
-            let (a, e) = (self.col[k] as usize, self.col[k + 1] as usize);
-            let at = (k - first) * C;
+    /// The backward substitution of part `p`'s columns, whose values are `x`, reading rows past
+    /// them from `rest` (the last part's rows).
+    fn backward<const C: usize>(&self, p: usize, x: &mut [f64], rest: &[f64]) {
+        let part = &self.parts[p];
+        let (first, split) = (self.bounds[p] as usize, self.bounds[p + 1] as usize);
+        let last = self.bounds[self.parts.len() - 1] as usize;
+        for (k, &d) in part.inv_diag.iter().enumerate().rev() {
+            let (a, e) = (part.col[k] as usize, part.col[k + 1] as usize);
+            let at = k * C;
             let mut s = [0f64; C];
             s.copy_from_slice(&x[at..at + C]);
-            for (&i, &l) in self.row[a..e].iter().zip(&self.val[a..e]) {
+            for (&i, &l) in part.row[a..e].iter().zip(&part.val[a..e]) {
                 let i = i as usize;
                 let (y, at) = if i < split { (&*x, (i - first) * C) } else { (rest, (i - last) * C) };
                 for c in 0..C {
@@ -465,7 +436,7 @@ impl SparseCholesky {
                 }
             }
             for c in 0..C {
-                x[at + c] = s[c] * self.inv_diag[k];
+                x[at + c] = s[c] * d;
             }
         }
     }
@@ -721,6 +692,9 @@ impl<const K: usize> Graph<K> {
         let name = |v: u32| global.map_or(v, |g| g[v as usize]);
         let mut out = Columns::default();
         out.col.push(0u32);
+        // Thin holes take about 3 entries per unknown, the 13-point stencil's about 7.
+        out.row.reserve(3 * m);
+        out.val.reserve(3 * m);
         let (mut front, mut l) = ([0u32; MAX_FRONT], [0f64; MAX_FRONT]);
         // Where each member of the list being joined sits in it (fronts longer than SCAN only;
         // an entry is current when the list holds its unknown at that place).

@@ -101,7 +101,8 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Fact
     let diag = hole_diagonal(width, height, pixels);
     let limit = MAX_WORK_PER_UNKNOWN * m;
     let chol = if m >= BANDED_MIN {
-        factor_in_bands(pixels, &nbr0, &diag, width, limit, BANDS)?
+        let entries = |i: usize| nbr0[i].into_iter().filter(|&j| j != NONE).map(|j| (j, -1.0));
+        factor_in_bands::<INLINE, _>(|i| pixels[i] as usize / width, entries, &diag, 1, limit, BANDS)?
     } else {
         let mut at = Vec::with_capacity(m + 1);
         at.push(0u32);
@@ -174,36 +175,45 @@ fn hole_diagonal(width: usize, height: usize, pixels: &[u32]) -> Vec<f64> {
 /// depend on the number of threads).
 const SOLVE_CHUNK: usize = 1 << 14;
 /// Holes with at least this many unknowns are factored in bands side by side.
-const BANDED_MIN: usize = 1 << 15;
+pub(crate) const BANDED_MIN: usize = 1 << 15;
 /// Bands of a hole factored in bands: one per core here (four gave the same time on two cores;
 /// the separators' fronts grow with their count).
-const BANDS: usize = 2;
+pub(crate) const BANDS: usize = 2;
 
-/// [`SparseCholesky::new`] for the 5-point matrix of a hole whose unknowns (in row order, at
-/// `pixels`) have the neighbours `nbr` and the diagonal `diag`, with its work split by rows: the
-/// unknowns of a few rows that separate the hole into bands are eliminated last; each band is
-/// eliminated on its own, side by side with the others, and leaves its updates to the separating
-/// rows; these, with the bands' updates summed in band order, are eliminated last (one level of
-/// nested dissection; George, "Nested dissection of a regular finite element mesh", 1973). A row
-/// separates: no 4-neighbour of a pixel above it is below it. The result does not depend on the
-/// number of threads.
-fn factor_in_bands(
-    pixels: &[u32],
-    nbr: &[[u32; 4]],
+/// [`SparseCholesky::new`] for the symmetric matrix of a hole whose unknown `i` lies on image row
+/// `row(i)` (not decreasing with `i`) and has the diagonal `diag[i]` and the off-diagonal
+/// `entries(i)`, coupling it to unknowns at most `reach` rows away; the work split by rows: the
+/// unknowns of a few strips of `reach` rows that separate the hole into bands are eliminated
+/// last; each band is eliminated on its own, side by side with the others, and leaves its
+/// updates to the separators' rows; these, with the bands' updates summed in band order, are
+/// eliminated last (one level of nested dissection; George, "Nested dissection of a regular
+/// finite element mesh", 1973). The result does not depend on the number of threads.
+pub(crate) fn factor_in_bands<const K: usize, I: Iterator<Item = (u32, f64)>>(
+    row: impl Fn(usize) -> usize + Sync,
+    entries: impl Fn(usize) -> I + Sync,
     diag: &[f64],
-    width: usize,
+    reach: usize,
     limit: usize,
     bands: usize,
 ) -> Option<SparseCholesky> {
-    let m = pixels.len();
-    let row = |p: u32| p as usize / width;
-    // The separating rows: the row of every `bands`-th share of the unknowns, as ranges of them.
+    let m = diag.len();
+    // The first unknown at or below image row `y` (rows do not decrease).
+    let first_at = |y: usize| {
+        let (mut lo, mut hi) = (0, m);
+        while lo < hi {
+            let mid = usize::midpoint(lo, hi);
+            if row(mid) < y { lo = mid + 1 } else { hi = mid }
+        }
+        lo
+    };
+    // The separators: `reach` rows from the row of every `bands`-th share of the unknowns, as
+    // ranges of them.
     let mut seps: Vec<Range<usize>> = Vec::new();
     for k in 1..bands {
-        let y = row(pixels[k * m / bands]);
-        let a = pixels.partition_point(|&p| row(p) < y);
+        let y = row(k * m / bands);
+        let a = first_at(y);
         if seps.last().is_none_or(|s| s.end <= a) {
-            seps.push(a..pixels.partition_point(|&p| row(p) <= y));
+            seps.push(a..first_at(y + reach));
         }
     }
     let sep_unknowns: Vec<u32> = seps.iter().flat_map(|s| s.clone().map(index_u32)).collect();
@@ -238,15 +248,14 @@ fn factor_in_bands(
                     n + above.len() + j - below.start
                 })
             };
-            let mut g = Graph::<INLINE>::new(global.len());
+            let mut g = Graph::<K>::new(global.len());
             for i in inner.clone() {
-                let v = i - inner.start;
-                g.add_row(diag[i], nbr[i].iter().filter(|&&j| j != NONE).map(|&j| (local(j), -1.0)));
-                g.link(v);
+                g.add_row(diag[i], entries(i).map(|(j, a)| (local(j), a)));
+                g.link(i - inner.start);
             }
             for &s in &global[n..] {
-                let toward_band = nbr[s as usize].iter().filter(|&&j| j != NONE && inner.contains(&(j as usize)));
-                g.add_row(0.0, toward_band.map(|&j| (local(j), -1.0)));
+                let toward_band = entries(s as usize).filter(|&(j, _)| inner.contains(&(j as usize)));
+                g.add_row(0.0, toward_band.map(|(j, a)| (local(j), a)));
             }
             let columns = g.eliminate(Some(&global), limit)?;
             // What the band left on its separators' rows.
@@ -260,13 +269,11 @@ fn factor_in_bands(
             Some((columns, left))
         })
         .collect();
-    let mut g = Graph::<INLINE>::new(sep_unknowns.len());
+    let mut g = Graph::<K>::new(sep_unknowns.len());
     for &s in &sep_unknowns {
         let s = s as usize;
-        g.add_row(
-            diag[s],
-            nbr[s].iter().filter(|&&j| j != NONE && sep_of[j as usize] != NONE).map(|&j| (sep_of[j as usize], -1.0)),
-        );
+        let among_separators = entries(s).filter(|&(j, _)| sep_of[j as usize] != NONE);
+        g.add_row(diag[s], among_separators.map(|(j, a)| (sep_of[j as usize], a)));
     }
     let mut parts = Vec::with_capacity(bands.len() + 1);
     for b in bands {
@@ -1003,7 +1010,10 @@ mod tests {
         // One separating row; several; and more bands than rows, so that separating rows touch
         // (coupled to each other directly) and some bands are empty.
         for bands in [2, 3, 7, 60] {
-            let chol = factor_in_bands(&pixels, &nbr, &diag, w, usize::MAX, bands).expect("a thin hole is factored");
+            let entries = |i: usize| nbr[i].into_iter().filter(|&j| j != NONE).map(|j| (j, -1.0));
+            let row = |i: usize| pixels[i] as usize / w;
+            let chol = factor_in_bands::<INLINE, _>(row, entries, &diag, 1, usize::MAX, bands)
+                .expect("a thin hole is factored");
             let f = Factor { pixel: chol.in_order(&pixels), nbr: chol.renumber(&nbr), chol };
             let holes = Factored::new(w, h, vec![f]);
             let mut planes = [plane.clone()];
@@ -1015,6 +1025,64 @@ mod tests {
                 assert!((got - want).abs() <= 1e-10 * want.abs().max(1.0), "{bands} bands, pixel {p}: {got} vs {want}");
             }
             assert!(result.reports[0].relative_residual < 1e-12, "{bands} bands: {:?}", result.reports[0]);
+        }
+    }
+
+    #[test]
+    fn bands_cut_by_strips_two_rows_thick_factor_a_stencil_reaching_two_rows() {
+        // B = A² for the crossing network's 5-point matrix A: symmetric positive definite, its
+        // couplings reach two rows (as the biharmonic stencil's do). Solved with and without bands.
+        let (w, h, pixels, _, _) = crossing_network();
+        let (nbr, diag) = (hole_neighbours(w, h, &pixels), hole_diagonal(w, h, &pixels));
+        let m = pixels.len();
+        let mut b_rows: Vec<std::collections::BTreeMap<u32, f64>> = vec![Default::default(); m];
+        let a_row = |k: usize| {
+            std::iter::once((k as u32, diag[k])).chain(nbr[k].into_iter().filter(|&j| j != NONE).map(|j| (j, -1.0)))
+        };
+        for (i, b_row) in b_rows.iter_mut().enumerate() {
+            for (k, x) in a_row(i) {
+                for (j, y) in a_row(k as usize) {
+                    *b_row.entry(j).or_default() += x * y;
+                }
+            }
+        }
+        let b_diag: Vec<f64> = (0..m).map(|i| b_rows[i][&(i as u32)]).collect();
+        let off = |i: usize| b_rows[i].iter().filter(move |e| *e.0 as usize != i).map(|(&j, &x)| (j, x));
+        let (mut at, mut adj, mut vals) = (vec![0u32], Vec::new(), Vec::new());
+        for i in 0..m {
+            for (j, x) in off(i) {
+                adj.push(j);
+                vals.push(x);
+            }
+            at.push(adj.len() as u32);
+        }
+        let whole = SparseCholesky::new::<INLINE>(&at, &adj, &vals, &b_diag, usize::MAX).expect("factors");
+        let rhs: Vec<f64> = (0..m).map(|i| ((i * 37) % 11) as f64 - 5.0).collect();
+        let solve = |chol: &SparseCholesky| {
+            let mut x = chol.in_order(&rhs);
+            chol.solve_in_place::<1>(&mut x);
+            let mut out = vec![0f64; m];
+            for (k, &v) in chol.order.iter().enumerate() {
+                out[v as usize] = x[k];
+            }
+            out
+        };
+        let expected = solve(&whole);
+        // The solution satisfies B·x = rhs.
+        for i in 0..m {
+            let bx = b_diag[i] * expected[i] + off(i).map(|(j, x)| x * expected[j as usize]).sum::<f64>();
+            assert!((bx - rhs[i]).abs() < 1e-9, "row {i}: {bx} vs {}", rhs[i]);
+        }
+        let row = |i: usize| pixels[i] as usize / w;
+        for bands in [2, 3, 7, 60] {
+            let chol = factor_in_bands::<INLINE, _>(row, off, &b_diag, 2, usize::MAX, bands).expect("factors");
+            assert!(chol.parts.len() > 2 || bands == 2, "{bands} bands make separators");
+            for (i, (got, want)) in solve(&chol).iter().zip(&expected).enumerate() {
+                assert!(
+                    (got - want).abs() <= 1e-9 * want.abs().max(1.0),
+                    "{bands} bands, unknown {i}: {got} vs {want}"
+                );
+            }
         }
     }
 

@@ -4,7 +4,8 @@
 //! one system even across a known pixel between them. Each such component that is thin — few
 //! unknowns with long runs both ways, and sparse in its bounding box — is ordered by minimum
 //! degree and factored ([`SparseCholesky`]), as the harmonic fill does with its thin holes: the
-//! elimination fronts of a scratch stay a few pixels wide. Solving an image is then one forward
+//! elimination fronts of a scratch stay a few pixels wide; a large component in two bands side by
+//! side, its separating strip two rows thick. Solving an image is then one forward
 //! and one backward substitution per component. Wide holes and dense scatter (dropout, whose
 //! couplings join half the image into one mesh) stay with the multigrid.
 
@@ -12,7 +13,9 @@ use rayon::prelude::*;
 
 use super::{FINE, fine_row, rhs_at, row_square, square_index};
 use crate::fill::FillError;
-use crate::fill::sparse::{INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, thick_share};
+use crate::fill::sparse::{
+    BANDED_MIN, BANDS, INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, factor_in_bands, thick_share,
+};
 /// Largest multiply-add count of a factorisation, per unknown, before the component is left to
 /// multigrid (one conjugate-gradient solve with its multigrid preconditioner costs over 1000).
 const MAX_WORK_PER_UNKNOWN: usize = 400;
@@ -223,7 +226,18 @@ impl Thin {
                     }
                     at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
                 }
-                let chol = SparseCholesky::new::<INLINE_WIDE>(&at, &adj, &off, &diag, MAX_WORK_PER_UNKNOWN * m)?;
+                let limit = MAX_WORK_PER_UNKNOWN * m;
+                let chol = if m >= BANDED_MIN {
+                    // Couplings reach two rows: the separators are two rows thick.
+                    let row = |k: usize| pixels[idx[k] as usize] as usize / width;
+                    let entries = |k: usize| {
+                        let (a, b) = (at[k] as usize, at[k + 1] as usize);
+                        adj[a..b].iter().copied().zip(off[a..b].iter().copied())
+                    };
+                    factor_in_bands::<INLINE_WIDE, _>(row, entries, &diag, 2, limit, BANDS)?
+                } else {
+                    SparseCholesky::new::<INLINE_WIDE>(&at, &adj, &off, &diag, limit)?
+                };
                 let pixel = chol.in_order(idx).iter().map(|&i| pixels[i as usize]).collect();
                 Some(Component { pixel, nbr: chol.renumber(&nbr), chol })
             })

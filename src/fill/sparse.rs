@@ -100,10 +100,7 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Fact
     }
     let diag = hole_diagonal(width, height, pixels);
     let limit = MAX_WORK_PER_UNKNOWN * m;
-    let chol = if m >= BANDED_MIN {
-        let entries = |i: usize| nbr0[i].into_iter().filter(|&j| j != NONE).map(|j| (j, -1.0));
-        factor_in_bands::<INLINE, _>(|i| pixels[i] as usize / width, entries, &diag, 1, limit, BANDS)?
-    } else {
+    let whole = || {
         let mut at = Vec::with_capacity(m + 1);
         at.push(0u32);
         let mut adj = Vec::with_capacity(4 * m);
@@ -111,7 +108,15 @@ pub(crate) fn factor(width: usize, height: usize, pixels: &[u32]) -> Option<Fact
             adj.extend(n.iter().copied().filter(|&j| j != NONE));
             at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
         }
-        SparseCholesky::new::<INLINE>(&at, &adj, &vec![-1f64; adj.len()], &diag, limit)?
+        SparseCholesky::new::<INLINE>(&at, &adj, &vec![-1f64; adj.len()], &diag, limit)
+    };
+    let chol = if m >= BANDED_MIN {
+        let entries = |i: usize| nbr0[i].into_iter().filter(|&j| j != NONE).map(|j| (j, -1.0));
+        // A separating row crowded with unknowns coupled through both bands can make fronts the
+        // whole ordering would not: then it is tried whole.
+        factor_in_bands::<INLINE, _>(|i| pixels[i] as usize / width, entries, &diag, 1, limit, BANDS).or_else(whole)?
+    } else {
+        whole()?
     };
     Some(Factor { pixel: chol.in_order(pixels), nbr: chol.renumber(&nbr0), chol })
 }
@@ -488,7 +493,7 @@ pub(crate) const INLINE_WIDE: usize = 24;
 const SCAN: usize = 16;
 
 /// One unknown of the elimination graph: its neighbour list with the values of the matrix left to
-/// eliminate, its diagonal, and its links in the degree buckets (two cache lines for `K` =
+/// eliminate, its diagonal, and its links in its degree's list (two cache lines for `K` =
 /// [`INLINE`]). The ordering touches each neighbour of an eliminated unknown and little else, so
 /// one record per unknown is about all it reads.
 #[derive(Clone, Copy)]
@@ -497,7 +502,7 @@ struct Node<const K: usize> {
     len: u32,
     /// Index into [`Graph::spilled`] when the list is there, else [`NONE`].
     spill: u32,
-    /// The neighbours in its degree bucket's list (see [`Graph::pop_min`]).
+    /// Its neighbours in its degree's list (see [`Graph::pop_min`]).
     prev: u32,
     next: u32,
     /// Whether the unknown is in a degree list (an unknown never linked stays in the graph).

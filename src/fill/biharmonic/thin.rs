@@ -4,9 +4,9 @@
 //! one system even across a known pixel between them. Each such component that is thin — few
 //! unknowns with long runs both ways, and sparse in its bounding box — is ordered by minimum
 //! degree and factored ([`SparseCholesky`]), as the harmonic fill does with its thin holes: the
-//! elimination fronts of a scratch stay a few pixels wide; a large component in two bands side by
-//! side, its separating strip two rows thick. Solving an image is then one forward
-//! and one backward substitution per component. Wide holes and dense scatter (dropout, whose
+//! elimination fronts of a scratch stay a few pixels wide; a large component goes in two bands
+//! side by side, its separating strip two rows thick. Solving an image is then one forward and
+//! one backward substitution per component. Wide holes and dense scatter (dropout, whose
 //! couplings join half the image into one mesh) stay with the multigrid.
 
 use rayon::prelude::*;
@@ -227,16 +227,18 @@ impl Thin {
                     at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
                 }
                 let limit = MAX_WORK_PER_UNKNOWN * m;
+                let whole = || SparseCholesky::new::<INLINE_WIDE>(&at, &adj, &off, &diag, limit);
                 let chol = if m >= BANDED_MIN {
-                    // Couplings reach two rows: the separators are two rows thick.
+                    // Couplings reach two rows: the separators are two rows thick. Tried whole
+                    // when the bands fail (see `sparse::factor`).
                     let row = |k: usize| pixels[idx[k] as usize] as usize / width;
                     let entries = |k: usize| {
                         let (a, b) = (at[k] as usize, at[k + 1] as usize);
                         adj[a..b].iter().copied().zip(off[a..b].iter().copied())
                     };
-                    factor_in_bands::<INLINE_WIDE, _>(row, entries, &diag, 2, limit, BANDS)?
+                    factor_in_bands::<INLINE_WIDE, _>(row, entries, &diag, 2, limit, BANDS).or_else(whole)?
                 } else {
-                    SparseCholesky::new::<INLINE_WIDE>(&at, &adj, &off, &diag, limit)?
+                    whole()?
                 };
                 let pixel = chol.in_order(idx).iter().map(|&i| pixels[i as usize]).collect();
                 Some(Component { pixel, nbr: chol.renumber(&nbr), chol })

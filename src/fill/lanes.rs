@@ -4,9 +4,9 @@
 //! stencil update is three scalar updates with the same neighbours. Where the processor has AVX,
 //! [`Rgb`] loads the three samples of one pixel into one register (256-bit for `f64`, 128-bit for
 //! `f32`; the fourth lane is never read from memory nor written to it) and applies the update to
-//! all three at once. Every operation rounds each
-//! lane exactly as the scalar code rounds that channel, in the same order, so the results are the
-//! same bit for bit with and without it (a unit test checks this).
+//! all three at once. Every operation rounds each lane exactly as the scalar code rounds that
+//! channel, in the same order, so the results are the same bit for bit with and without it (a
+//! unit test checks this).
 
 /// Three-channel vector kernels, present when the processor supports them.
 #[derive(Clone, Copy)]

@@ -128,8 +128,8 @@ fn hole_neighbours(width: usize, height: usize, pixels: &[u32]) -> Vec<[u32; 4]>
     let mut nbr = vec![[NONE; 4]; m];
     // In chunks side by side; the pixels increase, so within a chunk the searches for the
     // neighbours above and below move forward only.
-    nbr.par_chunks_mut(1 << 14).enumerate().for_each(|(c, out)| {
-        let first = c << 14;
+    nbr.par_chunks_mut(CHUNK).enumerate().for_each(|(c, out)| {
+        let first = c * CHUNK;
         let p0 = pixels[first] as usize;
         let mut up_at = pixels.partition_point(|&q| (q as usize) + width < p0);
         let mut down_at = first + 1;
@@ -168,7 +168,7 @@ fn hole_neighbours(width: usize, height: usize, pixels: &[u32]) -> Vec<[u32; 4]>
 fn hole_diagonal(width: usize, height: usize, pixels: &[u32]) -> Vec<f64> {
     pixels
         .par_iter()
-        .with_min_len(1 << 14)
+        .with_min_len(CHUNK)
         .map(|&p| {
             let (x, y) = (p as usize % width, p as usize / width);
             f64::from(u8::from(x > 0) + u8::from(x + 1 < width) + u8::from(y > 0) + u8::from(y + 1 < height))
@@ -176,9 +176,9 @@ fn hole_diagonal(width: usize, height: usize, pixels: &[u32]) -> Vec<f64> {
         .collect()
 }
 
-/// Unknowns per chunk of a hole's right-hand side and residual (fixed, so that their sums do not
-/// depend on the number of threads).
-const SOLVE_CHUNK: usize = 1 << 14;
+/// Unknowns per chunk of the passes over a hole's unknowns that run side by side (fixed, so that
+/// the right-hand side's and residual's sums do not depend on the number of threads).
+const CHUNK: usize = 1 << 14;
 /// Holes with at least this many unknowns are factored in bands side by side.
 pub(crate) const BANDED_MIN: usize = 1 << 15;
 /// Bands of a hole factored in bands: one per core here (four gave the same time on two cores;
@@ -347,14 +347,14 @@ impl SparseCholesky {
         debug_assert_eq!(order.len(), m);
         let pos = positions(&order);
         for p in &mut parts {
-            p.row.par_iter_mut().with_min_len(1 << 14).for_each(|r| *r = pos[*r as usize]);
+            p.row.par_iter_mut().with_min_len(CHUNK).for_each(|r| *r = pos[*r as usize]);
         }
         Self { order, parts, bounds }
     }
 
     /// `of` (one item per unknown of the matrix) in elimination order.
     pub(crate) fn in_order<T: Copy + Send + Sync>(&self, of: &[T]) -> Vec<T> {
-        self.order.par_iter().with_min_len(1 << 14).map(|&v| of[v as usize]).collect()
+        self.order.par_iter().with_min_len(CHUNK).map(|&v| of[v as usize]).collect()
     }
 
     /// Neighbour lists (the matrix's indices, [`NONE`] for none) in elimination order, and as
@@ -362,7 +362,7 @@ impl SparseCholesky {
     pub(crate) fn renumber<const K: usize>(&self, nbr: &[[u32; K]]) -> Vec<[u32; K]> {
         let pos = positions(&self.order);
         let renumber = |&v: &u32| nbr[v as usize].map(|j| if j == NONE { NONE } else { pos[j as usize] });
-        self.order.par_iter().with_min_len(1 << 14).map(renumber).collect()
+        self.order.par_iter().with_min_len(CHUNK).map(renumber).collect()
     }
 
     /// Bytes held.
@@ -839,11 +839,11 @@ fn solve_hole<const C: usize>(
     // fixed size side by side; their sums are added in order, so they do not depend on threads.
     let mut b = vec![0f64; m * C];
     let chunks: Vec<Result<[f64; C], FillError>> = b
-        .par_chunks_mut(SOLVE_CHUNK * C)
+        .par_chunks_mut(CHUNK * C)
         .enumerate()
         .map(|(q, b)| {
             let mut b_sq = [0f64; C];
-            for (k, bk) in (q * SOLVE_CHUNK..).zip(b.chunks_exact_mut(C)) {
+            for (k, bk) in (q * CHUNK..).zip(b.chunks_exact_mut(C)) {
                 let p = hole.pixel[k] as usize;
                 let (px, py) = (p % width, p / width);
                 let sides = [
@@ -882,11 +882,11 @@ fn solve_hole<const C: usize>(
     hole.chol.solve_in_place::<C>(x);
     // The residual b − A·x for the report.
     let x = &*x;
-    let chunks: Vec<[f64; C]> = (0..m.div_ceil(SOLVE_CHUNK))
+    let chunks: Vec<[f64; C]> = (0..m.div_ceil(CHUNK))
         .into_par_iter()
         .map(|q| {
             let mut r_sq = [0f64; C];
-            for k in q * SOLVE_CHUNK..((q + 1) * SOLVE_CHUNK).min(m) {
+            for k in q * CHUNK..((q + 1) * CHUNK).min(m) {
                 let p = hole.pixel[k] as usize;
                 let (px, py) = (p % width, p / width);
                 let degree = f64::from(

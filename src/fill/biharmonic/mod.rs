@@ -119,18 +119,23 @@ const SHALLOW_SWEEPS: usize = 2;
 
 /// Whether the unknowns, given by their row runs, contain a `k × k` square.
 fn has_square(runs: &[Vec<(u32, u32)>], width: usize, k: usize) -> bool {
+    let runs = runs.iter().enumerate().flat_map(|(y, row)| row.iter().map(move |&(a, b)| (y, a as usize, b as usize)));
+    has_square_in(runs, width, k)
+}
+
+/// Whether the points, given by their runs `(row, from, to exclusive)` in row-major order on a
+/// grid `width` wide, contain a `k × k` square.
+fn has_square_in(runs: impl IntoIterator<Item = (usize, usize, usize)>, width: usize, k: usize) -> bool {
     // Per column: the last row seen unknown there and how many rows up to it were unknown.
     let mut column = vec![(usize::MAX, 0usize); width];
-    for (y, row) in runs.iter().enumerate() {
-        for &(a, b) in row {
-            let mut wide = 0;
-            for c in &mut column[a as usize..b as usize] {
-                let tall = if c.0.wrapping_add(1) == y { c.1 + 1 } else { 1 };
-                *c = (y, tall);
-                wide = if tall >= k { wide + 1 } else { 0 };
-                if wide >= k {
-                    return true;
-                }
+    for (y, a, b) in runs {
+        let mut wide = 0;
+        for c in &mut column[a..b] {
+            let tall = if c.0.wrapping_add(1) == y { c.1 + 1 } else { 1 };
+            *c = (y, tall);
+            wide = if tall >= k { wide + 1 } else { 0 };
+            if wide >= k {
+                return true;
             }
         }
     }

@@ -567,25 +567,43 @@ fn coarsen(fine: &Level) -> Level {
     let fb = fine.bbox;
     let bbox = (fb.0.div_euclid(2), fb.1.div_euclid(2), fb.2.div_euclid(2) + 1, fb.3.div_euclid(2) + 1);
     let mut coarse = Level::new(runs_xy, bbox, &COARSE);
-    // Interior fine points in a row to the right of each (itself included), within its run.
-    let mut interior_right = vec![0u32; fine.n];
-    for &(s, e, p0) in &fine.runs {
-        let mut count = 0u32;
-        for p in (p0..p0 + e - s).rev() {
-            count = if fine.row[p] == 0 { count + 1 } else { 0 };
-            interior_right[p] = count;
+    // Per fine cell: the interior points in a row to the right of it (itself included) within
+    // its run, up to 255; zero off the points.
+    let mut interior_right = vec![0u8; fine.index.len()];
+    fine.layout.for_each_mut(&mut interior_right, |run, _, out| {
+        let p0 = fine.runs[run].2;
+        let mut count = 0u8;
+        for (k, o) in out.iter_mut().enumerate().rev() {
+            count = if fine.row[p0 + k] == 0 { count.saturating_add(1) } else { 0 };
+            *o = count;
         }
-    }
+    });
     // A coarse point whose 9×9 fine neighbourhood is all interior points has the shared row.
-    let shared =
-        |x: i64, y: i64| (-4..=4).all(|dy| fine.point(2 * x - 4, 2 * y + dy).is_some_and(|p| interior_right[p] >= 9));
-    // Which points share row 0 (one bit each), then the rows of the others.
+    // Which points share row 0, run by run: along a run the neighbourhoods' left ends are two
+    // cells apart in each of the nine fine rows.
     let is_shared: Vec<bool> = coarse
         .runs
         .par_iter()
-        .flat_map_iter(|&(s, e, _)| (s..e).map(|c| coarse.at(c)).map(|(x, y)| shared(x, y)))
+        .flat_map_iter(|&(s, e, _)| {
+            let ((x, y), n) = (coarse.at(s), e - s);
+            let mut shared = vec![true; n];
+            #[allow(clippy::cast_possible_wrap)]
+            for dy in -4..=4 {
+                // The points whose neighbourhood starts left of the fine grid have none of their own.
+                let on_grid = (0..n).find(|&j| fine.cell(2 * (x + j as i64) - 4, 2 * y + dy).is_some());
+                let Some(j0) = on_grid else {
+                    shared.fill(false);
+                    break;
+                };
+                let first = fine.cell(2 * (x + j0 as i64) - 4, 2 * y + dy).expect("found");
+                shared[..j0].fill(false);
+                for (j, v) in shared[j0..].iter_mut().enumerate() {
+                    *v &= interior_right[first + 2 * j] >= 9;
+                }
+            }
+            shared
+        })
         .collect();
-    let plan = Galerkin::new(fine, &coarse);
     // The points with rows of their own (point index, cell), in order; their rows are computed
     // straight into the table, row 0 being the shared one.
     let own: Vec<(usize, usize)> = coarse
@@ -594,6 +612,14 @@ fn coarsen(fine: &Level) -> Level {
         .flat_map(|&(s, e, p0)| (s..e).map(move |c| (p0 + c - s, c)))
         .filter(|&(p, _)| !is_shared[p])
         .collect();
+    // The cell of a point with the shared row, whose row is row 0.
+    let shared_cell = is_shared.iter().position(|&b| b).map(|p| {
+        let run = coarse.runs.partition_point(|&(_, _, p0)| p0 <= p) - 1;
+        let (s, _, p0) = coarse.runs[run];
+        s + p - p0
+    });
+    let cells: Vec<usize> = own.iter().map(|&(_, c)| c).chain(shared_cell).collect();
+    let plan = Galerkin::new(fine, &coarse, &cells);
     let k = COARSE.len();
     let mut table = vec![0f64; k * (own.len() + 1)];
     let (first, rest) = table.split_at_mut(k);
@@ -604,12 +630,8 @@ fn coarsen(fine: &Level) -> Level {
         }
     };
     rest.par_chunks_mut(k).zip(&own).with_min_len(256).for_each(|(out, &(_, c))| put(out, c));
-    match is_shared.iter().position(|&b| b) {
-        Some(p) => {
-            let run = coarse.runs.partition_point(|&(_, _, p0)| p0 <= p) - 1;
-            let (s, _, p0) = coarse.runs[run];
-            put(first, s + p - p0);
-        }
+    match shared_cell {
+        Some(c) => put(first, c),
         // No point uses row 0; a unit diagonal keeps its inverse finite.
         None => first[0] = 1.0,
     }
@@ -628,8 +650,9 @@ struct Galerkin {
     /// Per child: its fine cell offset from the point's, its weight, and its terms.
     children: Vec<(isize, f64, Vec<GalerkinTerm>)>,
     /// Per fine cell: bit `j` set when the cell is a point and its `j`-th parent (in the order of
-    /// [`GalerkinTerm::parents`]) is a coarse point. A fine point is the neighbour of a child of
-    /// some fifty coarse points; its parents are looked up once.
+    /// [`GalerkinTerm::parents`]) is a coarse point, at the cells the planned rows read. A fine
+    /// point is the neighbour of a child of some fifty coarse points; its parents are looked up
+    /// once.
     parents: Vec<u8>,
 }
 
@@ -644,8 +667,9 @@ struct GalerkinTerm {
 }
 
 impl Galerkin {
+    /// The plan for the rows of the coarse points at `cells`.
     #[allow(clippy::cast_possible_wrap)]
-    fn new(fine: &Level, coarse: &Level) -> Self {
+    fn new(fine: &Level, coarse: &Level, cells: &[usize]) -> Self {
         let fs = fine.stride as isize;
         let mut children = Vec::with_capacity(9);
         for dy in -1..=1i64 {
@@ -672,22 +696,44 @@ impl Galerkin {
                 children.push((dy as isize * fs + dx as isize, weight(dx) * weight(dy), terms));
             }
         }
+        let bits_at = |c: usize| {
+            let (gx, gy) = fine.at(c);
+            let ((px, nx), (py, ny)) = (parents(gx), parents(gy));
+            let (mut bits, mut j) = (0u8, 0);
+            for &qy in &py[..ny] {
+                for &qx in &px[..nx] {
+                    if coarse.point(qx, qy).is_some() {
+                        bits |= 1 << j;
+                    }
+                    j += 1;
+                }
+            }
+            bits
+        };
         let mut bits = vec![0u8; fine.index.len()];
-        fine.layout.for_each_mut(&mut bits, |_, s, out| {
-            for (k, o) in out.iter_mut().enumerate() {
-                let (gx, gy) = fine.at(s + k);
-                let ((px, nx), (py, ny)) = (parents(gx), parents(gy));
-                let mut j = 0;
-                for &qy in &py[..ny] {
-                    for &qx in &px[..nx] {
-                        if coarse.point(qx, qy).is_some() {
-                            *o |= 1 << j;
+        // A row reads the cells within three of its point's fine cell (a child's neighbours). When
+        // those squares cover fewer cells than the level has points (wide holes, whose shared
+        // interior needs one row), only they are filled in.
+        if cells.len() * 49 < fine.n {
+            for &c in cells {
+                let (x, y) = coarse.at(c);
+                for dy in -3..=3 {
+                    for dx in -3..=3 {
+                        if let Some(cell) = fine.cell(2 * x + dx, 2 * y + dy)
+                            && fine.index[cell] > 0
+                        {
+                            bits[cell] = bits_at(cell);
                         }
-                        j += 1;
                     }
                 }
             }
-        });
+        } else {
+            fine.layout.for_each_mut(&mut bits, |_, s, out| {
+                for (k, o) in out.iter_mut().enumerate() {
+                    *o = bits_at(s + k);
+                }
+            });
+        }
         Self { children, parents: bits }
     }
 
@@ -1035,9 +1081,13 @@ mod tests {
         let l2 = coarsen(&l1);
         let mut checked = 0;
         for (fine, coarse) in [(&l0, &l1), (&l1, &l2)] {
-            let plan = Galerkin::new(fine, coarse);
-            for &(s, e, _) in &coarse.runs {
-                for c in s..e {
+            let all: Vec<usize> = coarse.runs.iter().flat_map(|&(s, e, _)| s..e).collect();
+            // The plan for every point, and one for a few (which looks up parents near those only).
+            let few: Vec<usize> = all.iter().copied().step_by(97).collect();
+            assert!(few.len() * 49 < fine.n && all.len() * 49 >= fine.n, "both ways of finding parents");
+            for cells in [&all, &few] {
+                let plan = Galerkin::new(fine, coarse, cells);
+                for &c in cells {
                     let (x, y) = coarse.at(c);
                     let (fast, slow) = (plan.row(fine, coarse, c), galerkin_row(fine, coarse, x, y));
                     for k in 0..25 {

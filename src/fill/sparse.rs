@@ -178,7 +178,7 @@ fn hole_diagonal(width: usize, height: usize, pixels: &[u32]) -> Vec<f64> {
 
 /// Unknowns per chunk of the passes over a hole's unknowns that run side by side (fixed, so that
 /// the right-hand side's and residual's sums do not depend on the number of threads).
-const CHUNK: usize = 1 << 14;
+pub(crate) const CHUNK: usize = 1 << 14;
 /// Holes with at least this many unknowns are factored in bands side by side.
 pub(crate) const BANDED_MIN: usize = 1 << 15;
 /// Bands of a hole factored in bands: one per core here (four gave the same time on two cores;

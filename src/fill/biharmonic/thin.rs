@@ -14,7 +14,8 @@ use rayon::prelude::*;
 use super::{FINE, fine_row, rhs_at, row_square, square_index};
 use crate::fill::FillError;
 use crate::fill::sparse::{
-    BANDED_MIN, BANDS, INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, factor_in_bands, thick_share,
+    BANDED_MIN, BANDS, CHUNK, INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, factor_in_bands,
+    thick_share,
 };
 /// Largest multiply-add count of a factorisation, per unknown, before the component is left to
 /// multigrid (one conjugate-gradient solve with its multigrid preconditioner costs over 1000).
@@ -195,12 +196,24 @@ impl Thin {
                     ((pixels[i as usize] as usize % width) as i64, (pixels[i as usize] as usize / width) as i64)
                 };
                 let nbr: Vec<[u32; 12]> = idx
-                    .iter()
+                    .par_iter()
+                    .with_min_len(4096)
                     .map(|&i| {
                         let (x, y) = xy(i);
                         std::array::from_fn(|t| {
                             let (dx, dy) = FINE[t + 1];
-                            find(x + dx, y + dy).map_or(NONE, |j| local[j])
+                            // A same-row neighbour that is unknown sits at most `|dx|` places
+                            // away in `pixels`, which is row-major and increasing.
+                            let found = if dy == 0 {
+                                let target = i64::from(pixels[i as usize]) + dx;
+                                let inside = x + dx >= 0 && x + dx < width as i64;
+                                (1..=dx.abs())
+                                    .map(|k| (i as usize).wrapping_add_signed((k * dx.signum()) as isize))
+                                    .find(|&j| inside && pixels.get(j).is_some_and(|&q| i64::from(q) == target))
+                            } else {
+                                find(x + dx, y + dy)
+                            };
+                            found.map_or(NONE, |j| local[j])
                         })
                     })
                     .collect();
@@ -212,7 +225,8 @@ impl Thin {
                 // The rows of B: the 13-point stencil, its own near the image edge.
                 let mut at = Vec::with_capacity(m + 1);
                 at.push(0u32);
-                let (mut adj, mut off, mut diag) = (Vec::new(), Vec::new(), Vec::with_capacity(m));
+                let (mut adj, mut off, mut diag) =
+                    (Vec::with_capacity(12 * m), Vec::with_capacity(12 * m), Vec::with_capacity(m));
                 for (k, &i) in idx.iter().enumerate() {
                     let (x, y) = xy(i);
                     let square = row_square(x, y, w, h, &interior);
@@ -285,28 +299,48 @@ impl Thin {
                     let (x, y) = (p % w, p / w);
                     (x, y, row_square(x, y, w, h, &interior))
                 };
-                // b = −Σ B_pr·f_r over the known pixels r the row reaches.
+                // b = −Σ B_pr·f_r over the known pixels r the row reaches, in fixed chunks side
+                // by side; the first error in elimination order is the one reported.
                 let mut b = vec![0f64; m];
+                let chunks: Vec<Result<f64, FillError>> = b
+                    .par_chunks_mut(CHUNK)
+                    .enumerate()
+                    .map(|(c, out)| {
+                        let mut sq = 0f64;
+                        for (i, bk) in out.iter_mut().enumerate() {
+                            let (x, y, square) = square_of(c * CHUNK + i);
+                            *bk = rhs_at(x, y, &square, w, plane, mask)?;
+                            sq += *bk * *bk;
+                        }
+                        Ok(sq)
+                    })
+                    .collect();
                 let mut b_sq = 0f64;
-                for (k, bk) in b.iter_mut().enumerate() {
-                    let (x, y, square) = square_of(k);
-                    *bk = rhs_at(x, y, &square, w, plane, mask)?;
-                    b_sq += *bk * *bk;
+                for sq in chunks {
+                    b_sq += sq?;
                 }
                 let mut x = b.clone();
                 part.chol.solve_in_place::<1>(&mut x);
                 // The residual b − B·x, for the report.
-                let mut r_sq = 0f64;
-                for k in 0..m {
-                    let (_, _, square) = square_of(k);
-                    let mut r = b[k] - square[square_index((0, 0))] * x[k];
-                    for (t, &j) in part.nbr[k].iter().enumerate() {
-                        if j != NONE {
-                            r -= square[square_index(FINE[t + 1])] * x[j as usize];
+                let r_sq: f64 = (0..m.div_ceil(CHUNK))
+                    .into_par_iter()
+                    .map(|c| {
+                        let mut sq = 0f64;
+                        for k in c * CHUNK..((c + 1) * CHUNK).min(m) {
+                            let (_, _, square) = square_of(k);
+                            let mut r = b[k] - square[square_index((0, 0))] * x[k];
+                            for (t, &j) in part.nbr[k].iter().enumerate() {
+                                if j != NONE {
+                                    r -= square[square_index(FINE[t + 1])] * x[j as usize];
+                                }
+                            }
+                            sq += r * r;
                         }
-                    }
-                    r_sq += r * r;
-                }
+                        sq
+                    })
+                    .collect::<Vec<f64>>()
+                    .iter()
+                    .sum();
                 Ok(Solved { values: x.iter().map(|&v| v as f32).collect(), r_sq, b_sq })
             })
             .collect();

@@ -812,6 +812,11 @@ impl Hierarchy {
             if x < 2 || y < 2 || x >= w - 2 || y >= h - 2 {
                 return rhs_at(x, y, &row_square(x, y, w, h, &interior), w, plane, mask);
             }
+            // Inside a wide hole the row reaches no known pixel: twelve mask bytes decide, and the
+            // image is not read.
+            if terms.iter().all(|&(_, o)| mask[(p as usize).wrapping_add_signed(o)]) {
+                return Ok(0.0);
+            }
             // Without branches on the mask, which random dropout makes unpredictable; a
             // non-finite known value is looked for only when one was summed.
             let (mut s, mut finite) = (0f64, true);
@@ -823,6 +828,7 @@ impl Hierarchy {
             }
             if finite { Ok(s) } else { rhs_at(x, y, &interior, w, plane, mask) }
         };
+        // Zeros are not written: inside a wide hole the pages of `b` then stay unmapped.
         let mut b = vec![0f64; self.len];
         let layout = self.layout();
         let bad = layout.sum_mut(&mut b, |k, _, out| {
@@ -830,7 +836,8 @@ impl Hierarchy {
             let mut bad = 0.0;
             for (o, &p) in out.iter_mut().zip(&self.pixels[p0..]) {
                 match point(p) {
-                    Ok(v) => *o = v,
+                    Ok(v) if v != 0.0 => *o = v,
+                    Ok(_) => {}
                     Err(_) => bad += 1.0,
                 }
             }

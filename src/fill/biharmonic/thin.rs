@@ -299,22 +299,24 @@ impl Thin {
                     let (x, y) = (p % w, p / w);
                     (x, y, row_square(x, y, w, h, &interior))
                 };
-                // b = −Σ B_pr·f_r over the known pixels r the row reaches, in fixed chunks side
-                // by side; the first error in elimination order is the one reported.
+                // b = −Σ B_pr·f_r over the known pixels r the row reaches, in fixed chunks (side
+                // by side when there are several; most components are a few pixels); the first
+                // error in elimination order is the one reported.
+                let rhs_chunk = |c: usize, out: &mut [f64]| -> Result<f64, FillError> {
+                    let mut sq = 0f64;
+                    for (i, bk) in out.iter_mut().enumerate() {
+                        let (x, y, square) = square_of(c * CHUNK + i);
+                        *bk = rhs_at(x, y, &square, w, plane, mask)?;
+                        sq += *bk * *bk;
+                    }
+                    Ok(sq)
+                };
                 let mut b = vec![0f64; m];
-                let chunks: Vec<Result<f64, FillError>> = b
-                    .par_chunks_mut(CHUNK)
-                    .enumerate()
-                    .map(|(c, out)| {
-                        let mut sq = 0f64;
-                        for (i, bk) in out.iter_mut().enumerate() {
-                            let (x, y, square) = square_of(c * CHUNK + i);
-                            *bk = rhs_at(x, y, &square, w, plane, mask)?;
-                            sq += *bk * *bk;
-                        }
-                        Ok(sq)
-                    })
-                    .collect();
+                let chunks: Vec<Result<f64, FillError>> = if m > CHUNK {
+                    b.par_chunks_mut(CHUNK).enumerate().map(|(c, out)| rhs_chunk(c, out)).collect()
+                } else {
+                    vec![rhs_chunk(0, &mut b)]
+                };
                 let mut b_sq = 0f64;
                 for sq in chunks {
                     b_sq += sq?;
@@ -322,25 +324,25 @@ impl Thin {
                 let mut x = b.clone();
                 part.chol.solve_in_place::<1>(&mut x);
                 // The residual b − B·x, for the report.
-                let r_sq: f64 = (0..m.div_ceil(CHUNK))
-                    .into_par_iter()
-                    .map(|c| {
-                        let mut sq = 0f64;
-                        for k in c * CHUNK..((c + 1) * CHUNK).min(m) {
-                            let (_, _, square) = square_of(k);
-                            let mut r = b[k] - square[square_index((0, 0))] * x[k];
-                            for (t, &j) in part.nbr[k].iter().enumerate() {
-                                if j != NONE {
-                                    r -= square[square_index(FINE[t + 1])] * x[j as usize];
-                                }
+                let residual_chunk = |c: usize| {
+                    let mut sq = 0f64;
+                    for k in c * CHUNK..((c + 1) * CHUNK).min(m) {
+                        let (_, _, square) = square_of(k);
+                        let mut r = b[k] - square[square_index((0, 0))] * x[k];
+                        for (t, &j) in part.nbr[k].iter().enumerate() {
+                            if j != NONE {
+                                r -= square[square_index(FINE[t + 1])] * x[j as usize];
                             }
-                            sq += r * r;
                         }
-                        sq
-                    })
-                    .collect::<Vec<f64>>()
-                    .iter()
-                    .sum();
+                        sq += r * r;
+                    }
+                    sq
+                };
+                let r_sq: f64 = if m > CHUNK {
+                    (0..m.div_ceil(CHUNK)).into_par_iter().map(residual_chunk).collect::<Vec<f64>>().iter().sum()
+                } else {
+                    residual_chunk(0)
+                };
                 Ok(Solved { values: x.iter().map(|&v| v as f32).collect(), r_sq, b_sq })
             })
             .collect();

@@ -32,6 +32,7 @@ pub mod guided;
 mod hierarchy;
 mod kernels;
 mod lanes;
+mod pages;
 mod solve;
 mod sparse;
 

@@ -13,6 +13,8 @@ use std::ops::Range;
 
 use rayon::prelude::*;
 
+use crate::fill::pages;
+
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, Layout, LevelWork,
     MIN_REDUCTION, Real, SECOND_VISITS, SHALLOW_SWEEPS, Shared, banded, bands, dense_coarsest, dot_run, fine_row,
@@ -132,20 +134,22 @@ impl Level {
         let (x0, y0) = (bbox.0 - PAD, bbox.1 - PAD);
         let stride = (bbox.2 - bbox.0 + 1 + 2 * PAD) as usize;
         let rows = (bbox.3 - bbox.1 + 1 + 2 * PAD) as usize;
-        // Zeroed allocations are mapped lazily: cells never written cost no memory.
-        let mut index = vec![0u32; stride * rows];
         let mut runs = Vec::new();
         let mut n = 0usize;
         let mut points = (i64::MAX, i64::MAX, i64::MIN, i64::MIN);
         for (y, a, b) in runs_xy {
             let s = (y - y0) as usize * stride + (a - x0) as usize;
             let len = (b - a) as usize;
-            for (k, cell) in index[s..s + len].iter_mut().enumerate() {
-                *cell = crate::mask::index_u32(n + k + 1);
-            }
             runs.push((s, s + len, n));
             n += len;
             points = (points.0.min(a), points.1.min(y), points.2.max(b - 1), points.3.max(y));
+        }
+        // Zeroed allocations are mapped lazily: cells never written cost no memory.
+        let mut index = pages::zeros(stride * rows, 2 * n >= stride * rows);
+        for &(s, e, first) in &runs {
+            for (k, cell) in index[s..e].iter_mut().enumerate() {
+                *cell = crate::mask::index_u32(first + k + 1);
+            }
         }
         let cell_off = offsets.iter().map(|&(dx, dy)| dy as isize * stride as isize + dx as isize).collect();
         let layout = Layout::new(runs.iter().map(|&(s, e, _)| (s, e)).collect());
@@ -908,7 +912,7 @@ impl Levels {
         self.levels
             .iter()
             .enumerate()
-            .map(|(l, level)| LevelWork::new(level.index.len(), if l == last { level.n } else { 0 }))
+            .map(|(l, level)| LevelWork::new(level.index.len(), level.n, if l == last { level.n } else { 0 }))
             .collect()
     }
 

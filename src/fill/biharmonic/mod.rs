@@ -30,7 +30,7 @@ use std::time::Instant;
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
-use super::{ChannelReport, FillError, FillParams, Progress, Start, Structure};
+use super::{ChannelReport, FillError, FillParams, Progress, Start, Structure, pages};
 use crate::mask::Mask;
 
 mod compact;
@@ -539,10 +539,12 @@ struct LevelWork<T> {
 }
 
 impl<T: Real> LevelWork<T> {
-    fn new(len: usize, dense: usize) -> Self {
-        // `vec![0.0; n]` maps zeroed pages lazily; a grid's cells far from the points are never
-        // touched and cost no memory.
-        let zeros = || vec![T::default(); len];
+    /// Scratch for a level of `points` points in vectors of `len` slots, `dense` of them solved
+    /// by the coarsest level's factor.
+    fn new(len: usize, points: usize, dense: usize) -> Self {
+        // Zeroed pages are mapped lazily; a grid's cells far from the points are never touched
+        // and cost no memory, so only levels whose points fill most slots take huge pages.
+        let zeros = || pages::zeros(len, 2 * points >= len);
         Self { u: zeros(), b: zeros(), r: zeros(), keep: zeros(), dense: vec![0.0; dense] }
     }
 }
@@ -743,6 +745,12 @@ impl Hierarchy {
         }
     }
 
+    /// A fresh zeroed vector over the finest level's slots, to be written at every unknown (on
+    /// huge pages when the unknowns fill most slots, see [`pages`]).
+    fn zeros(&self) -> Vec<f64> {
+        pages::zeros(self.len, 2 * self.pixels.len() >= self.len)
+    }
+
     /// Whether the hierarchy has no coarse levels (see [`SHALLOW_SQUARE`]).
     fn is_shallow(&self) -> bool {
         match &self.storage {
@@ -783,7 +791,7 @@ impl Hierarchy {
     /// Scratch for one channel's preconditioner.
     fn work(&self) -> Work {
         match &self.storage {
-            Storage::Compact(c) => Work::Compact(c.levels.iter().map(|l| LevelWork::new(l.n, 0)).collect()),
+            Storage::Compact(c) => Work::Compact(c.levels.iter().map(|l| LevelWork::new(l.n, l.n, 0)).collect()),
             Storage::Grid(g) => Work::Grid(g.work()),
         }
     }
@@ -920,7 +928,7 @@ impl Hierarchy {
         let from_planes = saved.is_some() || start == Start::Warm;
         let starts: Vec<Vec<f64>> = (0..planes.len())
             .map(|c| {
-                let mut x = vec![0f64; self.len];
+                let mut x = self.zeros();
                 if from_planes {
                     let p = &*planes[c];
                     let layout = self.layout();
@@ -1047,7 +1055,7 @@ const RELAX_SLOW: f64 = 0.6;
 impl Pcg {
     /// The state at `x` for the right-hand side `b`; `relax`: begin by relaxing.
     fn new(hier: &Hierarchy, b: Vec<f64>, x: Vec<f64>, relax: bool) -> Self {
-        let mut q = vec![0.0; b.len()];
+        let mut q = hier.zeros();
         hier.apply(&x, &mut q);
         let bnorm = hier.layout().dot(&b, &b).sqrt();
         let mut state = Self { b, bnorm, x, q, rr: 0.0, cg: None };
@@ -1077,8 +1085,7 @@ impl Pcg {
 
     /// Begins conjugate gradients, with `A·x` in `q`.
     fn start_cg(&mut self, hier: &Hierarchy) {
-        let n = self.b.len();
-        let mut r = vec![0.0; n];
+        let mut r = hier.zeros();
         hier.layout().copy(&self.b, &mut r);
         let mut work = hier.work();
         self.rr = match &mut work {
@@ -1088,7 +1095,7 @@ impl Pcg {
         // `p` is read before it is written; zeros written now map its pages once, where a read of
         // fresh zeroed memory maps the shared zero page, and the write after it copies the page
         // and flushes the other threads' address caches.
-        let mut p = vec![0.0; n];
+        let mut p = hier.zeros();
         hier.layout().fill_zero(&mut p);
         self.cg = Some(Cg { r, p, rz: 0.0, work, started: false, alpha: 0.0 });
     }

@@ -104,13 +104,12 @@ fn fill_writes_result_and_report() {
 #[test]
 fn missing_input_is_reported() {
     let fx = Fixture::new();
-    let missing = fx.path("nope.png");
-    assert_fails(
-        &fx,
-        &[os("fill"), os(&missing), os("--mask"), os(&fx.mask), os("-o"), os(&fx.path("o.png"))],
-        1,
-        "nope.png",
-    );
+    let (missing, out) = (fx.path("nope.png"), fx.path("o.png"));
+    let args = [os("fill"), os(&missing), os("--mask"), os(&fx.mask), os("-o"), os(&out)];
+    assert_fails(&fx, &args, 1, "nope.png");
+    // The system's reason is given once (it was repeated as the error's cause).
+    let msg = stderr(&reweave(&args));
+    assert_eq!(msg.matches("(os error").count(), 1, "{msg}");
 }
 
 #[test]

@@ -19,7 +19,7 @@ pub(super) fn load(path: &Path, format: FileFormat, limits: Limits) -> Result<Ra
         }
         other => RasterError::Decode { path: path.to_owned(), format: format.name(), message: other.to_string() },
     };
-    let file = File::open(path).map_err(|source| RasterError::Open { path: path.to_owned(), source })?;
+    let file = File::open(path).map_err(|error| RasterError::Open { path: path.to_owned(), error })?;
     let mut reader = ImageReader::new(BufReader::new(file));
     reader.set_format(match format {
         FileFormat::Png => image::ImageFormat::Png,

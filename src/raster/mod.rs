@@ -365,8 +365,9 @@ impl Limits {
 /// what to do about it.
 #[derive(Debug, Error)]
 pub enum RasterError {
-    #[error("cannot read '{path}': {source}")]
-    Open { path: PathBuf, source: std::io::Error },
+    #[error("cannot read '{path}': {error}")]
+    /// `error` is shown in the message itself, so it is not a `source` (which would print it twice).
+    Open { path: PathBuf, error: std::io::Error },
     #[error("'{path}' is a folder, not an image file")]
     IsDirectory { path: PathBuf },
     #[error("'{path}' is empty (0 bytes); it is not an image")]
@@ -416,7 +417,7 @@ pub fn load_with_limits(path: &Path, limits: Limits) -> Result<Raster, RasterErr
 
 /// Checks that `path` is a readable, non-empty file and tells its format from its first bytes.
 fn detect(path: &Path) -> Result<FileFormat, RasterError> {
-    let meta = std::fs::metadata(path).map_err(|source| RasterError::Open { path: path.to_owned(), source })?;
+    let meta = std::fs::metadata(path).map_err(|error| RasterError::Open { path: path.to_owned(), error })?;
     if meta.is_dir() {
         return Err(RasterError::IsDirectory { path: path.to_owned() });
     }
@@ -424,13 +425,13 @@ fn detect(path: &Path) -> Result<FileFormat, RasterError> {
         return Err(RasterError::Empty { path: path.to_owned() });
     }
     let mut head = [0u8; 8];
-    let mut file = File::open(path).map_err(|source| RasterError::Open { path: path.to_owned(), source })?;
+    let mut file = File::open(path).map_err(|error| RasterError::Open { path: path.to_owned(), error })?;
     let mut got = 0;
     while got < head.len() {
         match file.read(&mut head[got..]) {
             Ok(0) => break,
             Ok(n) => got += n,
-            Err(source) => return Err(RasterError::Open { path: path.to_owned(), source }),
+            Err(error) => return Err(RasterError::Open { path: path.to_owned(), error }),
         }
     }
     FileFormat::sniff(&head[..got]).ok_or_else(|| RasterError::UnknownFormat { path: path.to_owned() })

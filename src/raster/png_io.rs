@@ -34,7 +34,7 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
         }
         other => RasterError::Decode { path: path.to_owned(), format: "PNG", message: other.to_string() },
     };
-    let file = File::open(path).map_err(|source| RasterError::Open { path: path.to_owned(), source })?;
+    let file = File::open(path).map_err(|error| RasterError::Open { path: path.to_owned(), error })?;
     let bytes_limit = usize::try_from(limits.max_bytes).unwrap_or(usize::MAX);
     let mut decoder = png::Decoder::new_with_limits(BufReader::new(file), png::Limits { bytes: bytes_limit });
     decoder.set_transformations(Transformations::EXPAND);

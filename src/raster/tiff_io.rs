@@ -21,7 +21,7 @@ pub(super) fn load(path: &Path, limits: Limits) -> Result<Raster, RasterError> {
         tiff::TiffError::UnsupportedError(u) => RasterError::Unsupported { path: path.to_owned(), what: u.to_string() },
         other => RasterError::Decode { path: path.to_owned(), format: "TIFF", message: other.to_string() },
     };
-    let file = File::open(path).map_err(|source| RasterError::Open { path: path.to_owned(), source })?;
+    let file = File::open(path).map_err(|error| RasterError::Open { path: path.to_owned(), error })?;
     let mut tiff_limits = tiff::decoder::Limits::default();
     tiff_limits.decoding_buffer_size = usize::try_from(limits.max_bytes).unwrap_or(usize::MAX);
     tiff_limits.intermediate_buffer_size = usize::try_from(limits.max_bytes).unwrap_or(usize::MAX);

@@ -131,9 +131,10 @@ fn has_square_in(runs: impl IntoIterator<Item = (usize, usize, usize)>, width: u
     for (y, a, b) in runs {
         let mut wide = 0;
         for c in &mut column[a..b] {
-            let tall = if c.0.wrapping_add(1) == y { c.1 + 1 } else { 1 };
+            // Without branches on the counts, which random masks make unpredictable.
+            let tall = c.1 * usize::from(c.0.wrapping_add(1) == y) + 1;
             *c = (y, tall);
-            wide = if tall >= k { wide + 1 } else { 0 };
+            wide = (wide + 1) * usize::from(tall >= k);
             if wide >= k {
                 return true;
             }
@@ -620,17 +621,29 @@ impl Hierarchy {
         let thin = if structure == Structure::Auto && !pixels.is_empty() {
             let (thin, taken) = thin::Thin::plan(w, h, &runs, &pixels);
             if thin.unknowns() > 0 {
+                // Only the rows that lost unknowns get new runs (random dropout leaves a few
+                // hundred isolated pixels to the factorisation out of half a million).
+                let mut changed = vec![false; h];
+                for (&p, _) in pixels.iter().zip(&taken).filter(|(_, t)| **t) {
+                    changed[p as usize / w] = true;
+                }
                 let mut k = 0;
                 pixels.retain(|_| {
                     k += 1;
                     !taken[k - 1]
                 });
-                runs = vec![Vec::new(); h];
-                for &p in &pixels {
-                    let (x, y) = (p % w as u32, p as usize / w);
-                    match runs[y].last_mut() {
-                        Some(run) if run.1 == x => run.1 = x + 1,
-                        _ => runs[y].push((x, x + 1)),
+                for (y, row) in runs.iter_mut().enumerate().filter(|(y, _)| changed[*y]) {
+                    let (a, b) = (
+                        pixels.partition_point(|&p| (p as usize) < y * w),
+                        pixels.partition_point(|&p| (p as usize) < (y + 1) * w),
+                    );
+                    row.clear();
+                    for &p in &pixels[a..b] {
+                        let x = p - (y * w) as u32;
+                        match row.last_mut() {
+                            Some(run) if run.1 == x => run.1 = x + 1,
+                            _ => row.push((x, x + 1)),
+                        }
                     }
                 }
             }

@@ -71,11 +71,8 @@ impl Thin {
         let n = pixels.len();
         // Each row's unknowns, to find a pixel's index.
         let mut row_at = vec![0usize; height + 1];
-        for &p in pixels {
-            row_at[p as usize / width + 1] += 1;
-        }
-        for y in 0..height {
-            row_at[y + 1] += row_at[y];
+        for (y, row) in rows.iter().enumerate() {
+            row_at[y + 1] = row_at[y] + row.iter().map(|&(a, b)| (b - a) as usize).sum::<usize>();
         }
         let find = |x: i64, y: i64| -> Option<usize> {
             if x < 0 || y < 0 || x >= width as i64 || y >= height as i64 {

@@ -76,7 +76,7 @@ impl Level {
     /// the seams between them (backward: the other way round, so the pair is symmetric).
     fn sweep(&self, u: &mut [f64], b: &[f64], backward: bool) {
         let shared = Shared(u.as_mut_ptr(), u.len());
-        banded(&self.bands, &self.seams, backward, |points| {
+        banded(&self.bands, &self.seams, backward, |points, _| {
             let relax = |i: usize| {
                 // SAFETY: the parts of one phase are at least three rows apart, beyond the
                 // stencils' reach of two, so no task reads or writes a point another task

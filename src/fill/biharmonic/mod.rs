@@ -346,21 +346,21 @@ impl<T: Copy> Shared<T> {
 }
 
 /// Runs `task` on every band in parallel, then on every seam (backward: the seams first): the
-/// order of a Gauss-Seidel sweep split by [`bands`].
-fn banded(bands: &[Range<usize>], seams: &[Range<usize>], backward: bool, task: impl Fn(Range<usize>) + Sync) {
-    let phase = |parts: &[Range<usize>]| {
+/// order of a Gauss-Seidel sweep split by [`bands`]. The task is told whether its part is a seam.
+fn banded(bands: &[Range<usize>], seams: &[Range<usize>], backward: bool, task: impl Fn(Range<usize>, bool) + Sync) {
+    let phase = |parts: &[Range<usize>], seam: bool| {
         if parts.len() > 1 {
-            parts.par_iter().for_each(|r| task(r.clone()));
+            parts.par_iter().for_each(|r| task(r.clone(), seam));
         } else {
-            parts.iter().for_each(|r| task(r.clone()));
+            parts.iter().for_each(|r| task(r.clone(), seam));
         }
     };
     if backward {
-        phase(seams);
-        phase(bands);
+        phase(seams, true);
+        phase(bands, false);
     } else {
-        phase(bands);
-        phase(seams);
+        phase(bands, false);
+        phase(seams, true);
     }
 }
 

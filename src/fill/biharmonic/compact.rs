@@ -8,7 +8,7 @@ use rayon::prelude::*;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, LevelWork,
-    MIN_REDUCTION, NONE, SECOND_VISITS, SHALLOW_SWEEPS, Shared, banded, bands, dense_coarsest, dot_run, fine_row,
+    MIN_REDUCTION, NONE, Real, SECOND_VISITS, SHALLOW_SWEEPS, Shared, banded, bands, dense_coarsest, dot_run, fine_row,
     krylov_weights, square_index,
 };
 
@@ -39,10 +39,10 @@ impl Level {
         &self.rows[r * self.k..(r + 1) * self.k]
     }
 
-    /// `y` where the result lands, `A·u` for the points' rows.
-    pub(super) fn apply(&self, u: &[f64], out: &mut [f64]) {
+    /// `out = A·u` for the points' rows, summed in `f64` and rounded once to `out`'s precision.
+    pub(super) fn apply<U: Real, O: Real>(&self, u: &[U], out: &mut [O]) {
         out.par_iter_mut().enumerate().with_min_len(4096).for_each(|(i, o)| {
-            *o = self.row(i)[0] * u[i] + self.off_diagonal(i, |q| u[q]);
+            *o = O::of(self.row(i)[0] * u[i].get() + self.off_diagonal(i, |q| u[q].get()));
         });
     }
 

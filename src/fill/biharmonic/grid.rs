@@ -914,9 +914,10 @@ impl Levels {
         self.levels[0].residual(u, None, out);
     }
 
-    /// `out = B·u` on the finest level, and `u·out`.
-    pub(super) fn apply_dot(&self, u: &[f64], out: &mut [f64]) -> f64 {
-        self.levels[0].residual_sums(u, None, out, |s, o| [dot_run(&u[s..s + o.len()], o)])[0]
+    /// `out = B·u` on the finest level for a `u` in `f32`, each row summed in `f64` and rounded
+    /// once (the finest rows are small integers, exact in `f32`), and `u·out`.
+    pub(super) fn apply_dot_narrow(&self, u: &[f32], out: &mut [f32]) -> f64 {
+        self.levels[0].wide_product_k::<13, 1>(u, out, |s, o| [dot_run(&u[s..s + o.len()], o)])[0]
     }
 
     /// Whether the finest level is the only one.

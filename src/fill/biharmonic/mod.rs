@@ -496,15 +496,6 @@ impl Layout {
         self.sums(|s, e| [dot_run(&a[s..e], &b[s..e])])[0]
     }
 
-    /// `to = from` over the points, converted.
-    fn copy<A: Real, B: Real>(&self, from: &[A], to: &mut [B]) {
-        self.for_each_mut(to, |_, s, t| {
-            for (t, f) in t.iter_mut().zip(&from[s..]) {
-                *t = B::of(f.get());
-            }
-        });
-    }
-
     fn fill_zero<T: Real>(&self, v: &mut [T]) {
         self.for_each_mut(v, |_, _, t| t.fill(T::default()));
     }
@@ -769,7 +760,7 @@ impl Hierarchy {
 
     /// A fresh zeroed vector over the finest level's slots, to be written at every unknown (on
     /// huge pages when the unknowns fill most slots, see [`pages`]).
-    fn zeros(&self) -> Vec<f64> {
+    fn zeros<T: Clone + Default>(&self) -> Vec<T> {
         pages::zeros(self.len, 2 * self.pixels.len() >= self.len)
     }
 
@@ -799,14 +790,15 @@ impl Hierarchy {
         }
     }
 
-    /// `out = B·u` on the finest level, and `u·out` (in the grid storage's pass over `out`).
-    fn apply_dot(&self, u: &[f64], out: &mut [f64]) -> f64 {
+    /// `out = B·u` on the finest level for `u` in `f32`, each row summed in `f64` and rounded
+    /// once, and `u·out` (in the grid storage's pass over `out`).
+    fn apply_dot_narrow(&self, u: &[f32], out: &mut [f32]) -> f64 {
         match &self.storage {
             Storage::Compact(c) => {
                 c.levels[0].apply(u, out);
-                self.layout().dot(u, out)
+                self.layout().sums(|s, e| [dot_run(&u[s..e], &out[s..e])])[0]
             }
-            Storage::Grid(g) => g.apply_dot(u, out),
+            Storage::Grid(g) => g.apply_dot_narrow(u, out),
         }
     }
 
@@ -1047,18 +1039,25 @@ struct Pcg {
     /// The iterate, one step behind during conjugate gradients: the last step's `α·p` is added
     /// with the next direction (one pass fewer); [`Pcg::finish`] adds it at the end.
     x: Vec<f64>,
-    /// `A·p` during conjugate gradients, `A·x` while relaxing.
-    q: Vec<f64>,
+    /// `A·x` while relaxing; conjugate gradients turn it into their residual (`Cg::r`), and
+    /// [`Pcg::true_relative`] takes it back.
+    ax: Vec<f64>,
     /// The squared norm of the residual, kept up to date.
     rr: f64,
     /// Conjugate gradients' own state, from the first step that needs it.
     cg: Option<Cg>,
 }
 
-/// The vectors and scalars of conjugate gradients.
+/// The vectors and scalars of conjugate gradients. The iterate and the residual are `f64`; the
+/// direction `p` and `A·p` are `f32`, with `A·p` summed in `f64` from the stored `p` and rounded
+/// once. The iteration stays consistent (`x` moves by exactly `α·p` and `r` by `α` times the
+/// product of that `p`, to within its one rounding), and those two passes and the step's update
+/// move half the bytes: the vectors are mostly fresh memory, which the kernel must map and zero.
 struct Cg {
     r: Vec<f64>,
-    p: Vec<f64>,
+    p: Vec<f32>,
+    /// `A·p` of the last step.
+    q: Vec<f32>,
     rz: f64,
     /// The preconditioner's scratch; its finest right-hand side holds `r` between steps, and its
     /// finest correction is the preconditioned residual `z` (no vector of its own).
@@ -1077,10 +1076,10 @@ const RELAX_SLOW: f64 = 0.6;
 impl Pcg {
     /// The state at `x` for the right-hand side `b`; `relax`: begin by relaxing.
     fn new(hier: &Hierarchy, b: Vec<f64>, x: Vec<f64>, relax: bool) -> Self {
-        let mut q = hier.zeros();
-        hier.apply(&x, &mut q);
+        let mut ax = hier.zeros();
+        hier.apply(&x, &mut ax);
         let bnorm = hier.layout().dot(&b, &b).sqrt();
-        let mut state = Self { b, bnorm, x, q, rr: 0.0, cg: None };
+        let mut state = Self { b, bnorm, x, ax, rr: 0.0, cg: None };
         if relax {
             state.rr = state.residual_sq(hier);
         } else {
@@ -1089,9 +1088,9 @@ impl Pcg {
         state
     }
 
-    /// `‖b − A·x‖²` with `A·x` in `q`.
+    /// `‖b − A·x‖²` with `A·x` in `ax`.
     fn residual_sq(&self, hier: &Hierarchy) -> f64 {
-        let (b, q) = (&self.b, &self.q);
+        let (b, q) = (&self.b, &self.ax);
         hier.layout().sums(|s, e| {
             let mut t = [0f64; 4];
             let (bc, qc) = (b[s..e].chunks_exact(4), q[s..e].chunks_exact(4));
@@ -1105,21 +1104,24 @@ impl Pcg {
         })[0]
     }
 
-    /// Begins conjugate gradients, with `A·x` in `q`.
+    /// Begins conjugate gradients, with `A·x` in `ax`, which becomes the residual.
     fn start_cg(&mut self, hier: &Hierarchy) {
-        let mut r = hier.zeros();
-        hier.layout().copy(&self.b, &mut r);
+        let mut r = std::mem::take(&mut self.ax);
         let mut work = hier.work();
+        let layout = hier.layout();
+        let b = &self.b;
+        layout.for_each_mut(&mut r, |_, s, r| r.iter_mut().zip(&b[s..]).for_each(|(r, b)| *r = b - *r));
         self.rr = match &mut work {
-            Work::Compact(w) => update_residual(hier.layout(), 1.0, &self.q, &mut r, &mut w[0].b),
-            Work::Grid(w) => update_residual(hier.layout(), 1.0, &self.q, &mut r, &mut w[0].b),
+            Work::Compact(w) => update_residual(layout, 0.0, &[0f32; 0], &mut r, &mut w[0].b),
+            Work::Grid(w) => update_residual(layout, 0.0, &[0f32; 0], &mut r, &mut w[0].b),
         };
         // `p` is read before it is written; zeros written now map its pages once, where a read of
         // fresh zeroed memory maps the shared zero page, and the write after it copies the page
         // and flushes the other threads' address caches.
         let mut p = hier.zeros();
-        hier.layout().fill_zero(&mut p);
-        self.cg = Some(Cg { r, p, rz: 0.0, work, started: false, alpha: 0.0 });
+        layout.fill_zero(&mut p);
+        let q = hier.zeros();
+        self.cg = Some(Cg { r, p, q, rz: 0.0, work, started: false, alpha: 0.0 });
     }
 
     fn relative(&self) -> f64 {
@@ -1132,14 +1134,22 @@ impl Pcg {
         if let Some(cg) = &mut self.cg
             && cg.alpha != 0.0
         {
-            hier.layout().add_scaled(cg.alpha, &cg.p, &mut self.x);
+            let p = &cg.p;
+            let alpha = cg.alpha;
+            hier.layout().for_each_mut(&mut self.x, |_, s, x| {
+                x.iter_mut().zip(&p[s..]).for_each(|(x, p)| *x += alpha * f64::from(*p));
+            });
             cg.alpha = 0.0;
         }
     }
 
-    /// The relative residual of `x` (after [`Pcg::finish`]), computed afresh.
+    /// The relative residual of `x` (after [`Pcg::finish`]), computed afresh; ends conjugate
+    /// gradients.
     fn true_relative(&mut self, hier: &Hierarchy) -> f64 {
-        hier.apply(&self.x, &mut self.q);
+        if let Some(cg) = self.cg.take() {
+            self.ax = cg.r;
+        }
+        hier.apply(&self.x, &mut self.ax);
         let rn = self.residual_sq(hier).sqrt();
         if self.bnorm > 0.0 { rn / self.bnorm } else { rn }
     }
@@ -1149,7 +1159,7 @@ impl Pcg {
         if self.cg.is_none() {
             let before = self.relative();
             hier.relax_pair(&mut self.x, &self.b);
-            hier.apply(&self.x, &mut self.q);
+            hier.apply(&self.x, &mut self.ax);
             self.rr = self.residual_sq(hier);
             let after = self.relative();
             let rate = if before > 0.0 { after / before } else { 0.0 };
@@ -1159,7 +1169,7 @@ impl Pcg {
             return;
         }
         let Some(cg) = &mut self.cg else { return };
-        self.rr = cg.step(hier, &mut self.x, &mut self.q).unwrap_or(self.rr);
+        self.rr = cg.step(hier, &mut self.x).unwrap_or(self.rr);
     }
 }
 
@@ -1171,11 +1181,11 @@ impl Cg {
     /// products of `z`, the new direction (with the last step added to `x`), `A·p` with `p·A·p`,
     /// and the new residual (copied to the cycle's right-hand side). Returns the new `r·r`, or
     /// `None` if the direction has no positive curvature (the iteration then stalls and reports).
-    fn step(&mut self, hier: &Hierarchy, x: &mut [f64], q: &mut [f64]) -> Option<f64> {
+    fn step(&mut self, hier: &Hierarchy, x: &mut [f64]) -> Option<f64> {
         let layout = hier.layout();
         hier.precondition(&mut self.work);
         // `q` still holds `A·p` of the last step.
-        let r = &self.r;
+        let (r, q) = (&self.r, &self.q);
         let [rz, qz] = match &self.work {
             Work::Compact(w) => products(layout, r, q, &w[0].u),
             Work::Grid(w) => products(layout, r, q, &w[0].u),
@@ -1193,27 +1203,32 @@ impl Cg {
         }
         self.alpha = 0.0;
         self.rz = rz;
-        let pq = hier.apply_dot(&self.p, q);
+        let pq = hier.apply_dot_narrow(&self.p, &mut self.q);
         if pq <= 0.0 || !pq.is_finite() {
             return None;
         }
         let alpha = rz / pq;
         self.alpha = alpha;
         Some(match &mut self.work {
-            Work::Compact(w) => update_residual(layout, alpha, q, &mut self.r, &mut w[0].b),
-            Work::Grid(w) => update_residual(layout, alpha, q, &mut self.r, &mut w[0].b),
+            Work::Compact(w) => update_residual(layout, alpha, &self.q, &mut self.r, &mut w[0].b),
+            Work::Grid(w) => update_residual(layout, alpha, &self.q, &mut self.r, &mut w[0].b),
         })
     }
 }
 
-/// `r −= α·q`, copied into the preconditioner's right-hand side `to`; returns `r·r`.
-fn update_residual<T: Real>(layout: &Layout, alpha: f64, q: &[f64], r: &mut [f64], to: &mut [T]) -> f64 {
+/// `r −= α·q` (nothing with `α = 0`, when `q` may be empty), copied into the preconditioner's
+/// right-hand side `to`; returns `r·r`.
+fn update_residual<T: Real>(layout: &Layout, alpha: f64, q: &[f32], r: &mut [f64], to: &mut [T]) -> f64 {
     let to = Shared(to.as_mut_ptr(), to.len());
     layout.sum_mut(r, |_, s, r| {
         // SAFETY: the spans are disjoint and each is visited by one task.
         let to = unsafe { to.slice_mut(s, r.len()) };
-        for ((r, q), t) in r.iter_mut().zip(&q[s..]).zip(to.iter_mut()) {
-            *r -= alpha * q;
+        if alpha != 0.0 {
+            for (r, q) in r.iter_mut().zip(&q[s..]) {
+                *r -= alpha * f64::from(*q);
+            }
+        }
+        for (r, t) in r.iter().zip(to.iter_mut()) {
             *t = T::of(*r);
         }
         dot_run(r, r)
@@ -1221,19 +1236,20 @@ fn update_residual<T: Real>(layout: &Layout, alpha: f64, q: &[f64], r: &mut [f64
 }
 
 /// `[r·z, q·z]` for the preconditioned residual `z`.
-fn products<T: Real>(layout: &Layout, r: &[f64], q: &[f64], z: &[T]) -> [f64; 2] {
+fn products<T: Real>(layout: &Layout, r: &[f64], q: &[f32], z: &[T]) -> [f64; 2] {
     layout.sums(|s, e| [dot_run(&r[s..e], &z[s..e]), dot_run(&q[s..e], &z[s..e])])
 }
 
-/// `x += α·p`, then `p = z + β·p`.
-fn advance<T: Real>(layout: &Layout, alpha: f64, beta: f64, z: &[T], p: &mut [f64], x: &mut [f64]) {
+/// `x += α·p`, then `p = z + β·p` (rounded to `f32`).
+fn advance<T: Real>(layout: &Layout, alpha: f64, beta: f64, z: &[T], p: &mut [f32], x: &mut [f64]) {
     let x = Shared(x.as_mut_ptr(), x.len());
     layout.for_each_mut(p, |_, s, p| {
         // SAFETY: the spans are disjoint and each is visited by one task.
         let x = unsafe { x.slice_mut(s, p.len()) };
         for ((p, x), z) in p.iter_mut().zip(x.iter_mut()).zip(&z[s..]) {
-            *x += alpha * *p;
-            *p = z.get() + beta * *p;
+            let old = f64::from(*p);
+            *x += alpha * old;
+            *p = f32::of(z.get() + beta * old);
         }
     });
 }

@@ -25,6 +25,12 @@ const MAX_WORK_PER_UNKNOWN: usize = 400;
 /// couplings make a two-dimensional mesh whose factor grows faster than its size.
 const SMALL: usize = 4096;
 const MAX_BOX_SHARE: f64 = 1.0 / 8.0;
+/// Components of at most this many unknowns are factored in batches of at least [`BATCH`]. The
+/// thickness test is then taken over the batch, which a small thick component (a cross of two
+/// 9-pixel strokes) no longer fails alone: at this size any shape factors in a few hundred
+/// multiply-adds per unknown, and the work bound (the sum of the components') still applies.
+const BATCH_COMPONENT: usize = 64;
+const BATCH: usize = 4096;
 
 /// One component's factor, its unknowns in elimination order.
 #[derive(Debug)]
@@ -61,6 +67,90 @@ fn root(parent: &mut [u32], mut i: usize) -> usize {
     i
 }
 
+/// A component's unknown count and bounding box `(x0, y0, x1, y1)`, inclusive.
+type Extent = (usize, usize, usize, usize, usize);
+
+/// The coupled components of the unknowns given by their row runs (`rows`, one list per image
+/// row): the runs packed as `[y, x from, x to, first unknown]`, each run's component, and each
+/// component's extent.
+#[allow(clippy::cast_possible_truncation)] // the unknowns are counted in u32
+fn components(rows: &[Vec<(u32, u32)>], height: usize) -> (Vec<[u32; 4]>, Vec<u32>, Vec<Extent>) {
+    // Components over row runs: a run joins the previous run of its row when one known pixel
+    // or none lies between (the stencil reaches two to the left), the runs of the row above
+    // that overlap it widened by one (three pixels above reach), and those two rows up that
+    // overlap it (one pixel). The runs increase, so the pointers into the rows above move
+    // forward only.
+    // y, x from, x to, first unknown (`u32`: the image has fewer than 2³² pixels)
+    let mut packed: Vec<[u32; 4]> = Vec::with_capacity(rows.iter().map(Vec::len).sum());
+    let mut first = 0;
+    for (y, row) in rows.iter().enumerate() {
+        for &(a, b) in row {
+            packed.push([y as u32, a, b, first as u32]);
+            first += (b - a) as usize;
+        }
+    }
+    let runs = |k: usize| packed[k].map(|v| v as usize);
+    let mut row_start = vec![0usize; height + 1];
+    for r in &packed {
+        row_start[r[0] as usize + 1] += 1;
+    }
+    for y in 0..height {
+        row_start[y + 1] += row_start[y];
+    }
+    let mut parent: Vec<u32> = (0..packed.len() as u32).collect();
+    let mut join = |i: usize, j: usize| {
+        let (a, b) = (root(&mut parent, i), root(&mut parent, j));
+        if a != b {
+            parent[a.max(b)] = a.min(b) as u32;
+        }
+    };
+    for y in 0..height {
+        let (mut up, mut up2) = (if y >= 1 { row_start[y - 1] } else { 0 }, if y >= 2 { row_start[y - 2] } else { 0 });
+        for k in row_start[y]..row_start[y + 1] {
+            let [_, a, b, _] = runs(k);
+            if k > row_start[y] && a - runs(k - 1)[2] <= 1 {
+                join(k, k - 1);
+            }
+            if y >= 1 {
+                let end = row_start[y];
+                while up < end && runs(up)[2] < a {
+                    up += 1;
+                }
+                let mut j = up;
+                while j < end && runs(j)[1] <= b {
+                    join(k, j);
+                    j += 1;
+                }
+            }
+            if y >= 2 {
+                let end = row_start[y - 1];
+                while up2 < end && runs(up2)[2] <= a {
+                    up2 += 1;
+                }
+                let mut j = up2;
+                while j < end && runs(j)[1] < b {
+                    join(k, j);
+                    j += 1;
+                }
+            }
+        }
+    }
+    let mut stats: Vec<Extent> = Vec::new();
+    let mut slot = vec![NONE; packed.len()];
+    for k in 0..packed.len() {
+        let r = root(&mut parent, k);
+        if slot[r] == NONE {
+            slot[r] = stats.len() as u32;
+            stats.push((0, usize::MAX, usize::MAX, 0, 0));
+        }
+        let [y, a, b, _] = runs(k);
+        let s = &mut stats[slot[r] as usize];
+        *s = (s.0 + b - a, s.1.min(a), s.2.min(y), s.3.max(b - 1), s.4.max(y));
+        slot[k] = slot[r];
+    }
+    (packed, slot, stats)
+}
+
 impl Thin {
     /// Splits the unknowns `pixels` (row-major; `rows` their runs in each image row) of a
     /// `width × height` image into coupled components and factors the thin ones. Returns them
@@ -82,83 +172,9 @@ impl Thin {
             let p = (y as usize * width + x as usize) as u32;
             pixels[a..b].binary_search(&p).ok().map(|k| a + k)
         };
-        // Components over row runs: a run joins the previous run of its row when one known pixel
-        // or none lies between (the stencil reaches two to the left), the runs of the row above
-        // that overlap it widened by one (three pixels above reach), and those two rows up that
-        // overlap it (one pixel). The runs increase, so the pointers into the rows above move
-        // forward only.
-        // y, x from, x to, first unknown (`u32`: the image has fewer than 2³² pixels)
-        let mut packed: Vec<[u32; 4]> = Vec::with_capacity(rows.iter().map(Vec::len).sum());
-        let mut first = 0;
-        for (y, row) in rows.iter().enumerate() {
-            for &(a, b) in row {
-                packed.push([y as u32, a, b, first as u32]);
-                first += (b - a) as usize;
-            }
-        }
+        let (packed, slot, stats) = components(rows, height);
         let runs = |k: usize| packed[k].map(|v| v as usize);
-        debug_assert_eq!(first, n, "the runs are the pixels'");
-        let mut row_start = vec![0usize; height + 1];
-        for r in &packed {
-            row_start[r[0] as usize + 1] += 1;
-        }
-        for y in 0..height {
-            row_start[y + 1] += row_start[y];
-        }
-        let mut parent: Vec<u32> = (0..packed.len() as u32).collect();
-        let mut join = |i: usize, j: usize| {
-            let (a, b) = (root(&mut parent, i), root(&mut parent, j));
-            if a != b {
-                parent[a.max(b)] = a.min(b) as u32;
-            }
-        };
-        for y in 0..height {
-            let (mut up, mut up2) =
-                (if y >= 1 { row_start[y - 1] } else { 0 }, if y >= 2 { row_start[y - 2] } else { 0 });
-            for k in row_start[y]..row_start[y + 1] {
-                let [_, a, b, _] = runs(k);
-                if k > row_start[y] && a - runs(k - 1)[2] <= 1 {
-                    join(k, k - 1);
-                }
-                if y >= 1 {
-                    let end = row_start[y];
-                    while up < end && runs(up)[2] < a {
-                        up += 1;
-                    }
-                    let mut j = up;
-                    while j < end && runs(j)[1] <= b {
-                        join(k, j);
-                        j += 1;
-                    }
-                }
-                if y >= 2 {
-                    let end = row_start[y - 1];
-                    while up2 < end && runs(up2)[2] <= a {
-                        up2 += 1;
-                    }
-                    let mut j = up2;
-                    while j < end && runs(j)[1] < b {
-                        join(k, j);
-                        j += 1;
-                    }
-                }
-            }
-        }
-        // Each component's size and box; components too large or too dense are left to the
-        // multigrid before their unknowns are listed.
-        let mut stats: Vec<(usize, usize, usize, usize, usize)> = Vec::new(); // count, box
-        let mut slot = vec![NONE; packed.len()];
-        for k in 0..packed.len() {
-            let r = root(&mut parent, k);
-            if slot[r] == NONE {
-                slot[r] = stats.len() as u32;
-                stats.push((0, usize::MAX, usize::MAX, 0, 0));
-            }
-            let [y, a, b, _] = runs(k);
-            let s = &mut stats[slot[r] as usize];
-            *s = (s.0 + b - a, s.1.min(a), s.2.min(y), s.3.max(b - 1), s.4.max(y));
-            slot[k] = slot[r];
-        }
+        debug_assert_eq!(packed.last().map_or(0, |r| (r[3] + r[2] - r[1]) as usize), n, "the runs are the pixels'");
         let wanted: Vec<bool> = stats
             .iter()
             .map(|&(m, x0, y0, x1, y1)| {
@@ -168,15 +184,37 @@ impl Thin {
         if !wanted.contains(&true) {
             return (Self::default(), vec![false; n]);
         }
-        // The wanted components' unknowns, in row order; each unknown's index in its component.
-        let mut members: Vec<Vec<u32>> = vec![Vec::new(); stats.len()];
+        // Each wanted component is a part factored on its own, except that the small ones are
+        // factored together, [`BATCH`] unknowns or more a part: a block-diagonal system orders and
+        // factors as its blocks would alone, and one part instead of thousands of one-pixel ones
+        // saves their vectors and tasks.
+        let mut part_of = vec![NONE; stats.len()];
+        let mut sizes: Vec<usize> = Vec::new();
+        let mut batch = None;
+        for (c, &(m, ..)) in stats.iter().enumerate().filter(|&(c, _)| wanted[c]) {
+            let p = match batch {
+                Some(p) if m <= BATCH_COMPONENT && sizes[p] < BATCH => p,
+                _ => {
+                    if m <= BATCH_COMPONENT {
+                        batch = Some(sizes.len());
+                    }
+                    sizes.push(0);
+                    sizes.len() - 1
+                }
+            };
+            sizes[p] += m;
+            part_of[c] = p as u32;
+        }
+        // The parts' unknowns, in row order; each unknown's index in its part.
+        let mut members: Vec<Vec<u32>> = sizes.iter().map(|&m| Vec::with_capacity(m)).collect();
         let mut local = vec![0u32; n];
         for (k, [_, a, b, first]) in (0..packed.len()).map(|k| (k, runs(k))) {
             let c = slot[k] as usize;
             if wanted[c] {
+                let part = &mut members[part_of[c] as usize];
                 for (i, l) in local.iter_mut().enumerate().skip(first).take(b - a) {
-                    *l = members[c].len() as u32;
-                    members[c].push(i as u32);
+                    *l = part.len() as u32;
+                    part.push(i as u32);
                 }
             }
         }
@@ -387,10 +425,31 @@ mod tests {
         // (5,5) and (7,5) are two apart, within the 13-point stencil's reach; (10,5) is three
         // from (7,5), and (8,7) one across and two down from it: three steps, out of reach.
         let pixels = pixels_of(16, 12, |x, y| matches!((x, y), (5, 5) | (7, 5) | (10, 5) | (8, 7)));
+        let mut rows = vec![Vec::new(); 12];
+        for (x, y) in [(5, 5), (7, 5), (10, 5), (8, 7)] {
+            rows[y].push((x, x + 1));
+        }
+        let (_, of_run, extents) = components(&rows, 12);
+        assert_eq!(of_run, [0, 0, 1, 2], "the runs' components");
+        let sizes: Vec<usize> = extents.iter().map(|e| e.0).collect();
+        assert_eq!(sizes, [2, 1, 1]);
         let (thin, taken) = plan(16, 12, &pixels);
         assert!(taken.iter().all(|&t| t), "isolated pixels are thin");
-        let sizes: Vec<usize> = thin.parts.iter().map(|p| p.pixel.len()).collect();
-        assert_eq!(sizes, [2, 1, 1]);
+        assert_eq!(thin.parts.len(), 1, "small components are factored in one batch");
+    }
+
+    #[test]
+    fn small_components_are_batched_and_large_ones_kept_apart() {
+        // Isolated pixels three apart both ways (out of each other's reach): 4800 components of
+        // one unknown; and a stroke of 150 unknowns, factored on its own.
+        let (w, h) = (240, 190);
+        let pixels =
+            pixels_of(w, h, |x, y| (y < 180 && x % 3 == 0 && y % 3 == 0) || (y == 186 && (40..190).contains(&x)));
+        let (thin, taken) = plan(w, h, &pixels);
+        assert!(taken.iter().all(|&t| t));
+        let mut sizes: Vec<usize> = thin.parts.iter().map(|p| p.pixel.len()).collect();
+        sizes.sort_unstable();
+        assert_eq!(sizes, [150, 704, 4096], "one batch of BATCH, the rest in a second, the stroke apart");
     }
 
     #[test]

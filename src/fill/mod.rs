@@ -657,7 +657,7 @@ fn runs_of(
 
 /// A mask kept one bit per pixel, row-major.
 #[derive(Debug)]
-struct PackedMask {
+pub(crate) struct PackedMask {
     width: usize,
     height: usize,
     bits: Vec<u64>,
@@ -685,6 +685,12 @@ impl PackedMask {
             }
         });
         Self { width, height, bits }
+    }
+
+    /// Whether pixel `p` (`y·width + x`) is masked.
+    #[inline]
+    pub(crate) fn get(&self, p: usize) -> bool {
+        self.bits[p / 64] >> (p % 64) & 1 == 1
     }
 
     fn unpack(&self) -> Mask {
@@ -901,8 +907,7 @@ impl Solver {
                     ..FillReport::default()
                 };
                 if let Some(b) = &self.biharmonic {
-                    report.channels =
-                        in_pool(params.threads, || b.solve(planes, &self.mask.unpack(), params, start, progress))?;
+                    report.channels = in_pool(params.threads, || b.solve(planes, &self.mask, params, start, progress))?;
                 } else if !self.parts.is_empty() {
                     report.channels =
                         in_pool(params.threads, || solve_parts(&self.parts, planes, params, start, progress))?;

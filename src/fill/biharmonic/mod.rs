@@ -30,7 +30,7 @@ use std::time::Instant;
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
-use super::{ChannelReport, FillError, FillParams, Progress, Start, Structure, pages};
+use super::{ChannelReport, FillError, FillParams, PackedMask, Progress, Start, Structure, pages};
 use crate::mask::Mask;
 
 mod compact;
@@ -181,8 +181,8 @@ fn row_square(x: i64, y: i64, w: i64, h: i64, interior: &[f64; 25]) -> [f64; 25]
 /// The right-hand side of the unknown at `(x, y)` whose row is `square`: `−Σ B_pr·f_r` over the
 /// known pixels `r` the row reaches (`mask`: the image's unknowns, `w` pixels a row).
 #[allow(clippy::cast_possible_wrap, clippy::cast_sign_loss, clippy::cast_possible_truncation)]
-fn rhs_at(x: i64, y: i64, square: &[f64; 25], w: i64, plane: &[f32], mask: &[bool]) -> Result<f64, FillError> {
-    let h = (mask.len() as i64) / w;
+fn rhs_at(x: i64, y: i64, square: &[f64; 25], w: i64, plane: &[f32], mask: &PackedMask) -> Result<f64, FillError> {
+    let h = (plane.len() as i64) / w;
     let mut s = 0f64;
     for &(dx, dy) in &FINE[1..] {
         let (ax, ay) = (x + dx, y + dy);
@@ -191,7 +191,7 @@ fn rhs_at(x: i64, y: i64, square: &[f64; 25], w: i64, plane: &[f32], mask: &[boo
             continue;
         }
         let q = (ay * w + ax) as usize;
-        if mask[q] {
+        if mask.get(q) {
             continue;
         }
         let v = plane[q];
@@ -821,7 +821,7 @@ impl Hierarchy {
 
     /// The right-hand side of one plane: `−Σ B_pr·f_r` over the known pixels `r` of each row.
     #[allow(clippy::cast_possible_wrap, clippy::cast_sign_loss)]
-    fn rhs(&self, plane: &[f32], mask: &[bool]) -> Result<Vec<f64>, FillError> {
+    fn rhs(&self, plane: &[f32], mask: &PackedMask) -> Result<Vec<f64>, FillError> {
         let (w, h) = (self.width as i64, self.height as i64);
         let interior = fine_row(2, 2, 5, 5);
         // Away from the image edge every row is the 13-point stencil: its terms at fixed offsets.
@@ -836,7 +836,7 @@ impl Hierarchy {
             }
             // Inside a wide hole the row reaches no known pixel: twelve mask bytes decide, and the
             // image is not read.
-            if terms.iter().all(|&(_, o)| mask[(p as usize).wrapping_add_signed(o)]) {
+            if terms.iter().all(|&(_, o)| mask.get((p as usize).wrapping_add_signed(o))) {
                 return Ok(0.0);
             }
             // Without branches on the mask, which random dropout makes unpredictable; a
@@ -844,7 +844,7 @@ impl Hierarchy {
             let (mut s, mut finite) = (0f64, true);
             for &(a, o) in &terms {
                 let q = (p as usize).wrapping_add_signed(o);
-                let (known, v) = (!mask[q], plane[q]);
+                let (known, v) = (!mask.get(q), plane[q]);
                 finite &= !known || v.is_finite();
                 s -= if known { a * f64::from(v) } else { 0.0 };
             }
@@ -911,15 +911,14 @@ impl Hierarchy {
     pub(crate) fn solve(
         &self,
         planes: &mut [&mut [f32]],
-        mask: &Mask,
+        mask: &PackedMask,
         params: &FillParams,
         start: Start,
         progress: &mut (dyn FnMut(&Progress) -> bool + Send),
     ) -> Result<Vec<ChannelReport>, FillError> {
         // The factored components first: cheap, and a bad rim value stops everything before any
         // plane is written.
-        let thin: Vec<thin::Solved> =
-            planes.iter().map(|p| self.thin.solve(p, mask.bits())).collect::<Result<_, _>>()?;
+        let thin: Vec<thin::Solved> = planes.iter().map(|p| self.thin.solve(p, mask)).collect::<Result<_, _>>()?;
         let combined = |rn_sq: f64, bn_sq: f64, t: &thin::Solved| {
             let (r, b) = (rn_sq + t.r_sq, bn_sq + t.b_sq);
             if b > 0.0 { (r / b).sqrt() } else { r.sqrt() }
@@ -936,7 +935,7 @@ impl Hierarchy {
                 })
                 .collect());
         }
-        let rhs: Vec<Vec<f64>> = planes.iter().map(|p| self.rhs(p, mask.bits())).collect::<Result<_, _>>()?;
+        let rhs: Vec<Vec<f64>> = planes.iter().map(|p| self.rhs(p, mask)).collect::<Result<_, _>>()?;
         // From here on an error puts back what the harmonic start wrote.
         let saved = if start == Start::Warm { None } else { self.harmonic_start(planes, params) };
         let from_planes = saved.is_some() || start == Start::Warm;

@@ -12,11 +12,11 @@
 use rayon::prelude::*;
 
 use super::{FINE, fine_row, rhs_at, row_square, square_index};
-use crate::fill::FillError;
 use crate::fill::sparse::{
     BANDED_MIN, BANDS, CHUNK, INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, factor_in_bands,
     thick_share,
 };
+use crate::fill::{FillError, PackedMask};
 /// Largest multiply-add count of a factorisation, per unknown, before the component is left to
 /// multigrid (one conjugate-gradient solve with its multigrid preconditioner costs over 1000).
 const MAX_WORK_PER_UNKNOWN: usize = 400;
@@ -321,7 +321,7 @@ impl Thin {
     /// # Errors
     /// [`FillError::NonFiniteRim`] when a known value the fill reads is not finite.
     #[allow(clippy::cast_possible_truncation, clippy::cast_possible_wrap, clippy::cast_sign_loss)]
-    pub(super) fn solve(&self, plane: &[f32], mask: &[bool]) -> Result<Solved, FillError> {
+    pub(super) fn solve(&self, plane: &[f32], mask: &PackedMask) -> Result<Solved, FillError> {
         let (w, h) = (self.width as i64, self.height as i64);
         let interior = fine_row(2, 2, 5, 5);
         let parts: Vec<Result<Solved, FillError>> = self

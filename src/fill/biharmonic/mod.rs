@@ -874,37 +874,63 @@ impl Hierarchy {
         Ok(b)
     }
 
-    /// Fills the multigrid's unknowns of `planes` harmonically to [`START_TOLERANCE`], in place,
-    /// and returns their values from before (per plane, in the unknowns' order) for
-    /// [`Hierarchy::restore`]; `None`, the planes unchanged, if there is nothing to fill or that
-    /// fill fails (the iteration then starts from zero). The right-hand side reads known pixels
-    /// only, so it may be computed before or after.
-    fn harmonic_start(&self, planes: &mut [&mut [f32]], params: &FillParams) -> Option<Vec<Vec<f32>>> {
-        if self.start.is_empty() {
-            return None;
+    /// The starting iterates, one per plane over the finest level's slots: the harmonic fill of
+    /// the multigrid's unknowns to [`START_TOLERANCE`] (`harmonic`, when there is one and it
+    /// succeeds), the planes' values (a warm start), or zeros. The planes come back unchanged. The
+    /// harmonic fill is made in the planes; meanwhile each iterate keeps the values it overwrote
+    /// (their `f32` bits, so a not-a-number comes back bit for bit), and one pass then swaps the
+    /// two: no copy of its own, which would be fresh memory for the kernel to map and zero.
+    fn starts(&self, planes: &mut [&mut [f32]], params: &FillParams, harmonic: bool) -> Vec<Vec<f64>> {
+        let layout = self.layout();
+        let mut xs: Vec<Vec<f64>> = planes.iter().map(|_| self.zeros()).collect();
+        // `x = f(plane value)` at every unknown.
+        let read = |x: &mut [f64], plane: &[f32], f: &(dyn Fn(f32) -> f64 + Sync)| {
+            layout.for_each_mut(x, |k, _, out| {
+                for (o, &q) in out.iter_mut().zip(&self.pixels[self.first(k)..]) {
+                    *o = f(plane[q as usize]);
+                }
+            });
+        };
+        let finite = |v: f32| if v.is_finite() { f64::from(v) } else { 0.0 };
+        if !harmonic || self.start.is_empty() {
+            for (x, plane) in xs.iter_mut().zip(planes.iter()) {
+                if harmonic {
+                    // Written before it is read (see `Pcg::new`).
+                    layout.fill_zero(x);
+                } else {
+                    read(x, plane, &finite);
+                }
+            }
+            return xs;
         }
-        let saved: Vec<Vec<f32>> =
-            planes.iter().map(|p| self.pixels.iter().map(|&q| p[q as usize]).collect()).collect();
+        let bits = |v: f32| f64::from_bits(u64::from(v.to_bits()));
+        for (x, plane) in xs.iter_mut().zip(planes.iter()) {
+            read(x, plane, &bits);
+        }
         let params = FillParams {
             method: super::FillMethod::Harmonic,
             tolerance: START_TOLERANCE,
             grain: None,
             ..params.clone()
         };
-        if super::solve_parts(&self.start, planes, &params, Start::FullMultigrid, &mut |_| true).is_err() {
-            self.restore(planes, &saved);
-            return None;
+        let filled = super::solve_parts(&self.start, planes, &params, Start::FullMultigrid, &mut |_| true).is_ok();
+        for (x, plane) in xs.iter_mut().zip(planes.iter_mut()) {
+            let plane = Shared(plane.as_mut_ptr(), plane.len());
+            layout.for_each_mut(x, |k, _, out| {
+                for (o, &q) in out.iter_mut().zip(&self.pixels[self.first(k)..]) {
+                    // SAFETY: every unknown is one pixel of the plane, visited by its span's task.
+                    unsafe {
+                        let start = plane.get(q as usize);
+                        #[allow(clippy::cast_possible_truncation)]
+                        plane.set(q as usize, f32::from_bits(o.to_bits() as u32));
+                        // Without the fill (it failed and left the planes as they were, or
+                        // partly written) the iteration starts from zero.
+                        *o = if filled { finite(start) } else { 0.0 };
+                    }
+                }
+            });
         }
-        Some(saved)
-    }
-
-    /// Puts back the multigrid's unknowns saved by [`Hierarchy::harmonic_start`].
-    fn restore(&self, planes: &mut [&mut [f32]], saved: &[Vec<f32>]) {
-        for (plane, values) in planes.iter_mut().zip(saved) {
-            for (&q, &v) in self.pixels.iter().zip(values) {
-                plane[q as usize] = v;
-            }
-        }
+        xs
     }
 
     /// Fills the unknowns of every plane; on error the planes are unchanged.
@@ -936,28 +962,7 @@ impl Hierarchy {
                 .collect());
         }
         let rhs: Vec<Vec<f64>> = planes.iter().map(|p| self.rhs(p, mask)).collect::<Result<_, _>>()?;
-        // From here on an error puts back what the harmonic start wrote.
-        let saved = if start == Start::Warm { None } else { self.harmonic_start(planes, params) };
-        let from_planes = saved.is_some() || start == Start::Warm;
-        let starts: Vec<Vec<f64>> = (0..planes.len())
-            .map(|c| {
-                let mut x = self.zeros();
-                if from_planes {
-                    let p = &*planes[c];
-                    let layout = self.layout();
-                    layout.for_each_mut(&mut x, |k, _, out| {
-                        for (o, &q) in out.iter_mut().zip(&self.pixels[self.first(k)..]) {
-                            let v = f64::from(p[q as usize]);
-                            *o = if v.is_finite() { v } else { 0.0 };
-                        }
-                    });
-                } else {
-                    // Written before it is read (see `Pcg::new`).
-                    self.layout().fill_zero(&mut x);
-                }
-                x
-            })
-            .collect();
+        let starts = self.starts(planes, params, start != Start::Warm);
         let relax = self.is_shallow();
         let mut states: Vec<Pcg> = rhs.into_iter().zip(starts).map(|(b, x)| Pcg::new(self, b, x, relax)).collect();
         let mut reports = vec![ChannelReport::default(); planes.len()];
@@ -979,9 +984,6 @@ impl Hierarchy {
                 break;
             }
             if !worst.is_finite() || iteration >= params.max_cycles {
-                if let Some(saved) = &saved {
-                    self.restore(planes, saved);
-                }
                 return Err(FillError::NoConvergence { residual: worst, cycles: iteration });
             }
             let report = Progress {
@@ -991,9 +993,6 @@ impl Hierarchy {
                 tolerance: params.tolerance,
             };
             if !progress(&report) {
-                if let Some(saved) = &saved {
-                    self.restore(planes, saved);
-                }
                 return Err(FillError::Cancelled);
             }
             states.par_iter_mut().zip(&done).filter(|(_, d)| !**d).for_each(|(s, _)| s.step(self, params.tolerance));

@@ -326,30 +326,35 @@ impl Level {
         let coefs = &self.c32;
         self.layout.sums_mut(out, |span, s, out| {
             let p0 = self.runs[span].2;
-            let shared = self.interior[span] && out.len() > SHORT_RUN;
-            let mut acc = [0f64; CHUNK];
-            for (q, seg) in out.chunks_mut(CHUNK).enumerate() {
-                let (k, n) = (q * CHUNK, seg.len());
-                let acc = &mut acc[..n];
-                if shared {
+            if self.interior[span] && out.len() > SHORT_RUN {
+                let mut acc = [0f64; CHUNK];
+                for (q, seg) in out.chunks_mut(CHUNK).enumerate() {
+                    let (k, n) = (q * CHUNK, seg.len());
+                    let acc = &mut acc[..n];
                     acc.fill(0.0);
                     subtract_terms(acc, |o| &u[(s + k).wrapping_add_signed(o)..][..n], &coefs.shared_terms);
-                    acc.iter_mut().for_each(|v| *v = -*v);
-                } else {
-                    for (j, v) in acc.iter_mut().enumerate() {
-                        let (c, r) = (s + k + j, self.row[p0 + k + j] as usize);
-                        let a = &coefs.table[r * K..(r + 1) * K];
-                        *v = a
-                            .iter()
-                            .zip(off)
-                            .map(|(&a, &o)| f64::from(a) * f64::from(u[c.wrapping_add_signed(o)]))
-                            .sum();
+                    for (o, &v) in seg.iter_mut().zip(acc.iter()) {
+                        #[allow(clippy::cast_possible_truncation)]
+                        {
+                            *o = -v as f32;
+                        }
                     }
                 }
-                for (o, &v) in seg.iter_mut().zip(acc.iter()) {
+            } else {
+                // Short runs and rows of their own (dropout is mostly these): point by point, in
+                // four partial sums.
+                // The finest level keeps its rows in `f64`; coarse ones have them in `f32` only.
+                let wide = &self.c64.table;
+                for (j, o) in out.iter_mut().enumerate() {
+                    let (c, r) = (s + j, self.row[p0 + j] as usize);
+                    let a: [f64; K] = if wide.is_empty() {
+                        std::array::from_fn(|t| f64::from(coefs.table[r * K + t]))
+                    } else {
+                        wide[r * K..(r + 1) * K].try_into().expect("row")
+                    };
                     #[allow(clippy::cast_possible_truncation)]
                     {
-                        *o = v as f32;
+                        *o = (a[0] * f64::from(u[c]) + off_diagonal(&a, |i| f64::from(u[i]), c, off)) as f32;
                     }
                 }
             }
@@ -910,8 +915,9 @@ impl Levels {
         self.levels[0].runs[k].2
     }
 
-    pub(super) fn apply(&self, u: &[f64], out: &mut [f64]) {
-        self.levels[0].residual(u, None, out);
+    /// `out = b − B·u` on the finest level, and `out·out`.
+    pub(super) fn residual(&self, u: &[f64], b: &[f64], out: &mut [f64]) -> f64 {
+        self.levels[0].residual_sums(u, Some(b), out, |_, o| [dot_run(o, o)])[0]
     }
 
     /// `out = B·u` on the finest level for a `u` in `f32`, each row summed in `f64` and rounded

@@ -782,11 +782,17 @@ impl Hierarchy {
         }
     }
 
-    /// `out = B·u` on the finest level.
-    fn apply(&self, u: &[f64], out: &mut [f64]) {
+    /// `out = b − B·u` on the finest level, and `out·out` (in the same pass).
+    fn residual(&self, u: &[f64], b: &[f64], out: &mut [f64]) -> f64 {
         match &self.storage {
-            Storage::Compact(c) => c.levels[0].apply(u, out),
-            Storage::Grid(g) => g.apply(u, out),
+            Storage::Compact(c) => {
+                c.levels[0].apply(u, out);
+                self.layout().sum_mut(out, |_, s, out| {
+                    out.iter_mut().zip(&b[s..]).for_each(|(o, b)| *o = b - *o);
+                    dot_run(out, out)
+                })
+            }
+            Storage::Grid(g) => g.residual(u, b, out),
         }
     }
 
@@ -1037,9 +1043,9 @@ struct Pcg {
     /// The iterate, one step behind during conjugate gradients: the last step's `α·p` is added
     /// with the next direction (one pass fewer); [`Pcg::finish`] adds it at the end.
     x: Vec<f64>,
-    /// `A·x` while relaxing; conjugate gradients turn it into their residual (`Cg::r`), and
+    /// The residual `b − A·x` while relaxing; conjugate gradients take it as theirs (`Cg::r`), and
     /// [`Pcg::true_relative`] takes it back.
-    ax: Vec<f64>,
+    res: Vec<f64>,
     /// The squared norm of the residual, kept up to date.
     rr: f64,
     /// Conjugate gradients' own state, from the first step that needs it.
@@ -1074,41 +1080,21 @@ const RELAX_SLOW: f64 = 0.6;
 impl Pcg {
     /// The state at `x` for the right-hand side `b`; `relax`: begin by relaxing.
     fn new(hier: &Hierarchy, b: Vec<f64>, x: Vec<f64>, relax: bool) -> Self {
-        let mut ax = hier.zeros();
-        hier.apply(&x, &mut ax);
+        let mut res = hier.zeros();
+        let rr = hier.residual(&x, &b, &mut res);
         let bnorm = hier.layout().dot(&b, &b).sqrt();
-        let mut state = Self { b, bnorm, x, ax, rr: 0.0, cg: None };
-        if relax {
-            state.rr = state.residual_sq(hier);
-        } else {
+        let mut state = Self { b, bnorm, x, res, rr, cg: None };
+        if !relax {
             state.start_cg(hier);
         }
         state
     }
 
-    /// `‖b − A·x‖²` with `A·x` in `ax`.
-    fn residual_sq(&self, hier: &Hierarchy) -> f64 {
-        let (b, q) = (&self.b, &self.ax);
-        hier.layout().sums(|s, e| {
-            let mut t = [0f64; 4];
-            let (bc, qc) = (b[s..e].chunks_exact(4), q[s..e].chunks_exact(4));
-            let tail: f64 = bc.remainder().iter().zip(qc.remainder()).map(|(b, q)| (b - q) * (b - q)).sum();
-            for (b, q) in bc.zip(qc) {
-                for k in 0..4 {
-                    t[k] += (b[k] - q[k]) * (b[k] - q[k]);
-                }
-            }
-            [(t[0] + t[1]) + (t[2] + t[3]) + tail]
-        })[0]
-    }
-
-    /// Begins conjugate gradients, with `A·x` in `ax`, which becomes the residual.
+    /// Begins conjugate gradients from the residual in `res`.
     fn start_cg(&mut self, hier: &Hierarchy) {
-        let mut r = std::mem::take(&mut self.ax);
+        let mut r = std::mem::take(&mut self.res);
         let mut work = hier.work();
         let layout = hier.layout();
-        let b = &self.b;
-        layout.for_each_mut(&mut r, |_, s, r| r.iter_mut().zip(&b[s..]).for_each(|(r, b)| *r = b - *r));
         self.rr = match &mut work {
             Work::Compact(w) => update_residual(layout, 0.0, &[0f32; 0], &mut r, &mut w[0].b),
             Work::Grid(w) => update_residual(layout, 0.0, &[0f32; 0], &mut r, &mut w[0].b),
@@ -1145,10 +1131,9 @@ impl Pcg {
     /// gradients.
     fn true_relative(&mut self, hier: &Hierarchy) -> f64 {
         if let Some(cg) = self.cg.take() {
-            self.ax = cg.r;
+            self.res = cg.r;
         }
-        hier.apply(&self.x, &mut self.ax);
-        let rn = self.residual_sq(hier).sqrt();
+        let rn = hier.residual(&self.x, &self.b, &mut self.res).sqrt();
         if self.bnorm > 0.0 { rn / self.bnorm } else { rn }
     }
 
@@ -1157,8 +1142,7 @@ impl Pcg {
         if self.cg.is_none() {
             let before = self.relative();
             hier.relax_pair(&mut self.x, &self.b);
-            hier.apply(&self.x, &mut self.ax);
-            self.rr = self.residual_sq(hier);
+            self.rr = hier.residual(&self.x, &self.b, &mut self.res);
             let after = self.relative();
             let rate = if before > 0.0 { after / before } else { 0.0 };
             if after > tolerance && rate > RELAX_SLOW && after * rate > tolerance {

@@ -564,17 +564,19 @@ fn finest(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Level {
         let square = fine_row(2, 2, 5, 5);
         FINE.iter().map(|&o| square[square_index(o)]).collect()
     };
-    let mut row = Vec::with_capacity(level.n);
+    // Written whole: on huge pages (see `pages`).
+    let mut row: Vec<u32> = pages::zeros(level.n, true);
+    let mut next = row.iter_mut();
     for (y, a, b) in runs_xy() {
         let yk = 9 * clamp(y) + 27 * clamp(h - 1 - y);
-        for x in a..b {
+        for (x, r) in (a..b).zip(&mut next) {
             let key = clamp(x) + 3 * clamp(w - 1 - x) + yk;
             if class_of[key] == u32::MAX {
                 class_of[key] = (table.len() / FINE.len()) as u32;
                 let square = fine_row(x, y, w, h);
                 table.extend(FINE.iter().map(|&o| square[square_index(o)]));
             }
-            row.push(class_of[key]);
+            *r = class_of[key];
         }
     }
     level.set_rows(row, table);

@@ -324,11 +324,24 @@ impl SparseCholesky {
         diag: &[f64],
         limit: usize,
     ) -> Option<Self> {
+        let entries = |v: usize| {
+            let (a, b) = (at[v] as usize, at[v + 1] as usize);
+            adj[a..b].iter().copied().zip(off[a..b].iter().copied())
+        };
+        Self::with_entries::<K, _>(entries, diag, limit)
+    }
+
+    /// As [`SparseCholesky::new`] for the matrix whose row `v` has `diag[v]` on the diagonal and
+    /// the off-diagonal `entries(v)` as (column, value).
+    pub(crate) fn with_entries<const K: usize, I: Iterator<Item = (u32, f64)>>(
+        entries: impl Fn(usize) -> I,
+        diag: &[f64],
+        limit: usize,
+    ) -> Option<Self> {
         let m = diag.len();
         let mut graph = Graph::<K>::new(m);
-        for v in 0..m {
-            let (a, b) = (at[v] as usize, at[v + 1] as usize);
-            graph.add_row(diag[v], adj[a..b].iter().copied().zip(off[a..b].iter().copied()));
+        for (v, &d) in diag.iter().enumerate() {
+            graph.add_row(d, entries(v));
             graph.link(v);
         }
         let columns = graph.eliminate(None, limit)?;

@@ -257,35 +257,34 @@ impl Thin {
                 if thick_share(&four) > MAX_THICK_SHARE {
                     return None;
                 }
-                // The rows of B: the 13-point stencil, its own near the image edge.
-                let mut at = Vec::with_capacity(m + 1);
-                at.push(0u32);
-                let (mut adj, mut off, mut diag) =
-                    (Vec::with_capacity(12 * m), Vec::with_capacity(12 * m), Vec::with_capacity(m));
-                for (k, &i) in idx.iter().enumerate() {
-                    let (x, y) = xy(i);
-                    let square = row_square(x, y, w, h, &interior);
-                    diag.push(square[square_index((0, 0))]);
-                    for (t, &j) in nbr[k].iter().enumerate() {
-                        let a = square[square_index(FINE[t + 1])];
-                        if j != NONE && a != 0.0 {
-                            adj.push(j);
-                            off.push(a);
-                        }
-                    }
-                    at.push(u32::try_from(adj.len()).expect("couplings fit in u32"));
-                }
+                // The rows of B: the 13-point stencil, its own near the image edge. They are read
+                // as the factorisation takes them (side by side in bands), not listed first.
+                let edge = |(x, y): (i64, i64)| x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
+                let diag: Vec<f64> = idx
+                    .par_iter()
+                    .with_min_len(CHUNK)
+                    .map(|&i| {
+                        let (x, y) = xy(i);
+                        let centre = square_index((0, 0));
+                        if edge((x, y)) { fine_row(x, y, w, h)[centre] } else { interior[centre] }
+                    })
+                    .collect();
+                let entries = |k: usize| {
+                    let (x, y) = xy(idx[k]);
+                    let own = edge((x, y)).then(|| fine_row(x, y, w, h));
+                    let square = own.unwrap_or(interior);
+                    nbr[k].iter().zip(&FINE[1..]).filter_map(move |(&j, &o)| {
+                        let a = square[square_index(o)];
+                        (j != NONE && a != 0.0).then_some((j, a))
+                    })
+                };
                 let limit = MAX_WORK_PER_UNKNOWN * m;
-                let whole = || SparseCholesky::new::<INLINE_WIDE>(&at, &adj, &off, &diag, limit);
+                let whole = || SparseCholesky::with_entries::<INLINE_WIDE, _>(&entries, &diag, limit);
                 let chol = if m >= BANDED_MIN {
                     // Couplings reach two rows: the separators are two rows thick. Tried whole
                     // when the bands fail (see `sparse::factor`).
                     let row = |k: usize| pixels[idx[k] as usize] as usize / width;
-                    let entries = |k: usize| {
-                        let (a, b) = (at[k] as usize, at[k + 1] as usize);
-                        adj[a..b].iter().copied().zip(off[a..b].iter().copied())
-                    };
-                    factor_in_bands::<INLINE_WIDE, _>(row, entries, &diag, 2, limit, BANDS).or_else(whole)?
+                    factor_in_bands::<INLINE_WIDE, _>(row, &entries, &diag, 2, limit, BANDS).or_else(whole)?
                 } else {
                     whole()?
                 };

@@ -842,7 +842,7 @@ impl Hierarchy {
             if x < 2 || y < 2 || x >= w - 2 || y >= h - 2 {
                 return rhs_at(x, y, &row_square(x, y, w, h, &interior), w, plane, mask);
             }
-            // Inside a wide hole the row reaches no known pixel: twelve mask bytes decide, and the
+            // Inside a wide hole the row reaches no known pixel: twelve mask bits decide, and the
             // image is not read.
             if terms.iter().all(|&(_, o)| mask.get((p as usize).wrapping_add_signed(o))) {
                 return Ok(0.0);

@@ -27,9 +27,10 @@ const SMALL: usize = 4096;
 const MAX_BOX_SHARE: f64 = 1.0 / 8.0;
 /// Components of at most this many unknowns are factored in batches of at least [`BATCH`]. The
 /// thickness test is then taken over the batch, which a small thick component (a cross of two
-/// 9-pixel strokes) no longer fails alone: at this size any shape factors in a few hundred
-/// multiply-adds per unknown, and the work bound (the sum of the components') still applies.
+/// 9-pixel strokes) no longer fails alone: at this size a thick shape's fronts stay short, and
+/// the work bound (the sum of the components') still applies.
 const BATCH_COMPONENT: usize = 64;
+/// Unknowns a batch reaches before the next one begins.
 const BATCH: usize = 4096;
 
 /// One component's factor, its unknowns in elimination order.

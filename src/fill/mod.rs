@@ -693,6 +693,18 @@ impl PackedMask {
         self.bits[p / 64] >> (p % 64) & 1 == 1
     }
 
+    /// Pixels `p..p + 64` as bits (bit `i` for pixel `p + i`), zeros past the image.
+    #[inline]
+    pub(crate) fn window(&self, p: usize) -> u64 {
+        let (i, s) = (p / 64, p % 64);
+        let low = self.bits.get(i).copied().unwrap_or(0) >> s;
+        if s == 0 { low } else { low | self.bits.get(i + 1).copied().unwrap_or(0) << (64 - s) }
+    }
+
+    pub(crate) fn height(&self) -> usize {
+        self.height
+    }
+
     fn unpack(&self) -> Mask {
         let n = self.width * self.height;
         let bits = (0..n).into_par_iter().map(|p| self.bits[p / 64] >> (p % 64) & 1 == 1).collect();

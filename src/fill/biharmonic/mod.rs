@@ -178,6 +178,26 @@ fn row_square(x: i64, y: i64, w: i64, h: i64, interior: &[f64; 25]) -> [f64; 25]
     if edge { fine_row(x, y, w, h) } else { *interior }
 }
 
+/// For up to 64 unknowns `pixels` of an image `width` wide, the bit set of those whose 13-point
+/// stencil reaches no known pixel (their right-hand side is zero), a word at a time: when they
+/// are consecutive pixels of one row at least two rows from the top and bottom, twelve shifted
+/// windows of the mask are and-ed; otherwise none is set. Left and right, a window wraps into
+/// the next or previous row, so near those edges it tests a superset of the row's in-image
+/// neighbours, and a bit set still means none of them is known.
+fn surrounded(mask: &PackedMask, width: usize, pixels: &[u32]) -> u64 {
+    let (Some(&first), Some(&last)) = (pixels.first(), pixels.last()) else { return 0 };
+    let (p, n) = (first as usize, pixels.len());
+    let y = p / width;
+    if last as usize != p + n - 1 || y < 2 || y + 2 >= mask.height() || (p + n - 1) / width != y {
+        return 0;
+    }
+    let at = |dx: isize, dy: isize| mask.window(p.wrapping_add_signed(dy * width as isize + dx));
+    let row = at(-2, 0) & at(-1, 0) & at(1, 0) & at(2, 0);
+    let near = at(-1, -1) & at(0, -1) & at(1, -1) & at(-1, 1) & at(0, 1) & at(1, 1);
+    let keep = if n == 64 { u64::MAX } else { (1u64 << n) - 1 };
+    row & near & at(0, -2) & at(0, 2) & keep
+}
+
 /// The right-hand side of the unknown at `(x, y)` whose row is `square`: `−Σ B_pr·f_r` over the
 /// known pixels `r` the row reaches (`mask`: the image's unknowns, `w` pixels a row).
 #[allow(clippy::cast_possible_wrap, clippy::cast_sign_loss, clippy::cast_possible_truncation)]
@@ -866,12 +886,18 @@ impl Hierarchy {
         let layout = self.layout();
         let bad = layout.sum_mut(&mut b, |k, _, out| {
             let p0 = self.first(k);
-            let mut bad = 0.0;
-            for (o, &p) in out.iter_mut().zip(&self.pixels[p0..]) {
-                match point(p) {
-                    Ok(v) if v != 0.0 => *o = v,
-                    Ok(_) => {}
-                    Err(_) => bad += 1.0,
+            let (mut bad, n) = (0.0, out.len());
+            for (out, pixels) in out.chunks_mut(64).zip(self.pixels[p0..p0 + n].chunks(64)) {
+                let inside = surrounded(mask, self.width, pixels);
+                for (j, (o, &p)) in out.iter_mut().zip(pixels).enumerate() {
+                    if inside >> j & 1 == 1 {
+                        continue;
+                    }
+                    match point(p) {
+                        Ok(v) if v != 0.0 => *o = v,
+                        Ok(_) => {}
+                        Err(_) => bad += 1.0,
+                    }
                 }
             }
             bad
@@ -1248,6 +1274,42 @@ mod tests {
     fn runs_of(w: usize, h: usize, unknown: impl Fn(usize, usize) -> bool) -> Vec<Vec<(u32, u32)>> {
         let bits: Vec<bool> = (0..w * h).map(|i| unknown(i % w, i / w)).collect();
         crate::mask::row_runs(&Mask::from_bits(w, h, bits))
+    }
+
+    #[test]
+    fn surrounded_unknowns_are_those_whose_stencil_reaches_no_known_pixel() {
+        let (w, h) = (150, 40);
+        let mut rng = crate::synth::Rng::new(5);
+        let mask = Mask::from_fn(w, h, |_, _| rng.uniform() < 0.93);
+        let packed = PackedMask::from_runs(w, h, &crate::mask::row_runs(&mask));
+        let known_near = |x: usize, y: usize| {
+            FINE[1..].iter().any(|&(dx, dy)| {
+                let (a, b) = (x as i64 + dx, y as i64 + dy);
+                a >= 0 && b >= 0 && (a as usize) < w && (b as usize) < h && !mask.get(a as usize, b as usize)
+            })
+        };
+        let (mut inner, mut set) = (0, 0);
+        for y in 0..h {
+            // Chunks of a row's pixels from every start, masked or not, the way a run is cut.
+            for start in [0, 1, 2, 37, 86] {
+                let pixels: Vec<u32> = (start..(start + 64).min(w)).map(|x| (y * w + x) as u32).collect();
+                let bits = surrounded(&packed, w, &pixels);
+                for (j, &p) in pixels.iter().enumerate() {
+                    let x = p as usize % w;
+                    let none = !known_near(x, y);
+                    if bits >> j & 1 == 1 {
+                        set += 1;
+                        assert!(none, "({x}, {y}) marked but its stencil reaches a known pixel");
+                    } else if (2..h - 2).contains(&y) && (2..w - 2).contains(&x) {
+                        inner += 1;
+                        assert!(!none, "({x}, {y}) not marked though its stencil reaches none");
+                    }
+                }
+            }
+        }
+        assert!(set > 100 && inner > 100, "both kinds seen: {set} marked, {inner} not");
+        // Not consecutive: nothing is marked.
+        assert_eq!(surrounded(&packed, w, &[(10 * w + 20) as u32, (10 * w + 22) as u32]), 0);
     }
 
     #[test]

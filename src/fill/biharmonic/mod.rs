@@ -171,11 +171,16 @@ fn fine_row(x: i64, y: i64, w: i64, h: i64) -> [f64; 25] {
     row
 }
 
+/// Whether `(x, y)` is within two pixels of the edge of a `w × h` image, where the row of `B` is
+/// not the 13-point stencil.
+fn near_edge(x: i64, y: i64, w: i64, h: i64) -> bool {
+    x < 2 || y < 2 || x >= w - 2 || y >= h - 2
+}
+
 /// The row of `B` at `(x, y)` of a `w × h` image: `interior` (the row away from the edge) or the
 /// row's own near the edge.
 fn row_square(x: i64, y: i64, w: i64, h: i64, interior: &[f64; 25]) -> [f64; 25] {
-    let edge = x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
-    if edge { fine_row(x, y, w, h) } else { *interior }
+    if near_edge(x, y, w, h) { fine_row(x, y, w, h) } else { *interior }
 }
 
 /// For up to 64 unknowns `pixels` of an image `width` wide, the bit set of those whose 13-point
@@ -859,7 +864,7 @@ impl Hierarchy {
         });
         let point = |p: u32| -> Result<f64, FillError> {
             let (x, y) = (i64::from(p % self.width as u32), i64::from(p) / w);
-            if x < 2 || y < 2 || x >= w - 2 || y >= h - 2 {
+            if near_edge(x, y, w, h) {
                 return rhs_at(x, y, &row_square(x, y, w, h, &interior), w, plane, mask);
             }
             // Inside a wide hole the row reaches no known pixel: twelve mask bits decide, and the
@@ -1127,8 +1132,8 @@ impl Pcg {
         let mut work = hier.work();
         let layout = hier.layout();
         self.rr = match &mut work {
-            Work::Compact(w) => update_residual(layout, 0.0, &[0f32; 0], &mut r, &mut w[0].b),
-            Work::Grid(w) => update_residual(layout, 0.0, &[0f32; 0], &mut r, &mut w[0].b),
+            Work::Compact(w) => residual_to_rhs(layout, &mut r, &mut w[0].b, |_, _| {}),
+            Work::Grid(w) => residual_to_rhs(layout, &mut r, &mut w[0].b, |_, _| {}),
         };
         // `p` is read before it is written; zeros written now map its pages once, where a read of
         // fresh zeroed memory maps the shared zero page, and the write after it copies the page
@@ -1229,18 +1234,28 @@ impl Cg {
     }
 }
 
-/// `r −= α·q` (nothing with `α = 0`, when `q` may be empty), copied into the preconditioner's
-/// right-hand side `to`; returns `r·r`.
+/// `r −= α·q`, copied into the preconditioner's right-hand side `to`; returns `r·r`.
 fn update_residual<T: Real>(layout: &Layout, alpha: f64, q: &[f32], r: &mut [f64], to: &mut [T]) -> f64 {
+    residual_to_rhs(layout, r, to, |s, r| {
+        for (r, q) in r.iter_mut().zip(&q[s..]) {
+            *r -= alpha * f64::from(*q);
+        }
+    })
+}
+
+/// `update(first slot, span of r)` on every span of the residual `r`, then the span copied into
+/// the preconditioner's right-hand side `to` while in cache; returns `r·r`.
+fn residual_to_rhs<T: Real>(
+    layout: &Layout,
+    r: &mut [f64],
+    to: &mut [T],
+    update: impl Fn(usize, &mut [f64]) + Sync,
+) -> f64 {
     let to = Shared(to.as_mut_ptr(), to.len());
     layout.sum_mut(r, |_, s, r| {
         // SAFETY: the spans are disjoint and each is visited by one task.
         let to = unsafe { to.slice_mut(s, r.len()) };
-        if alpha != 0.0 {
-            for (r, q) in r.iter_mut().zip(&q[s..]) {
-                *r -= alpha * f64::from(*q);
-            }
-        }
+        update(s, r);
         for (r, t) in r.iter().zip(to.iter_mut()) {
             *t = T::of(*r);
         }

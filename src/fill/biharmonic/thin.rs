@@ -11,7 +11,7 @@
 
 use rayon::prelude::*;
 
-use super::{FINE, fine_row, rhs_at, row_square, square_index};
+use super::{FINE, fine_row, near_edge, rhs_at, row_square, square_index};
 use crate::fill::sparse::{
     BANDED_MIN, BANDS, CHUNK, INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, factor_in_bands,
     thick_share,
@@ -260,19 +260,18 @@ impl Thin {
                 }
                 // The rows of B: the 13-point stencil, its own near the image edge. They are read
                 // as the factorisation takes them (side by side in bands), not listed first.
-                let edge = |(x, y): (i64, i64)| x < 2 || y < 2 || x >= w - 2 || y >= h - 2;
                 let diag: Vec<f64> = idx
                     .par_iter()
                     .with_min_len(CHUNK)
                     .map(|&i| {
                         let (x, y) = xy(i);
                         let centre = square_index((0, 0));
-                        if edge((x, y)) { fine_row(x, y, w, h)[centre] } else { interior[centre] }
+                        if near_edge(x, y, w, h) { fine_row(x, y, w, h)[centre] } else { interior[centre] }
                     })
                     .collect();
                 let entries = |k: usize| {
                     let (x, y) = xy(idx[k]);
-                    let own = edge((x, y)).then(|| fine_row(x, y, w, h));
+                    let own = near_edge(x, y, w, h).then(|| fine_row(x, y, w, h));
                     let square = own.unwrap_or(interior);
                     nbr[k].iter().zip(&FINE[1..]).filter_map(move |(&j, &o)| {
                         let a = square[square_index(o)];

@@ -707,7 +707,7 @@ impl PackedMask {
 
     fn unpack(&self) -> Mask {
         let n = self.width * self.height;
-        let bits = (0..n).into_par_iter().map(|p| self.bits[p / 64] >> (p % 64) & 1 == 1).collect();
+        let bits = (0..n).into_par_iter().map(|p| self.get(p)).collect();
         Mask::from_bits(self.width, self.height, bits)
     }
 }

@@ -33,7 +33,7 @@ use rayon::prelude::*;
 
 use super::dense::Cholesky;
 use super::lanes::Rgb;
-use super::{Cycle, FillError, FillParams, GroupResult, Levels, Progress, Start, pages};
+use super::{Cycle, FillError, FillParams, GroupResult, Levels, Progress, Start};
 
 /// Stop coarsening once a level has at most this many points; it is then solved directly (a
 /// dense factor of 64 points takes 16 KB, of 256 points 0.5 MB: an eighth of a 1024² frame).
@@ -1854,7 +1854,7 @@ fn prepare<'a, const C: usize>(
         let m = maxima.iter().fold(0f64, |a, r| a.max(r[c]));
         if m > 0.0 { 2f64.powi(-(m.log2().floor() as i32)) } else { 1.0 }
     });
-    let mut u = pages::zeros(w * h * C, true);
+    let mut u = vec![0f64; w * h * C];
     let bad: Vec<Option<(usize, usize)>> = u
         .par_chunks_mut(w * C)
         .enumerate()

@@ -32,7 +32,6 @@ pub mod guided;
 mod hierarchy;
 mod kernels;
 mod lanes;
-mod pages;
 mod solve;
 mod sparse;
 

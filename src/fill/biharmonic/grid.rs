@@ -13,7 +13,6 @@ use std::ops::Range;
 
 use rayon::prelude::*;
 
-use crate::fill::pages;
 
 use super::{
     COARSE, COARSE_SWEEPS, COARSEST_MAX, COARSEST_SWEEPS, Coarsest, DENSE_MAX, FINE, FINE_SWEEPS, Layout, LevelWork,
@@ -149,7 +148,7 @@ impl Level {
             points = (points.0.min(a), points.1.min(y), points.2.max(b - 1), points.3.max(y));
         }
         // Zeroed allocations are mapped lazily: cells never written cost no memory.
-        let mut index = pages::zeros(stride * rows, 2 * n >= stride * rows);
+        let mut index = vec![0; stride * rows];
         for &(s, e, first) in &runs {
             for (k, cell) in index[s..e].iter_mut().enumerate() {
                 *cell = crate::mask::index_u32(first + k + 1);
@@ -564,8 +563,7 @@ fn finest(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Level {
         let square = fine_row(2, 2, 5, 5);
         FINE.iter().map(|&o| square[square_index(o)]).collect()
     };
-    // Written whole: on huge pages (see `pages`).
-    let mut row: Vec<u32> = pages::zeros(level.n, true);
+    let mut row = vec![0u32; level.n];
     let mut next = row.iter_mut();
     for (y, a, b) in runs_xy() {
         let yk = 9 * clamp(y) + 27 * clamp(h - 1 - y);
@@ -943,7 +941,7 @@ impl Levels {
         self.levels
             .iter()
             .enumerate()
-            .map(|(l, level)| LevelWork::new(level.index.len(), level.n, if l == last { level.n } else { 0 }))
+            .map(|(l, level)| LevelWork::new(level.index.len(), if l == last { level.n } else { 0 }))
             .collect()
     }
 

@@ -30,7 +30,7 @@ use std::time::Instant;
 use rayon::prelude::*;
 
 use super::dense::Cholesky;
-use super::{ChannelReport, FillError, FillParams, PackedMask, Progress, Start, Structure, pages};
+use super::{ChannelReport, FillError, FillParams, PackedMask, Progress, Start, Structure};
 use crate::mask::Mask;
 
 mod compact;
@@ -560,12 +560,12 @@ struct LevelWork<T> {
 }
 
 impl<T: Real> LevelWork<T> {
-    /// Scratch for a level of `points` points in vectors of `len` slots, `dense` of them solved
-    /// by the coarsest level's factor.
-    fn new(len: usize, points: usize, dense: usize) -> Self {
-        // Zeroed pages are mapped lazily; a grid's cells far from the points are never touched
-        // and cost no memory, so only levels whose points fill most slots take huge pages.
-        let zeros = || pages::zeros(len, 2 * points >= len);
+    /// Scratch for a level in vectors of `len` slots, `dense` of them solved by the coarsest
+    /// level's factor.
+    fn new(len: usize, dense: usize) -> Self {
+        // Zeroed pages are mapped lazily: a grid's cells far from the points are never touched
+        // and cost no memory.
+        let zeros = || vec![T::default(); len];
         Self { u: zeros(), b: zeros(), r: zeros(), keep: zeros(), dense: vec![0.0; dense] }
     }
 }
@@ -785,10 +785,10 @@ impl Hierarchy {
         }
     }
 
-    /// A fresh zeroed vector over the finest level's slots, to be written at every unknown (on
-    /// huge pages when the unknowns fill most slots, see [`pages`]).
+    /// A fresh zeroed vector over the finest level's slots, to be written at every unknown. Its
+    /// pages are mapped on first touch, so slots no unknown owns cost no memory.
     fn zeros<T: Clone + Default>(&self) -> Vec<T> {
-        pages::zeros(self.len, 2 * self.pixels.len() >= self.len)
+        vec![T::default(); self.len]
     }
 
     /// Whether the hierarchy has no coarse levels (see [`SHALLOW_SQUARE`]).
@@ -838,7 +838,7 @@ impl Hierarchy {
     /// Scratch for one channel's preconditioner.
     fn work(&self) -> Work {
         match &self.storage {
-            Storage::Compact(c) => Work::Compact(c.levels.iter().map(|l| LevelWork::new(l.n, l.n, 0)).collect()),
+            Storage::Compact(c) => Work::Compact(c.levels.iter().map(|l| LevelWork::new(l.n, 0)).collect()),
             Storage::Grid(g) => Work::Grid(g.work()),
         }
     }
@@ -883,10 +883,7 @@ impl Hierarchy {
             }
             if finite { Ok(s) } else { rhs_at(x, y, &interior, w, plane, mask) }
         };
-        // Zeros are not written, but every slot is read (the norm, each residual): the vector asks
-        // for huge pages when the unknowns fill its slots, so a read of a page never written maps
-        // the shared zero page once per 2 MiB, not once per 4 KiB (a 4096² frame: 64 faults
-        // instead of 26 000).
+        // Zeros are not written; a page never written is read as the shared zero page.
         let mut b = self.zeros();
         let layout = self.layout();
         let bad = layout.sum_mut(&mut b, |k, _, out| {

@@ -862,24 +862,21 @@ impl Hierarchy {
             let (dx, dy) = FINE[t + 1];
             (interior[square_index((dx, dy))], (dy * w + dx) as isize)
         });
-        let point = |p: u32| -> Result<f64, FillError> {
-            let (x, y) = (i64::from(p % self.width as u32), i64::from(p) / w);
+        // The unknown `p` at `(x, y)`.
+        let point = |p: u32, x: i64, y: i64| -> Result<f64, FillError> {
             if near_edge(x, y, w, h) {
                 return rhs_at(x, y, &row_square(x, y, w, h, &interior), w, plane, mask);
             }
-            // Inside a wide hole the row reaches no known pixel: twelve mask bits decide, and the
-            // image is not read.
-            if terms.iter().all(|&(_, o)| mask.get((p as usize).wrapping_add_signed(o))) {
-                return Ok(0.0);
-            }
-            // Without branches on the mask, which random dropout makes unpredictable; a
-            // non-finite known value is looked for only when one was summed.
+            // Without branches on the mask, which random dropout makes unpredictable (the
+            // compiler turned a select on it into one): an unknown's value is cleared bit by bit,
+            // so it adds zero whatever it holds, and a non-finite known value is looked for only
+            // when one was summed.
             let (mut s, mut finite) = (0f64, true);
             for &(a, o) in &terms {
                 let q = (p as usize).wrapping_add_signed(o);
-                let (known, v) = (!mask.get(q), plane[q]);
-                finite &= !known || v.is_finite();
-                s -= if known { a * f64::from(v) } else { 0.0 };
+                let bits = plane[q].to_bits() & std::hint::black_box(u32::from(mask.get(q)).wrapping_sub(1));
+                finite &= bits & 0x7fff_ffff < 0x7f80_0000;
+                s -= a * f64::from(f32::from_bits(bits));
             }
             if finite { Ok(s) } else { rhs_at(x, y, &interior, w, plane, mask) }
         };
@@ -889,13 +886,24 @@ impl Hierarchy {
         let bad = layout.sum_mut(&mut b, |k, _, out| {
             let p0 = self.first(k);
             let (mut bad, n) = (0.0, out.len());
+            // The position of the last unknown visited: the next one is mostly its right-hand
+            // neighbour, found without a division.
+            let (mut last, mut x, mut y) = (u32::MAX, 0, 0);
             for (out, pixels) in out.chunks_mut(64).zip(self.pixels[p0..p0 + n].chunks(64)) {
+                // Inside a wide hole a row reaches no known pixel: its mask bits decide, and the
+                // image is not read.
                 let inside = surrounded(mask, self.width, pixels);
                 for (j, (o, &p)) in out.iter_mut().zip(pixels).enumerate() {
                     if inside >> j & 1 == 1 {
                         continue;
                     }
-                    match point(p) {
+                    (x, y) = if p == last.wrapping_add(1) && x + 1 < w {
+                        (x + 1, y)
+                    } else {
+                        (i64::from(p % self.width as u32), i64::from(p) / w)
+                    };
+                    last = p;
+                    match point(p, x, y) {
                         Ok(v) if v != 0.0 => *o = v,
                         Ok(_) => {}
                         Err(_) => bad += 1.0,
@@ -907,7 +915,7 @@ impl Hierarchy {
         if bad > 0.0 {
             // The first unknown in pixel order whose row reaches a non-finite known value.
             for &p in &self.pixels {
-                point(p)?;
+                point(p, i64::from(p % self.width as u32), i64::from(p) / w)?;
             }
         }
         Ok(b)

@@ -862,15 +862,15 @@ impl Hierarchy {
             let (dx, dy) = FINE[t + 1];
             (interior[square_index((dx, dy))], (dy * w + dx) as isize)
         });
-        // The unknown `p` at `(x, y)`.
+        // The right-hand side of the unknown `p` at `(x, y)`.
         let point = |p: u32, x: i64, y: i64| -> Result<f64, FillError> {
             if near_edge(x, y, w, h) {
                 return rhs_at(x, y, &row_square(x, y, w, h, &interior), w, plane, mask);
             }
-            // Without branches on the mask, which random dropout makes unpredictable (the
-            // compiler turned a select on it into one): an unknown's value is cleared bit by bit,
-            // so it adds zero whatever it holds, and a non-finite known value is looked for only
-            // when one was summed.
+            // Without a branch on the mask bit, which random dropout makes unpredictable: an
+            // unknown's value is cleared bit by bit, so it adds zero whatever it holds (the
+            // compiler turns the clearing into a jump unless the bit passes through `black_box`).
+            // A non-finite known value is looked for only when one was summed.
             let (mut s, mut finite) = (0f64, true);
             for &(a, o) in &terms {
                 let q = (p as usize).wrapping_add_signed(o);

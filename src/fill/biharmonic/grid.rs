@@ -562,18 +562,17 @@ fn finest(runs: &[Vec<(u32, u32)>], w: usize, h: usize) -> Level {
         let square = fine_row(2, 2, 5, 5);
         FINE.iter().map(|&o| square[square_index(o)]).collect()
     };
-    let mut row = vec![0u32; level.n];
-    let mut next = row.iter_mut();
+    let mut row = Vec::with_capacity(level.n);
     for (y, a, b) in runs_xy() {
         let yk = 9 * clamp(y) + 27 * clamp(h - 1 - y);
-        for (x, r) in (a..b).zip(&mut next) {
+        for x in a..b {
             let key = clamp(x) + 3 * clamp(w - 1 - x) + yk;
             if class_of[key] == u32::MAX {
                 class_of[key] = (table.len() / FINE.len()) as u32;
                 let square = fine_row(x, y, w, h);
                 table.extend(FINE.iter().map(|&o| square[square_index(o)]));
             }
-            *r = class_of[key];
+            row.push(class_of[key]);
         }
     }
     level.set_rows(row, table);

@@ -516,11 +516,6 @@ impl Layout {
         }
     }
 
-    /// `Σ a·b` over the points, summed in a fixed order (the same result on any thread count).
-    fn dot(&self, a: &[f64], b: &[f64]) -> f64 {
-        self.sums(|s, e| [dot_run(&a[s..e], &b[s..e])])[0]
-    }
-
     fn fill_zero<T: Real>(&self, v: &mut [T]) {
         self.for_each_mut(v, |_, _, t| t.fill(T::default()));
     }
@@ -852,9 +847,10 @@ impl Hierarchy {
         }
     }
 
-    /// The right-hand side of one plane: `−Σ B_pr·f_r` over the known pixels `r` of each row.
+    /// The right-hand side of one plane, `−Σ B_pr·f_r` over the known pixels `r` of each row, and
+    /// its squared norm.
     #[allow(clippy::cast_possible_wrap, clippy::cast_sign_loss)]
-    fn rhs(&self, plane: &[f32], mask: &PackedMask) -> Result<Vec<f64>, FillError> {
+    fn rhs(&self, plane: &[f32], mask: &PackedMask) -> Result<(Vec<f64>, f64), FillError> {
         let (w, h) = (self.width as i64, self.height as i64);
         let interior = fine_row(2, 2, 5, 5);
         // Away from the image edge every row is the 13-point stencil: its terms at fixed offsets.
@@ -883,9 +879,9 @@ impl Hierarchy {
         // Zeros are not written; a page never written is read as the shared zero page.
         let mut b = self.zeros();
         let layout = self.layout();
-        let bad = layout.sum_mut(&mut b, |k, _, out| {
+        let [bad, norm_sq] = layout.sums_mut(&mut b, |k, _, out| {
             let p0 = self.first(k);
-            let (mut bad, n) = (0.0, out.len());
+            let (mut bad, mut norm_sq, n) = (0.0, 0.0, out.len());
             // The position of the last unknown visited: the next one is mostly its right-hand
             // neighbour, found without a division.
             let (mut last, mut x, mut y) = (u32::MAX, 0, 0);
@@ -904,13 +900,16 @@ impl Hierarchy {
                     };
                     last = p;
                     match point(p, x, y) {
-                        Ok(v) if v != 0.0 => *o = v,
+                        Ok(v) if v != 0.0 => {
+                            *o = v;
+                            norm_sq += v * v;
+                        }
                         Ok(_) => {}
                         Err(_) => bad += 1.0,
                     }
                 }
             }
-            bad
+            [bad, norm_sq]
         });
         if bad > 0.0 {
             // The first unknown in pixel order whose row reaches a non-finite known value.
@@ -918,7 +917,7 @@ impl Hierarchy {
                 point(p, i64::from(p % self.width as u32), i64::from(p) / w)?;
             }
         }
-        Ok(b)
+        Ok((b, norm_sq))
     }
 
     /// The starting iterates, one per plane over the finest level's slots: the harmonic fill of
@@ -1008,10 +1007,11 @@ impl Hierarchy {
                 })
                 .collect());
         }
-        let rhs: Vec<Vec<f64>> = planes.iter().map(|p| self.rhs(p, mask)).collect::<Result<_, _>>()?;
+        let rhs: Vec<(Vec<f64>, f64)> = planes.iter().map(|p| self.rhs(p, mask)).collect::<Result<_, _>>()?;
         let starts = self.starts(planes, params, start != Start::Warm);
         let relax = self.is_shallow();
-        let mut states: Vec<Pcg> = rhs.into_iter().zip(starts).map(|(b, x)| Pcg::new(self, b, x, relax)).collect();
+        let mut states: Vec<Pcg> =
+            rhs.into_iter().zip(starts).map(|((b, b_sq), x)| Pcg::new(self, b, b_sq, x, relax)).collect();
         let mut reports = vec![ChannelReport::default(); planes.len()];
         let mut done = vec![false; planes.len()];
         let mut iteration = 0;
@@ -1121,11 +1121,12 @@ struct Cg {
 const RELAX_SLOW: f64 = 0.6;
 
 impl Pcg {
-    /// The state at `x` for the right-hand side `b`; `relax`: begin by relaxing.
-    fn new(hier: &Hierarchy, b: Vec<f64>, x: Vec<f64>, relax: bool) -> Self {
+    /// The state at `x` for the right-hand side `b` of squared norm `b_sq`; `relax`: begin by
+    /// relaxing.
+    fn new(hier: &Hierarchy, b: Vec<f64>, b_sq: f64, x: Vec<f64>, relax: bool) -> Self {
         let mut res = hier.zeros();
         let rr = hier.residual(&x, &b, &mut res);
-        let bnorm = hier.layout().dot(&b, &b).sqrt();
+        let bnorm = b_sq.sqrt();
         let mut state = Self { b, bnorm, x, res, rr, cg: None };
         if !relax {
             state.start_cg(hier);

@@ -11,7 +11,7 @@
 
 use rayon::prelude::*;
 
-use super::{FINE, fine_row, near_edge, rhs_at, row_square, square_index};
+use super::{FINE, fine_row, rhs_at, row_square, square_index};
 use crate::fill::sparse::{
     BANDED_MIN, BANDS, CHUNK, INLINE_WIDE, MAX_THICK_SHARE, MAX_UNKNOWNS, NONE, SparseCholesky, factor_in_bands,
     thick_share,
@@ -265,14 +265,12 @@ impl Thin {
                     .with_min_len(CHUNK)
                     .map(|&i| {
                         let (x, y) = xy(i);
-                        let centre = square_index((0, 0));
-                        if near_edge(x, y, w, h) { fine_row(x, y, w, h)[centre] } else { interior[centre] }
+                        row_square(x, y, w, h, &interior)[square_index((0, 0))]
                     })
                     .collect();
                 let entries = |k: usize| {
                     let (x, y) = xy(idx[k]);
-                    let own = near_edge(x, y, w, h).then(|| fine_row(x, y, w, h));
-                    let square = own.unwrap_or(interior);
+                    let square = row_square(x, y, w, h, &interior);
                     nbr[k].iter().zip(&FINE[1..]).filter_map(move |(&j, &o)| {
                         let a = square[square_index(o)];
                         (j != NONE && a != 0.0).then_some((j, a))
